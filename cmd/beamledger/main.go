@@ -1,0 +1,107 @@
+// Command beamledger is the beamledger server and its administration tool.
+//
+//	beamledger serve                       run the server (production)
+//	beamledger demo                        run the embedded demo (what `make run` does)
+//	beamledger migrate up|status           apply or list schema migrations
+//	beamledger user create|set-role|disable|reset-password
+//	beamledger token create|revoke         instrument-agent tokens
+//	beamledger version
+//
+// Settings come from flags or BEAMLEDGER_* environment variables; secrets also from
+// files named by BEAMLEDGER_*_FILE. Run `beamledger serve -h` for the list.
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"log/slog"
+	"os"
+	"os/signal"
+	"runtime/debug"
+	"syscall"
+)
+
+// version is set by the linker (-X main.version=…); the build info is the fallback.
+var version = ""
+
+func main() {
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	err := run(ctx, os.Args[1:], os.Stdout, os.Stderr)
+	stop()
+	if err != nil {
+		if !errors.Is(err, flag.ErrHelp) {
+			fmt.Fprintln(os.Stderr, "beamledger:", err)
+		}
+		os.Exit(1)
+	}
+}
+
+const usage = `usage: beamledger <command> [flags]
+
+commands:
+  serve                                   run the server
+  demo                                    run the embedded demo facility (make run)
+  migrate up|status                       apply or list schema migrations
+  user create|set-role|disable|reset-password
+  token create|revoke                     instrument-agent tokens
+  version                                 print the version
+`
+
+func run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	if len(args) == 0 {
+		fmt.Fprint(stderr, usage)
+		return errors.New("no command given")
+	}
+	cmd, rest := args[0], args[1:]
+	switch cmd {
+	case "serve":
+		return cmdServe(ctx, rest, stderr)
+	case "demo":
+		return cmdDemo(ctx, rest, stdout, stderr)
+	case "migrate":
+		return cmdMigrate(ctx, rest, stdout, stderr)
+	case "user":
+		return cmdUser(ctx, rest, stdout, stderr)
+	case "token":
+		return cmdToken(ctx, rest, stdout, stderr)
+	case "version":
+		fmt.Fprintln(stdout, "beamledger", buildVersion())
+		return nil
+	case "help", "-h", "--help":
+		fmt.Fprint(stdout, usage)
+		return nil
+	}
+	fmt.Fprint(stderr, usage)
+	return fmt.Errorf("unknown command %q", cmd)
+}
+
+func buildVersion() string {
+	if version != "" {
+		return version
+	}
+	if bi, ok := debug.ReadBuildInfo(); ok {
+		rev, dirty := "", ""
+		for _, s := range bi.Settings {
+			switch s.Key {
+			case "vcs.revision":
+				rev = s.Value
+			case "vcs.modified":
+				if s.Value == "true" {
+					dirty = "+dirty"
+				}
+			}
+		}
+		if rev != "" {
+			return bi.Main.Version + " " + rev + dirty
+		}
+		return bi.Main.Version
+	}
+	return "unknown"
+}
+
+func newLogger(w io.Writer, level slog.Level) *slog.Logger {
+	return slog.New(slog.NewJSONHandler(w, &slog.HandlerOptions{Level: level}))
+}

@@ -1,0 +1,229 @@
+// Command testenv runs a command beside the services the test suites need,
+// so that `make test` works on a bare machine with no setup and leaves
+// nothing running behind it.
+//
+// Usage:
+//
+//	go run ./deploy/testenv [-v] -- CMD ARGS...
+//
+// It starts a throwaway PostgreSQL cluster on a free 127.0.0.1 port (installing
+// the server with apt-get first when it is missing and testenv runs as root),
+// runs CMD with BEAMLEDGER_TEST_DATABASE_URL pointing at it, stops the cluster
+// whatever happens, and exits with CMD's exit status. When
+// BEAMLEDGER_TEST_DATABASE_URL is already set, that database is used as is,
+// which lets CI provide its own. SIGINT and SIGTERM are passed on to CMD, so
+// an interrupted test run still tears the services down.
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"os/exec"
+	"os/signal"
+	"sync"
+	"syscall"
+
+	"beamledger/deploy/pgcluster"
+)
+
+// envDatabaseURL is the variable the storage and HTTP tests read.
+const envDatabaseURL = "BEAMLEDGER_TEST_DATABASE_URL"
+
+// service is one thing the tests need running. Services start in list
+// order and stop in reverse, so a later one may depend on an earlier one
+// (an S3 server and a browser are expected to join PostgreSQL here).
+type service interface {
+	// Name is what messages call the service.
+	Name() string
+	// Start brings the service up and returns the NAME=value pairs that
+	// tell the command where it is. A failed Start leaves nothing running.
+	Start(ctx context.Context) (env []string, err error)
+	// Stop shuts the service down and removes what it created.
+	Stop() error
+}
+
+func main() { os.Exit(run()) }
+
+func run() int {
+	verbose := flag.Bool("v", false, "copy the services' own logs to stderr")
+	flag.Usage = func() {
+		fmt.Fprintf(flag.CommandLine.Output(), "usage: go run ./deploy/testenv [-v] -- CMD ARGS...\n")
+		flag.PrintDefaults()
+	}
+	flag.Parse()
+	if flag.NArg() == 0 {
+		flag.Usage()
+		return 2
+	}
+	logs := io.Discard
+	if *verbose {
+		logs = os.Stderr
+	}
+
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	relay := newSignalRelay(cancel)
+	defer relay.close()
+
+	started, env, err := startAll(ctx, plannedServices(logs))
+	defer func() {
+		if err := stopAll(started); err != nil {
+			fmt.Fprintf(os.Stderr, "testenv: %v\n", err)
+		}
+	}()
+	if err != nil {
+		fmt.Fprintf(os.Stderr, "testenv: %v\n", err)
+		return 1
+	}
+
+	code, err := runChild(relay, flag.Args(), env)
+	if err != nil {
+		fmt.Fprintf(os.Stderr, "testenv: %v\n", err)
+	}
+	return code
+}
+
+// plannedServices lists what to start, in order.
+func plannedServices(logs io.Writer) []service {
+	var services []service
+	if url := os.Getenv(envDatabaseURL); url != "" {
+		fmt.Fprintf(os.Stderr, "testenv: using the database in %s from the environment\n", envDatabaseURL)
+	} else {
+		services = append(services, &postgresService{log: logs})
+	}
+	return services
+}
+
+// startAll starts services in order; on failure it stops the ones already
+// started and returns none.
+func startAll(ctx context.Context, services []service) ([]service, []string, error) {
+	var started []service
+	var env []string
+	for _, s := range services {
+		kv, err := s.Start(ctx)
+		if err != nil {
+			err = fmt.Errorf("starting %s: %w", s.Name(), err)
+			return nil, nil, errors.Join(err, stopAll(started))
+		}
+		started = append(started, s)
+		env = append(env, kv...)
+	}
+	return started, env, nil
+}
+
+// stopAll stops services in reverse order, trying every one.
+func stopAll(services []service) error {
+	var errs []error
+	for i := len(services) - 1; i >= 0; i-- {
+		if err := services[i].Stop(); err != nil {
+			errs = append(errs, fmt.Errorf("stopping %s: %w", services[i].Name(), err))
+		}
+	}
+	return errors.Join(errs...)
+}
+
+// runChild runs the command with the services' environment and returns the
+// exit status to pass on: the command's own, 128+N when signal N killed it
+// (as shells report), 1 when it could not be started.
+func runChild(relay *signalRelay, args, env []string) (int, error) {
+	cmd := exec.Command(args[0], args[1:]...)
+	cmd.Env = append(os.Environ(), env...)
+	cmd.Stdin, cmd.Stdout, cmd.Stderr = os.Stdin, os.Stdout, os.Stderr
+	if err := relay.start(cmd); err != nil {
+		return 1, err
+	}
+	err := cmd.Wait()
+	if ws, ok := cmd.ProcessState.Sys().(syscall.WaitStatus); ok && ws.Signaled() {
+		return 128 + int(ws.Signal()), nil
+	}
+	var exitErr *exec.ExitError
+	if err != nil && !errors.As(err, &exitErr) {
+		return 1, err
+	}
+	return cmd.ProcessState.ExitCode(), nil
+}
+
+// signalRelay passes SIGINT and SIGTERM to the child once it runs; before
+// that, a signal cancels the services' start-up instead, so that nothing is
+// left half-started.
+type signalRelay struct {
+	mu          sync.Mutex
+	child       *os.Process
+	interrupted bool
+	signals     chan os.Signal
+	done        chan struct{}
+}
+
+func newSignalRelay(cancel context.CancelFunc) *signalRelay {
+	r := &signalRelay{signals: make(chan os.Signal, 4), done: make(chan struct{})}
+	signal.Notify(r.signals, os.Interrupt, syscall.SIGTERM)
+	go func() {
+		defer close(r.done)
+		for sig := range r.signals {
+			r.mu.Lock()
+			if r.child != nil {
+				_ = r.child.Signal(sig) // it may have exited already
+			} else {
+				r.interrupted = true
+				cancel()
+			}
+			r.mu.Unlock()
+		}
+	}()
+	return r
+}
+
+// start starts cmd unless a signal came first.
+func (r *signalRelay) start(cmd *exec.Cmd) error {
+	r.mu.Lock()
+	defer r.mu.Unlock()
+	if r.interrupted {
+		return errors.New("interrupted before the command started")
+	}
+	if err := cmd.Start(); err != nil {
+		return err
+	}
+	r.child = cmd.Process
+	return nil
+}
+
+func (r *signalRelay) close() {
+	signal.Stop(r.signals)
+	close(r.signals)
+	<-r.done
+}
+
+// postgresService is a throwaway PostgreSQL cluster with trust
+// authentication on 127.0.0.1, which is as much security as tests need.
+type postgresService struct {
+	log     io.Writer
+	cluster *pgcluster.Cluster
+}
+
+func (p *postgresService) Name() string { return "PostgreSQL" }
+
+func (p *postgresService) Start(ctx context.Context) ([]string, error) {
+	bins, err := pgcluster.EnsureBinaries(ctx, os.Stderr)
+	if err != nil {
+		return nil, err
+	}
+	c, err := pgcluster.Start(ctx, pgcluster.Options{Throwaway: true, Binaries: bins, Log: p.log})
+	if err != nil {
+		return nil, err
+	}
+	p.cluster = c
+	fmt.Fprintf(os.Stderr, "testenv: PostgreSQL %d on 127.0.0.1:%d (data in %s, removed on exit)\n",
+		bins.Version, c.Port, c.RealDir)
+	return []string{envDatabaseURL + "=" + c.URL("postgres")}, nil
+}
+
+func (p *postgresService) Stop() error {
+	if p.cluster == nil {
+		return nil
+	}
+	return p.cluster.Stop()
+}

@@ -1,0 +1,137 @@
+package scheduling
+
+import (
+	"context"
+	"math"
+	"regexp"
+	"slices"
+	"strings"
+	"time"
+
+	"beamledger"
+)
+
+// InstrumentKind says what sort of tool an instrument is.
+type InstrumentKind string
+
+// Instrument kinds.
+const (
+	KindSTEM  InstrumentKind = "stem"    // scanning transmission (often also conventional TEM)
+	KindTEM   InstrumentKind = "tem"     // conventional transmission
+	KindSEM   InstrumentKind = "sem"     // scanning electron microscope
+	KindFIB   InstrumentKind = "fib_sem" // focused ion beam with an electron column
+	KindOther InstrumentKind = "other"   // plasma cleaners, coaters, anything bookable
+)
+
+// InstrumentKinds lists every kind.
+var InstrumentKinds = []InstrumentKind{KindSTEM, KindTEM, KindSEM, KindFIB, KindOther}
+
+// Corrector says which aberration corrector an instrument carries.
+type Corrector string
+
+// Corrector configurations.
+const (
+	CorrectorNone          Corrector = "none"
+	CorrectorProbe         Corrector = "probe"
+	CorrectorImage         Corrector = "image"
+	CorrectorProbeAndImage Corrector = "probe_and_image"
+)
+
+// DetectorKind is the physical kind of a detector.
+type DetectorKind string
+
+// Detector kinds.
+const (
+	DetectorAnnular      DetectorKind = "annular"      // ring detector for BF/ABF/ADF signals
+	DetectorPixelated    DetectorKind = "pixelated"    // fast camera recording a pattern per probe position
+	DetectorCamera       DetectorKind = "camera"       // imaging camera for TEM
+	DetectorSpectrometer DetectorKind = "spectrometer" // EELS or EDX
+	DetectorSecondary    DetectorKind = "secondary"    // secondary-electron detector
+	DetectorBackscatter  DetectorKind = "backscatter"  // backscattered-electron detector
+)
+
+// DetectorKinds lists every detector kind.
+var DetectorKinds = []DetectorKind{DetectorAnnular, DetectorPixelated, DetectorCamera, DetectorSpectrometer, DetectorSecondary, DetectorBackscatter}
+
+// Detector is one detector of an instrument with its physical geometry in metres.
+// Angles follow from radii only with a calibrated camera length.
+type Detector struct {
+	Name         string       `json:"name"`
+	Kind         DetectorKind `json:"kind"`
+	InnerRadiusM *float64     `json:"inner_radius_m,omitempty"`
+	OuterRadiusM *float64     `json:"outer_radius_m,omitempty"`
+}
+
+// Instrument is a bookable microscope or other tool with its capabilities.
+type Instrument struct {
+	ID                    string         `json:"id"`
+	Code                  string         `json:"code"`
+	Name                  string         `json:"name"`
+	Kind                  InstrumentKind `json:"kind"`
+	Location              string         `json:"location"`
+	Bookable              bool           `json:"bookable"`
+	AcceleratingVoltagesV []float64      `json:"accelerating_voltages_v"`
+	Corrector             Corrector      `json:"corrector"`
+	Detectors             []Detector     `json:"detectors"`
+	CreatedAt             time.Time      `json:"created_at"`
+	UpdatedAt             time.Time      `json:"updated_at"`
+}
+
+var instrumentCode = regexp.MustCompile(`^[A-Z0-9][A-Z0-9-]{1,31}$`)
+
+// Normalize canonicalises and checks an instrument before it is created; ID and
+// timestamps are ignored.
+func (in *Instrument) Normalize() error {
+	fe := beamledger.FieldErrors{}
+	in.Code = strings.ToUpper(strings.TrimSpace(in.Code))
+	if !instrumentCode.MatchString(in.Code) {
+		fe.Add("code", "must be 2-32 characters of A-Z, 0-9 and '-'")
+	}
+	in.Name = strings.TrimSpace(in.Name)
+	if in.Name == "" || len(in.Name) > 200 {
+		fe.Add("name", "is required (at most 200 characters)")
+	}
+	if !slices.Contains(InstrumentKinds, in.Kind) {
+		fe.Add("kind", "must be one of stem, tem, sem, fib_sem, other")
+	}
+	if in.Corrector == "" {
+		in.Corrector = CorrectorNone
+	}
+	if !slices.Contains([]Corrector{CorrectorNone, CorrectorProbe, CorrectorImage, CorrectorProbeAndImage}, in.Corrector) {
+		fe.Add("corrector", "must be one of none, probe, image, probe_and_image")
+	}
+	for _, v := range in.AcceleratingVoltagesV {
+		// 1 kV to 3 MV covers every electron microscope built; outside is a unit slip.
+		if math.IsNaN(v) || v < 1e3 || v > 3e6 {
+			fe.Add("accelerating_voltages_v", "each voltage must be between 1000 and 3000000 V")
+		}
+	}
+	slices.Sort(in.AcceleratingVoltagesV)
+	in.AcceleratingVoltagesV = slices.Compact(in.AcceleratingVoltagesV)
+	seen := map[string]bool{}
+	for _, d := range in.Detectors {
+		switch {
+		case strings.TrimSpace(d.Name) == "" || seen[d.Name]:
+			fe.Add("detectors", "each detector needs a unique name")
+		case !slices.Contains(DetectorKinds, d.Kind):
+			fe.Add("detectors", "detector "+d.Name+": unknown kind")
+		case d.InnerRadiusM != nil && d.OuterRadiusM != nil && !(*d.InnerRadiusM >= 0 && *d.InnerRadiusM < *d.OuterRadiusM):
+			fe.Add("detectors", "detector "+d.Name+": inner radius must be ≥ 0 and below the outer radius")
+		}
+		seen[d.Name] = true
+	}
+	return fe.Err()
+}
+
+// InstrumentStore persists instruments.
+type InstrumentStore interface {
+	// CreateInstrument stores an instrument with its detectors. ErrConflict when the
+	// code is taken.
+	CreateInstrument(ctx context.Context, in Instrument) (Instrument, error)
+	// Instrument returns one instrument. ErrNotFound when there is none.
+	Instrument(ctx context.Context, id string) (Instrument, error)
+	// InstrumentByCode returns one instrument by its code. ErrNotFound when none.
+	InstrumentByCode(ctx context.Context, code string) (Instrument, error)
+	// Instruments lists instruments ordered by code.
+	Instruments(ctx context.Context) ([]Instrument, error)
+}

@@ -1,0 +1,285 @@
+package server
+
+import (
+	"bytes"
+	"crypto/ed25519"
+	"crypto/x509"
+	"encoding/base64"
+	"encoding/hex"
+	"encoding/pem"
+	"errors"
+	"fmt"
+	"log/slog"
+	"net"
+	"net/url"
+	"strings"
+	"time"
+
+	"beamledger/accounts"
+)
+
+// Config is everything the server needs, filled once from flags and BEAMLEDGER_*
+// environment variables by cmd/beamledger. Defaults() gives a working base;
+// Validate() refuses weak or missing secrets and impossible settings.
+type Config struct {
+	DatabaseURL string
+	ListenAddr  string
+
+	// JWT: access tokens are signed with SigningKey (Ed25519, the only algorithm
+	// accepted) and verified with it or any of VerifyKeys (keys being rotated out).
+	SigningKey ed25519.PrivateKey
+	VerifyKeys []ed25519.PublicKey
+	Issuer     string
+	Audience   string
+	AccessTTL  time.Duration
+	RefreshTTL time.Duration
+
+	// Objects: where data files go. "disk" (ObjectDir) or "s3".
+	ObjectStore string
+	ObjectDir   string
+	S3          S3Config
+
+	MaxBodyBytes      int64
+	ReadHeaderTimeout time.Duration
+	ReadTimeout       time.Duration
+	WriteTimeout      time.Duration
+	IdleTimeout       time.Duration
+	ShutdownTimeout   time.Duration
+
+	// HashConcurrency bounds simultaneous argon2id computations (~19 MiB each).
+	HashConcurrency int
+	// MinPasswordLength is accounts.MinPasswordLength outside demo mode.
+	MinPasswordLength int
+	// LoginPerAccount and LoginPerAddress throttle failed sign-ins.
+	LoginPerAccount accounts.ThrottleRule
+	LoginPerAddress accounts.ThrottleRule
+	// TrustProxyHeaders takes the client address from X-Forwarded-For; enable only
+	// behind a proxy that sets it.
+	TrustProxyHeaders bool
+
+	// Demo marks the embedded demo: weaker password rule, demo accounts printed.
+	Demo     bool
+	LogLevel slog.Level
+}
+
+// S3Config locates an S3-compatible object store.
+type S3Config struct {
+	Endpoint  string
+	Region    string
+	Bucket    string
+	AccessKey string
+	SecretKey string
+	UseTLS    bool
+	PathStyle bool
+}
+
+// Defaults returns the configuration used when nothing is set.
+func Defaults() Config {
+	return Config{
+		ListenAddr:        "127.0.0.1:8080",
+		Issuer:            "beamledger",
+		Audience:          "beamledger-api",
+		AccessTTL:         15 * time.Minute,
+		RefreshTTL:        30 * 24 * time.Hour,
+		ObjectStore:       "disk",
+		ObjectDir:         ".data/objects",
+		MaxBodyBytes:      1 << 20,
+		ReadHeaderTimeout: 10 * time.Second,
+		ReadTimeout:       60 * time.Second,
+		WriteTimeout:      60 * time.Second,
+		IdleTimeout:       120 * time.Second,
+		ShutdownTimeout:   20 * time.Second,
+		HashConcurrency:   2,
+		MinPasswordLength: accounts.MinPasswordLength,
+		LoginPerAccount:   accounts.ThrottleRule{MaxFailures: 10, Window: 15 * time.Minute},
+		LoginPerAddress:   accounts.ThrottleRule{MaxFailures: 50, Window: 15 * time.Minute},
+		LogLevel:          slog.LevelInfo,
+	}
+}
+
+// Validate reports every problem at once, naming the setting.
+func (c Config) Validate() error {
+	var errs []error
+	bad := func(format string, args ...any) { errs = append(errs, fmt.Errorf(format, args...)) }
+	if c.DatabaseURL == "" {
+		bad("BEAMLEDGER_DATABASE_URL is required")
+	}
+	if _, _, err := net.SplitHostPort(c.ListenAddr); err != nil {
+		bad("listen address %q is not host:port", c.ListenAddr)
+	}
+	if err := checkSigningKey(c.SigningKey); err != nil {
+		bad("BEAMLEDGER_JWT_SIGNING_KEY: %v", err)
+	}
+	for i, k := range c.VerifyKeys {
+		if len(k) != ed25519.PublicKeySize {
+			bad("BEAMLEDGER_JWT_VERIFY_KEYS: key %d is not an Ed25519 public key", i+1)
+		}
+	}
+	if c.Issuer == "" || c.Audience == "" {
+		bad("JWT issuer and audience must both be set")
+	}
+	if c.AccessTTL < time.Minute || c.AccessTTL > time.Hour {
+		bad("access token lifetime %s must be between 1m and 1h", c.AccessTTL)
+	}
+	if c.RefreshTTL < c.AccessTTL || c.RefreshTTL > 90*24*time.Hour {
+		bad("refresh token lifetime %s must be between the access lifetime and 90 days", c.RefreshTTL)
+	}
+	switch c.ObjectStore {
+	case "disk":
+		if c.ObjectDir == "" {
+			bad("BEAMLEDGER_OBJECT_DIR is required for the disk object store")
+		}
+	case "s3":
+		if c.S3.Endpoint == "" || c.S3.Bucket == "" {
+			bad("BEAMLEDGER_S3_ENDPOINT and BEAMLEDGER_S3_BUCKET are required for the s3 object store")
+		}
+		if c.S3.AccessKey == "" || len(c.S3.SecretKey) < 8 {
+			bad("BEAMLEDGER_S3_ACCESS_KEY and a BEAMLEDGER_S3_SECRET_KEY of at least 8 characters are required")
+		}
+	default:
+		bad("object store %q must be disk or s3", c.ObjectStore)
+	}
+	if c.MaxBodyBytes < 1024 {
+		bad("max body size must be at least 1 KiB")
+	}
+	if c.HashConcurrency < 1 {
+		bad("hash concurrency must be at least 1")
+	}
+	if !c.Demo && c.MinPasswordLength < accounts.MinPasswordLength {
+		bad("minimum password length must be at least %d outside demo mode", accounts.MinPasswordLength)
+	}
+	for name, r := range map[string]accounts.ThrottleRule{"per-account": c.LoginPerAccount, "per-address": c.LoginPerAddress} {
+		if r.MaxFailures < 1 || r.Window <= 0 {
+			bad("%s login throttle needs a positive failure count and window", name)
+		}
+	}
+	return errors.Join(errs...)
+}
+
+// rfc8032Test1Seed is the secret key of RFC 8032 §7.1 test 1: public, so never a key.
+var rfc8032Test1Seed, _ = hex.DecodeString("9d61b19deffd5a60ba844af492ec2cc44449c5697b326919703bac031cae7f60")
+
+func checkSigningKey(k ed25519.PrivateKey) error {
+	switch {
+	case len(k) == 0:
+		return errors.New("is missing; generate one with `openssl genpkey -algorithm ed25519`")
+	case len(k) != ed25519.PrivateKeySize:
+		return errors.New("is not an Ed25519 private key")
+	case bytes.Equal(k.Seed(), make([]byte, ed25519.SeedSize)), bytes.Equal(k.Seed(), rfc8032Test1Seed):
+		return errors.New("is a well-known or all-zero key; generate a fresh one")
+	}
+	seed := k.Seed()
+	distinct := map[byte]bool{}
+	for _, b := range seed {
+		distinct[b] = true
+	}
+	if len(distinct) < 8 {
+		return errors.New("has too little entropy; generate a fresh one")
+	}
+	return nil
+}
+
+// ParseSigningKey reads an Ed25519 private key from PEM (PKCS #8, as written by
+// `openssl genpkey -algorithm ed25519`) or from the base64 or hex of its 32-byte seed.
+func ParseSigningKey(text string) (ed25519.PrivateKey, error) {
+	text = strings.TrimSpace(text)
+	if block, _ := pem.Decode([]byte(text)); block != nil {
+		key, err := x509.ParsePKCS8PrivateKey(block.Bytes)
+		if err != nil {
+			return nil, fmt.Errorf("PEM key: %w", err)
+		}
+		k, ok := key.(ed25519.PrivateKey)
+		if !ok {
+			return nil, errors.New("PEM key is not Ed25519")
+		}
+		return k, nil
+	}
+	seed, err := decodeKeyBytes(text)
+	if err != nil || len(seed) != ed25519.SeedSize {
+		return nil, errors.New("want a PEM Ed25519 private key or the base64/hex of a 32-byte seed")
+	}
+	return ed25519.NewKeyFromSeed(seed), nil
+}
+
+// ParseVerifyKeys reads Ed25519 public keys separated by commas or newlines, each as
+// PEM (PKIX) or base64/hex of the 32-byte key.
+func ParseVerifyKeys(text string) ([]ed25519.PublicKey, error) {
+	var keys []ed25519.PublicKey
+	rest := []byte(strings.TrimSpace(text))
+	for {
+		block, r := pem.Decode(rest)
+		if block == nil {
+			break
+		}
+		rest = r
+		key, err := x509.ParsePKIXPublicKey(block.Bytes)
+		if err != nil {
+			return nil, fmt.Errorf("PEM public key: %w", err)
+		}
+		k, ok := key.(ed25519.PublicKey)
+		if !ok {
+			return nil, errors.New("PEM public key is not Ed25519")
+		}
+		keys = append(keys, k)
+	}
+	for _, f := range strings.FieldsFunc(string(rest), func(r rune) bool { return r == ',' || r == '\n' || r == ' ' }) {
+		b, err := decodeKeyBytes(f)
+		if err != nil || len(b) != ed25519.PublicKeySize {
+			return nil, errors.New("want PEM Ed25519 public keys or base64/hex of 32-byte keys")
+		}
+		keys = append(keys, ed25519.PublicKey(b))
+	}
+	return keys, nil
+}
+
+func decodeKeyBytes(s string) ([]byte, error) {
+	if b, err := hex.DecodeString(s); err == nil {
+		return b, nil
+	}
+	if b, err := base64.StdEncoding.DecodeString(s); err == nil {
+		return b, nil
+	}
+	return base64.RawURLEncoding.DecodeString(s)
+}
+
+// LogValue renders the config for the start-up log with secrets redacted.
+func (c Config) LogValue() slog.Value {
+	return slog.GroupValue(
+		slog.String("database_url", redactURL(c.DatabaseURL)),
+		slog.String("listen_addr", c.ListenAddr),
+		slog.String("jwt_issuer", c.Issuer),
+		slog.String("jwt_audience", c.Audience),
+		slog.String("jwt_signing_kid", keyID(c.SigningKey.Public().(ed25519.PublicKey))),
+		slog.Int("jwt_verify_keys", len(c.VerifyKeys)),
+		slog.Duration("access_ttl", c.AccessTTL),
+		slog.Duration("refresh_ttl", c.RefreshTTL),
+		slog.String("object_store", c.ObjectStore),
+		slog.String("object_dir", c.ObjectDir),
+		slog.String("s3_endpoint", c.S3.Endpoint),
+		slog.String("s3_bucket", c.S3.Bucket),
+		slog.String("s3_access_key", redactSecret(c.S3.AccessKey)),
+		slog.String("s3_secret_key", redactSecret(c.S3.SecretKey)),
+		slog.Int64("max_body_bytes", c.MaxBodyBytes),
+		slog.Int("hash_concurrency", c.HashConcurrency),
+		slog.Bool("trust_proxy_headers", c.TrustProxyHeaders),
+		slog.Bool("demo", c.Demo),
+	)
+}
+
+func redactSecret(s string) string {
+	if s == "" {
+		return ""
+	}
+	return "[redacted]"
+}
+
+func redactURL(s string) string {
+	u, err := url.Parse(s)
+	if err != nil {
+		return "[unparseable]"
+	}
+	if _, ok := u.User.Password(); ok {
+		u.User = url.UserPassword(u.User.Username(), "redacted")
+	}
+	return u.String()
+}

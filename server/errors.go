@@ -1,0 +1,114 @@
+package server
+
+import (
+	"errors"
+	"log/slog"
+	"net/http"
+	"strconv"
+
+	"github.com/labstack/echo/v4"
+
+	"beamledger"
+)
+
+// errorBody is the one JSON shape of every error answer.
+type errorBody struct {
+	Error errorDetail `json:"error"`
+}
+
+type errorDetail struct {
+	Code      string            `json:"code"`
+	Message   string            `json:"message"`
+	Fields    map[string]string `json:"fields,omitempty"`
+	RequestID string            `json:"request_id"`
+}
+
+// errorStatus is the one table from domain error kinds to HTTP statuses and codes.
+var errorStatus = []struct {
+	kind   error
+	status int
+}{
+	{beamledger.ErrInvalid, http.StatusBadRequest},
+	{beamledger.ErrUnauthorized, http.StatusUnauthorized},
+	{beamledger.ErrForbidden, http.StatusForbidden},
+	{beamledger.ErrNotFound, http.StatusNotFound},
+	{beamledger.ErrConflict, http.StatusConflict},
+	{beamledger.ErrTooLarge, http.StatusRequestEntityTooLarge},
+	{beamledger.ErrRateLimited, http.StatusTooManyRequests},
+	{beamledger.ErrUnavailable, http.StatusServiceUnavailable},
+}
+
+// echoStatusCodes words echo's own errors (no route, wrong method, body too large).
+var echoStatusCodes = map[int]string{
+	http.StatusBadRequest:            "invalid",
+	http.StatusUnauthorized:          "unauthorized",
+	http.StatusForbidden:             "forbidden",
+	http.StatusNotFound:              "not_found",
+	http.StatusMethodNotAllowed:      "not_found",
+	http.StatusConflict:              "conflict",
+	http.StatusRequestEntityTooLarge: "too_large",
+	http.StatusUnsupportedMediaType:  "invalid",
+	http.StatusTooManyRequests:       "rate_limited",
+	http.StatusServiceUnavailable:    "unavailable",
+}
+
+// handleError is echo's HTTPErrorHandler: every error answer goes through here.
+func (s *Server) handleError(err error, c echo.Context) {
+	if c.Response().Committed {
+		return
+	}
+	status, body := s.describeError(err, c)
+	if d, ok := retryAfter(err); ok {
+		c.Response().Header().Set("Retry-After", strconv.Itoa(d))
+	}
+	if status == http.StatusUnauthorized {
+		c.Response().Header().Set("WWW-Authenticate", `Bearer realm="beamledger"`)
+	}
+	if c.Request().Method == http.MethodHead {
+		_ = c.NoContent(status)
+		return
+	}
+	_ = c.JSON(status, body)
+}
+
+func (s *Server) describeError(err error, c echo.Context) (int, errorBody) {
+	rid := requestID(c)
+	var de *beamledger.Error
+	for _, row := range errorStatus {
+		if errors.Is(err, row.kind) {
+			msg := row.kind.Error()
+			var fields map[string]string
+			if errors.As(err, &de) {
+				msg, fields = de.Message, de.Fields
+			}
+			return row.status, errorBody{errorDetail{Code: row.kind.Error(), Message: msg, Fields: fields, RequestID: rid}}
+		}
+	}
+	var he *echo.HTTPError
+	if errors.As(err, &he) {
+		if code, ok := echoStatusCodes[he.Code]; ok {
+			msg := http.StatusText(he.Code)
+			if m, ok := he.Message.(string); ok && he.Code != http.StatusInternalServerError {
+				msg = m
+			}
+			return he.Code, errorBody{errorDetail{Code: code, Message: msg, RequestID: rid}}
+		}
+	}
+	// Unknown: log it in full with the request id, answer with nothing from inside.
+	s.log.ErrorContext(c.Request().Context(), "internal error", slog.String("request_id", rid), slog.Any("error", err))
+	return http.StatusInternalServerError, errorBody{errorDetail{
+		Code: "internal", Message: "internal error; quote the request id when reporting it", RequestID: rid,
+	}}
+}
+
+func retryAfter(err error) (int, bool) {
+	var de *beamledger.Error
+	if errors.As(err, &de) && de.RetryAfter > 0 {
+		secs := int(de.RetryAfter.Seconds())
+		if float64(secs) < de.RetryAfter.Seconds() {
+			secs++
+		}
+		return secs, true
+	}
+	return 0, false
+}

@@ -1,0 +1,107 @@
+package server
+
+import (
+	"crypto/rand"
+	"encoding/hex"
+	"fmt"
+	"log/slog"
+	"net/http"
+	"regexp"
+	"runtime"
+	"time"
+
+	"github.com/labstack/echo/v4"
+
+	"beamledger"
+	"beamledger/accounts"
+)
+
+const requestIDHeader = "X-Request-Id"
+
+var safeRequestID = regexp.MustCompile(`^[A-Za-z0-9._-]{8,64}$`)
+
+// withRequestID takes a well-formed incoming request id (from a proxy) or makes one,
+// and echoes it in the response.
+func withRequestID(next echo.HandlerFunc) echo.HandlerFunc {
+	return func(c echo.Context) error {
+		id := c.Request().Header.Get(requestIDHeader)
+		if !safeRequestID.MatchString(id) {
+			b := make([]byte, 12)
+			_, _ = rand.Read(b)
+			id = hex.EncodeToString(b)
+		}
+		c.Set(requestIDHeader, id)
+		c.Response().Header().Set(requestIDHeader, id)
+		return next(c)
+	}
+}
+
+func requestID(c echo.Context) string {
+	id, _ := c.Get(requestIDHeader).(string)
+	return id
+}
+
+// logRequests writes one structured line per request once the answer is sent.
+func (s *Server) logRequests(next echo.HandlerFunc) echo.HandlerFunc {
+	return func(c echo.Context) error {
+		start := time.Now()
+		err := next(c)
+		if err != nil {
+			// Let the error handler write the answer now, so the logged status is real.
+			c.Error(err)
+		}
+		p, _ := accounts.PrincipalFrom(c.Request().Context())
+		s.log.LogAttrs(c.Request().Context(), slog.LevelInfo, "request",
+			slog.String("method", c.Request().Method),
+			slog.String("route", c.Path()),
+			slog.Int("status", c.Response().Status),
+			slog.Duration("duration", time.Since(start)),
+			slog.Int64("bytes_out", c.Response().Size),
+			slog.String("request_id", requestID(c)),
+			slog.String("principal", p.ID()),
+			slog.String("remote", c.RealIP()),
+		)
+		return nil
+	}
+}
+
+// recoverPanics turns a panic in a handler into a logged 500, keeping the process up.
+func (s *Server) recoverPanics(next echo.HandlerFunc) echo.HandlerFunc {
+	return func(c echo.Context) (err error) {
+		defer func() {
+			if r := recover(); r != nil {
+				buf := make([]byte, 8<<10)
+				buf = buf[:runtime.Stack(buf, false)]
+				s.log.Error("panic", slog.String("request_id", requestID(c)), slog.Any("panic", r), slog.String("stack", string(buf)))
+				err = fmt.Errorf("panic: %v", r)
+			}
+		}()
+		return next(c)
+	}
+}
+
+// securityHeaders sets conservative defaults on every answer.
+func securityHeaders(next echo.HandlerFunc) echo.HandlerFunc {
+	return func(c echo.Context) error {
+		h := c.Response().Header()
+		h.Set("X-Content-Type-Options", "nosniff")
+		h.Set("X-Frame-Options", "DENY")
+		h.Set("Referrer-Policy", "same-origin")
+		h.Set("Content-Security-Policy", "default-src 'self'; frame-ancestors 'none'; base-uri 'none'; form-action 'self'")
+		return next(c)
+	}
+}
+
+// limitBody caps request bodies so a client cannot make the server read without end.
+func limitBody(n int64) echo.MiddlewareFunc {
+	return func(next echo.HandlerFunc) echo.HandlerFunc {
+		return func(c echo.Context) error {
+			req := c.Request()
+			if req.ContentLength > n {
+				return &beamledger.Error{Kind: beamledger.ErrTooLarge, Message: fmt.Sprintf("request body is larger than %d bytes", n)}
+			}
+			req.Body = http.MaxBytesReader(c.Response(), req.Body, n)
+			return next(c)
+		}
+	}
+}

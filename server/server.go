@@ -1,0 +1,133 @@
+package server
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"net"
+	"net/http"
+	"time"
+
+	"github.com/labstack/echo/v4"
+
+	"beamledger/accounts"
+	"beamledger/storage/postgres"
+	"beamledger/web"
+)
+
+// Server is the HTTP API and web interface over one database.
+type Server struct {
+	cfg    Config
+	store  *postgres.DB
+	log    *slog.Logger
+	echo   *echo.Echo
+	hasher *accounts.PasswordHasher
+	tokens *tokenSigner
+	pages  *web.Pages
+	// openapi is the API description as JSON, converted once at start.
+	openapi []byte
+	now     func() time.Time
+	// rules records the access rule of every registered route, for the route matrix.
+	rules map[string]rule
+}
+
+// New builds a server. now is the clock (time.Now outside tests).
+func New(cfg Config, store *postgres.DB, log *slog.Logger, now func() time.Time) (*Server, error) {
+	if err := cfg.Validate(); err != nil {
+		return nil, err
+	}
+	s := &Server{
+		cfg:    cfg,
+		store:  store,
+		log:    log,
+		hasher: accounts.NewPasswordHasher(accounts.DefaultPasswordParams(), cfg.HashConcurrency),
+		tokens: newTokenSigner(cfg, now),
+		now:    now,
+		rules:  map[string]rule{},
+	}
+	pages, err := web.NewPages()
+	if err != nil {
+		return nil, err
+	}
+	s.pages = pages
+	if s.openapi, err = openapiJSON(); err != nil {
+		return nil, err
+	}
+	e := echo.New()
+	e.HideBanner, e.HidePort = true, true
+	e.HTTPErrorHandler = s.handleError
+	if cfg.TrustProxyHeaders {
+		e.IPExtractor = echo.ExtractIPFromXFFHeader()
+	} else {
+		e.IPExtractor = echo.ExtractIPDirect()
+	}
+	e.Use(withRequestID, s.logRequests, s.recoverPanics, securityHeaders, limitBody(cfg.MaxBodyBytes))
+	s.echo = e
+	if err := s.routes(); err != nil {
+		return nil, err
+	}
+	return s, nil
+}
+
+// Handler returns the server's HTTP handler (for tests and embedding).
+func (s *Server) Handler() http.Handler { return s.echo }
+
+// Serve answers on ln until ctx ends, then drains in-flight requests for up to the
+// shutdown timeout.
+func (s *Server) Serve(ctx context.Context, ln net.Listener) error {
+	hs := &http.Server{
+		Handler:           s.echo,
+		ReadHeaderTimeout: s.cfg.ReadHeaderTimeout,
+		ReadTimeout:       s.cfg.ReadTimeout,
+		WriteTimeout:      s.cfg.WriteTimeout,
+		IdleTimeout:       s.cfg.IdleTimeout,
+		MaxHeaderBytes:    64 << 10,
+		ErrorLog:          slog.NewLogLogger(s.log.Handler(), slog.LevelWarn),
+		BaseContext:       func(net.Listener) context.Context { return context.WithoutCancel(ctx) },
+	}
+	errc := make(chan error, 1)
+	go func() { errc <- hs.Serve(ln) }()
+	select {
+	case err := <-errc:
+		return err
+	case <-ctx.Done():
+	}
+	s.log.Info("shutting down: draining in-flight requests", slog.Duration("timeout", s.cfg.ShutdownTimeout))
+	sctx, cancel := context.WithTimeout(context.Background(), s.cfg.ShutdownTimeout)
+	defer cancel()
+	if err := hs.Shutdown(sctx); err != nil {
+		return fmt.Errorf("shutdown: %w", err)
+	}
+	if err := <-errc; err != nil && !errors.Is(err, http.ErrServerClosed) {
+		return err
+	}
+	return nil
+}
+
+// Run checks the schema, listens on the configured address and serves until ctx ends.
+func Run(ctx context.Context, cfg Config, store *postgres.DB, log *slog.Logger, ready func(addr string)) error {
+	st, err := store.Schema(ctx)
+	if err != nil {
+		return err
+	}
+	if st.TooNew() {
+		return fmt.Errorf("database schema is at version %d but this binary knows only up to %d: run a newer beamledger", st.Current, st.Known)
+	}
+	if !st.UpToDate() {
+		return fmt.Errorf("database schema is at version %d, this binary needs %d: run `beamledger migrate up`", st.Current, st.Known)
+	}
+	s, err := New(cfg, store, log, time.Now)
+	if err != nil {
+		return err
+	}
+	ln, err := net.Listen("tcp", cfg.ListenAddr)
+	if err != nil {
+		return err
+	}
+	log.Info("listening", slog.String("addr", ln.Addr().String()))
+	if ready != nil {
+		ready(ln.Addr().String())
+	}
+	return s.Serve(ctx, ln)
+}

@@ -1,0 +1,82 @@
+package postgres
+
+import (
+	"context"
+
+	"github.com/jackc/pgx/v5"
+
+	"beamledger"
+	"beamledger/accounts"
+	"beamledger/scheduling"
+)
+
+const instrumentSelect = `
+SELECT i.id::text, i.code, i.name, i.kind, i.location, i.bookable, i.accelerating_voltages_v, i.corrector,
+       i.created_at, i.updated_at,
+       coalesce((SELECT jsonb_agg(jsonb_strip_nulls(jsonb_build_object('name', d.name, 'kind', d.kind,
+                 'inner_radius_m', d.inner_radius_m, 'outer_radius_m', d.outer_radius_m)) ORDER BY d.position)
+                 FROM detectors d WHERE d.instrument_id = i.id), '[]')
+FROM instruments i`
+
+func scanInstrument(row pgx.Row) (scheduling.Instrument, error) {
+	var in scheduling.Instrument
+	var kind, corrector string
+	err := row.Scan(&in.ID, &in.Code, &in.Name, &kind, &in.Location, &in.Bookable, &in.AcceleratingVoltagesV,
+		&corrector, &in.CreatedAt, &in.UpdatedAt, &in.Detectors)
+	in.Kind, in.Corrector = scheduling.InstrumentKind(kind), scheduling.Corrector(corrector)
+	return in, err
+}
+
+// CreateInstrument implements scheduling.InstrumentStore.
+func (db *DB) CreateInstrument(ctx context.Context, in scheduling.Instrument) (scheduling.Instrument, error) {
+	var out scheduling.Instrument
+	err := pgx.BeginFunc(ctx, db.pool, func(tx pgx.Tx) error {
+		const q = `
+INSERT INTO instruments (code, name, kind, location, bookable, accelerating_voltages_v, corrector)
+VALUES ($1, $2, $3, $4, $5, $6, $7) RETURNING id::text`
+		volts := in.AcceleratingVoltagesV
+		if volts == nil {
+			volts = []float64{} // a tool without a beam, such as a plasma cleaner
+		}
+		var id string
+		if err := tx.QueryRow(ctx, q, in.Code, in.Name, string(in.Kind), in.Location, in.Bookable,
+			volts, string(in.Corrector)).Scan(&id); err != nil {
+			return err
+		}
+		for i, d := range in.Detectors {
+			const dq = `INSERT INTO detectors (instrument_id, name, kind, inner_radius_m, outer_radius_m, position) VALUES ($1, $2, $3, $4, $5, $6)`
+			if _, err := tx.Exec(ctx, dq, id, d.Name, string(d.Kind), d.InnerRadiusM, d.OuterRadiusM, i); err != nil {
+				return err
+			}
+		}
+		var err error
+		out, err = scanInstrument(tx.QueryRow(ctx, instrumentSelect+` WHERE i.id = $1`, id))
+		return err
+	})
+	return out, mapError(err, "instrument")
+}
+
+// Instrument implements scheduling.InstrumentStore.
+func (db *DB) Instrument(ctx context.Context, id string) (scheduling.Instrument, error) {
+	if !accounts.ValidID(id) {
+		return scheduling.Instrument{}, beamledger.NotFound("instrument")
+	}
+	in, err := scanInstrument(db.pool.QueryRow(ctx, instrumentSelect+` WHERE i.id = $1`, id))
+	return in, mapError(err, "instrument")
+}
+
+// InstrumentByCode implements scheduling.InstrumentStore.
+func (db *DB) InstrumentByCode(ctx context.Context, code string) (scheduling.Instrument, error) {
+	in, err := scanInstrument(db.pool.QueryRow(ctx, instrumentSelect+` WHERE i.code = $1`, code))
+	return in, mapError(err, "instrument")
+}
+
+// Instruments implements scheduling.InstrumentStore.
+func (db *DB) Instruments(ctx context.Context) ([]scheduling.Instrument, error) {
+	rows, err := db.pool.Query(ctx, instrumentSelect+` ORDER BY i.code`)
+	if err != nil {
+		return nil, mapError(err, "instrument")
+	}
+	ins, err := pgx.CollectRows(rows, func(r pgx.CollectableRow) (scheduling.Instrument, error) { return scanInstrument(r) })
+	return ins, mapError(err, "instrument")
+}
