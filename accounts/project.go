@@ -80,8 +80,11 @@ type ProjectPatch struct {
 	RateClass               *RateClass `json:"rate_class"`
 }
 
-// Normalize canonicalises and checks the patch in place.
+// Normalize canonicalises and checks the patch in place; an empty patch is an error.
 func (p *ProjectPatch) Normalize() error {
+	if p.Title == nil && p.PrincipalInvestigatorID == nil && p.RateClass == nil {
+		return beamledger.Invalid("nothing to change: send at least one of title, principal_investigator_id, rate_class", nil)
+	}
 	fe := beamledger.FieldErrors{}
 	if p.Title != nil {
 		s := strings.TrimSpace(*p.Title)

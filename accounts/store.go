@@ -107,7 +107,8 @@ type ProjectStore interface {
 type AgentTokenStore interface {
 	// CreateAgentToken stores a token's hash. ErrNotFound for an unknown instrument.
 	CreateAgentToken(ctx context.Context, t NewAgentToken, createdBy string, hash []byte) (AgentToken, error)
-	// AgentTokens lists an instrument's tokens, newest first.
+	// AgentTokens lists an instrument's tokens, newest first. ErrNotFound for an
+	// unknown instrument.
 	AgentTokens(ctx context.Context, instrumentID string) ([]AgentToken, error)
 	// RevokeAgentToken revokes one token of the instrument (idempotent). ErrNotFound.
 	RevokeAgentToken(ctx context.Context, instrumentID, id string, now time.Time) (AgentToken, error)

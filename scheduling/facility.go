@@ -5,6 +5,7 @@ import (
 	"regexp"
 	"strings"
 	"time"
+	"unicode/utf8"
 
 	"beamledger"
 )
@@ -23,7 +24,7 @@ var currencyCode = regexp.MustCompile(`^[A-Z]{3}$`)
 func (f *Facility) Normalize() error {
 	fe := beamledger.FieldErrors{}
 	f.Name = strings.TrimSpace(f.Name)
-	if f.Name == "" || len(f.Name) > 200 {
+	if f.Name == "" || utf8.RuneCountInString(f.Name) > 200 {
 		fe.Add("name", "is required (at most 200 characters)")
 	}
 	if _, err := time.LoadLocation(f.TimeZone); err != nil || f.TimeZone == "" || f.TimeZone == "Local" {

@@ -7,6 +7,7 @@ import (
 	"slices"
 	"strings"
 	"time"
+	"unicode/utf8"
 
 	"beamledger"
 )
@@ -62,6 +63,26 @@ type Detector struct {
 	OuterRadiusM *float64     `json:"outer_radius_m,omitempty"`
 }
 
+// problem words what is wrong with a detector, or returns "".
+func (d Detector) problem(seen map[string]bool) string {
+	finite := func(p *float64) bool { return p == nil || (!math.IsNaN(*p) && !math.IsInf(*p, 0)) }
+	switch {
+	case strings.TrimSpace(d.Name) == "" || utf8.RuneCountInString(d.Name) > 100 || seen[d.Name]:
+		return "each detector needs a unique name of at most 100 characters"
+	case !slices.Contains(DetectorKinds, d.Kind):
+		return "detector " + d.Name + ": kind must be one of annular, pixelated, camera, spectrometer, secondary, backscatter"
+	case !finite(d.InnerRadiusM) || !finite(d.OuterRadiusM):
+		return "detector " + d.Name + ": radii must be finite numbers"
+	case d.InnerRadiusM != nil && *d.InnerRadiusM < 0:
+		return "detector " + d.Name + ": inner radius must be ≥ 0"
+	case d.OuterRadiusM != nil && *d.OuterRadiusM <= 0:
+		return "detector " + d.Name + ": outer radius must be > 0"
+	case d.InnerRadiusM != nil && d.OuterRadiusM != nil && *d.InnerRadiusM >= *d.OuterRadiusM:
+		return "detector " + d.Name + ": inner radius must be below the outer radius"
+	}
+	return ""
+}
+
 // Instrument is a bookable microscope or other tool with its capabilities.
 type Instrument struct {
 	ID                    string         `json:"id"`
@@ -88,7 +109,7 @@ func (in *Instrument) Normalize() error {
 		fe.Add("code", "must be 2-32 characters of A-Z, 0-9 and '-'")
 	}
 	in.Name = strings.TrimSpace(in.Name)
-	if in.Name == "" || len(in.Name) > 200 {
+	if in.Name == "" || utf8.RuneCountInString(in.Name) > 200 {
 		fe.Add("name", "is required (at most 200 characters)")
 	}
 	if !slices.Contains(InstrumentKinds, in.Kind) {
@@ -108,15 +129,13 @@ func (in *Instrument) Normalize() error {
 	}
 	slices.Sort(in.AcceleratingVoltagesV)
 	in.AcceleratingVoltagesV = slices.Compact(in.AcceleratingVoltagesV)
+	if utf8.RuneCountInString(in.Location) > 200 {
+		fe.Add("location", "is too long (at most 200 characters)")
+	}
 	seen := map[string]bool{}
 	for _, d := range in.Detectors {
-		switch {
-		case strings.TrimSpace(d.Name) == "" || seen[d.Name]:
-			fe.Add("detectors", "each detector needs a unique name")
-		case !slices.Contains(DetectorKinds, d.Kind):
-			fe.Add("detectors", "detector "+d.Name+": unknown kind")
-		case d.InnerRadiusM != nil && d.OuterRadiusM != nil && !(*d.InnerRadiusM >= 0 && *d.InnerRadiusM < *d.OuterRadiusM):
-			fe.Add("detectors", "detector "+d.Name+": inner radius must be ≥ 0 and below the outer radius")
+		if reason := d.problem(seen); reason != "" {
+			fe.Add("detectors", reason)
 		}
 		seen[d.Name] = true
 	}

@@ -109,3 +109,18 @@ func TestPasswordChangeAndDisableRevokeTokensAtOnce(t *testing.T) {
 		t.Fatalf("disabled user's login: %d", r.StatusCode)
 	}
 }
+
+func TestPasswordChangeIsThrottled(t *testing.T) {
+	w := newWorld(t)
+	token := w.tokens[accounts.RoleResearcher]
+	wrong := map[string]string{"current_password": "not the password at all", "new_password": "another long passphrase"}
+	for i := 0; i < w.srv.cfg.LoginPerAccount.MaxFailures; i++ {
+		if r := w.do(http.MethodPost, "/api/v1/me/password", token, wrong, nil); r.StatusCode != 400 {
+			t.Fatalf("attempt %d: %d %s", i, r.StatusCode, r.Body)
+		}
+	}
+	right := map[string]string{"current_password": testPassword, "new_password": "another long passphrase"}
+	if r := w.do(http.MethodPost, "/api/v1/me/password", token, right, nil); r.StatusCode != 429 {
+		t.Fatalf("after %d wrong current passwords: %d, want 429", w.srv.cfg.LoginPerAccount.MaxFailures, r.StatusCode)
+	}
+}

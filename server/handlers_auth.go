@@ -38,28 +38,8 @@ func (s *Server) handleLogin(c echo.Context) error {
 	if req.Password == "" {
 		return beamledger.InvalidField("password", "is required")
 	}
-	accountKey, addressKey := "account:"+email, "address:"+c.RealIP()
-	for _, k := range []struct {
-		key  string
-		rule accounts.ThrottleRule
-	}{{accountKey, s.cfg.LoginPerAccount}, {addressKey, s.cfg.LoginPerAddress}} {
-		if err := s.store.CheckLogin(ctx, k.key, k.rule, s.now()); err != nil {
-			return err
-		}
-	}
-	user, err := s.checkPassword(ctx, email, req.Password)
-	if errors.Is(err, errBadLogin) {
-		if err := s.store.RecordLoginFailure(ctx, accountKey, s.cfg.LoginPerAccount, s.now()); err != nil {
-			return err
-		}
-		if err := s.store.RecordLoginFailure(ctx, addressKey, s.cfg.LoginPerAddress, s.now()); err != nil {
-			return err
-		}
-	}
+	user, err := s.throttledCheckPassword(ctx, email, req.Password, c.RealIP())
 	if err != nil {
-		return err
-	}
-	if err := s.store.ResetLogin(ctx, accountKey); err != nil {
 		return err
 	}
 	resp, err := s.startSession(ctx, user.ID)
@@ -67,6 +47,33 @@ func (s *Server) handleLogin(c echo.Context) error {
 		return err
 	}
 	return c.JSON(http.StatusOK, resp)
+}
+
+// throttledCheckPassword is checkPassword behind the per-account and per-address
+// failure counters, shared by sign-in and password change so that neither can be used
+// to guess a password without limit.
+func (s *Server) throttledCheckPassword(ctx context.Context, email, password, address string) (accounts.User, error) {
+	keys := []struct {
+		key  string
+		rule accounts.ThrottleRule
+	}{{"account:" + email, s.cfg.LoginPerAccount}, {"address:" + address, s.cfg.LoginPerAddress}}
+	for _, k := range keys {
+		if err := s.store.CheckLogin(ctx, k.key, k.rule, s.now()); err != nil {
+			return accounts.User{}, err
+		}
+	}
+	user, err := s.checkPassword(ctx, email, password)
+	if errors.Is(err, errBadLogin) {
+		for _, k := range keys {
+			if err := s.store.RecordLoginFailure(ctx, k.key, k.rule, s.now()); err != nil {
+				return accounts.User{}, err
+			}
+		}
+	}
+	if err != nil {
+		return accounts.User{}, err
+	}
+	return user, s.store.ResetLogin(ctx, keys[0].key)
 }
 
 // checkPassword verifies a login, spending the same work whether or not the email
@@ -184,7 +191,7 @@ func (s *Server) handleChangePassword(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	if _, err := s.checkPassword(ctx, me.Email, req.CurrentPassword); err != nil {
+	if _, err := s.throttledCheckPassword(ctx, me.Email, req.CurrentPassword, c.RealIP()); err != nil {
 		if errors.Is(err, errBadLogin) {
 			return beamledger.InvalidField("current_password", "is wrong")
 		}

@@ -2,6 +2,7 @@ package server
 
 import (
 	"net/http"
+	"strings"
 
 	"github.com/labstack/echo/v4"
 
@@ -10,7 +11,15 @@ import (
 
 func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerFunc)) {
 	add(http.MethodGet, "/", open(), s.handleStartPage)
-	static := http.StripPrefix("/static/", http.FileServerFS(web.Static()))
+	files := http.FileServerFS(web.Static())
+	// Folders are not listed: only the named assets are served.
+	static := http.StripPrefix("/static/", http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		if r.URL.Path == "" || strings.HasSuffix(r.URL.Path, "/") {
+			http.NotFound(w, r)
+			return
+		}
+		files.ServeHTTP(w, r)
+	}))
 	add(http.MethodGet, "/static/*", open(), echo.WrapHandler(static))
 }
 

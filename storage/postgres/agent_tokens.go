@@ -56,6 +56,13 @@ func (db *DB) AgentTokens(ctx context.Context, instrumentID string) ([]accounts.
 	if !accounts.ValidID(instrumentID) {
 		return nil, beamledger.NotFound("instrument")
 	}
+	var ok bool
+	if err := db.pool.QueryRow(ctx, `SELECT EXISTS (SELECT 1 FROM instruments WHERE id = $1)`, instrumentID).Scan(&ok); err != nil {
+		return nil, mapError(err, "instrument")
+	}
+	if !ok {
+		return nil, beamledger.NotFound("instrument")
+	}
 	rows, err := db.pool.Query(ctx, `SELECT `+agentTokenColumns+` FROM agent_tokens WHERE instrument_id = $1 ORDER BY created_at DESC, id`, instrumentID)
 	if err != nil {
 		return nil, mapError(err, "agent token")

@@ -42,7 +42,8 @@ func mapError(err error, what string) error {
 	case foreignKeyViolation:
 		return beamledger.Invalid(what+" refers to something that does not exist", nil)
 	case checkViolation, notNullViolation:
-		return beamledger.Invalid(what+" breaks a rule of the schema ("+pgErr.ConstraintName+")", nil)
+		// The constraint name is internal; Go-side validation words these cases better.
+		return beamledger.Invalid(what+" breaks a rule of the schema", nil)
 	case serializationFailure, deadlockDetected:
 		return beamledger.Unavailable("the database was busy; try again")
 	}

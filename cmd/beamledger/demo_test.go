@@ -1,0 +1,210 @@
+package main
+
+import (
+	"bufio"
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+	"net/http"
+	"os"
+	"path/filepath"
+	"regexp"
+	"strings"
+	"testing"
+	"time"
+)
+
+var (
+	bannerURL     = regexp.MustCompile(`running at (http://[^/\s]+)/`)
+	bannerAccount = regexp.MustCompile(`^\s+(manager|staff|researcher|auditor)\s+(\S+@\S+)\s+(\S+)$`)
+)
+
+type demoRun struct {
+	url      string
+	accounts map[string]string // email → password
+	cancel   context.CancelFunc
+	done     chan error
+}
+
+// startDemo runs `beamledger demo` as `make run` does, on a free port and a data
+// directory of the test's, and waits for its banner.
+func startDemo(t *testing.T, dataDir string) *demoRun {
+	t.Helper()
+	ctx, cancel := context.WithCancel(context.Background())
+	pr, pw := io.Pipe()
+	d := &demoRun{accounts: map[string]string{}, cancel: cancel, done: make(chan error, 1)}
+	go func() {
+		d.done <- run(ctx, []string{"demo", "-data", dataDir, "-listen", "127.0.0.1:0"}, pw, io.Discard)
+		pw.Close()
+	}()
+	sc := bufio.NewScanner(pr)
+	for sc.Scan() {
+		line := sc.Text()
+		if m := bannerURL.FindStringSubmatch(line); m != nil {
+			d.url = m[1]
+		}
+		if m := bannerAccount.FindStringSubmatch(line); m != nil {
+			d.accounts[m[2]] = m[3]
+		}
+		if strings.Contains(line, "Ctrl-C") {
+			break
+		}
+	}
+	go func() { _, _ = io.Copy(io.Discard, pr) }()
+	if d.url == "" {
+		cancel()
+		t.Fatalf("demo printed no URL; exited with %v", <-d.done)
+	}
+	return d
+}
+
+func (d *demoRun) stop(t *testing.T) {
+	t.Helper()
+	d.cancel()
+	select {
+	case err := <-d.done:
+		if err != nil {
+			t.Fatalf("demo stopped with %v", err)
+		}
+	case <-time.After(60 * time.Second):
+		t.Fatal("demo did not stop within 60 s of Ctrl-C")
+	}
+}
+
+// TestDemoServesReadyAndLogin is the `make run` promise: /readyz answers 200 and a
+// printed demo account can sign in; a second run reuses the data and prints the same
+// passwords.
+func TestDemoServesReadyAndLogin(t *testing.T) {
+	if testing.Short() {
+		t.Skip("starts a private PostgreSQL cluster")
+	}
+	dataDir := filepath.Join(t.TempDir(), "data")
+	t.Cleanup(func() {
+		// When run as root the cluster may live outside dataDir behind a link.
+		if real, err := filepath.EvalSymlinks(filepath.Join(dataDir, "postgres")); err == nil {
+			os.RemoveAll(real)
+		}
+	})
+	d := startDemo(t, dataDir)
+	res, err := http.Get(d.url + "/readyz")
+	if err != nil {
+		t.Fatal(err)
+	}
+	res.Body.Close()
+	if res.StatusCode != http.StatusOK {
+		t.Fatalf("/readyz: %d", res.StatusCode)
+	}
+	for _, role := range []string{"manager", "staff", "researcher", "auditor"} {
+		email := role + "@demo.example"
+		pw, ok := d.accounts[email]
+		if !ok {
+			t.Fatalf("banner lacks %s; got %v", email, d.accounts)
+		}
+		if tok := login(t, d.url, email, pw); tok == "" {
+			t.Fatalf("login %s gave no token", email)
+		}
+	}
+	first := d.accounts
+	d.stop(t)
+	// The cluster is stopped: nothing listens on its port any more (checked by the
+	// second start finding the data directory free and reusing it).
+	d2 := startDemo(t, dataDir)
+	defer d2.stop(t)
+	for email, pw := range first {
+		if d2.accounts[email] != pw {
+			t.Fatalf("second run printed another password for %s", email)
+		}
+	}
+	login(t, d2.url, "researcher@demo.example", first["researcher@demo.example"])
+	var projects struct {
+		Items []struct{ Code string } `json:"items"`
+	}
+	getJSON(t, d2.url+"/api/v1/projects", login(t, d2.url, "manager@demo.example", first["manager@demo.example"]), &projects)
+	if len(projects.Items) != 3 {
+		t.Fatalf("after a second load: %d projects, want the 3 demo projects once", len(projects.Items))
+	}
+}
+
+func login(t *testing.T, base, email, pw string) string {
+	t.Helper()
+	body := fmt.Sprintf(`{"email":%q,"password":%q}`, email, pw)
+	res, err := http.Post(base+"/api/v1/auth/login", "application/json", strings.NewReader(body))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer res.Body.Close()
+	var tok struct {
+		AccessToken string `json:"access_token"`
+	}
+	if res.StatusCode != http.StatusOK {
+		t.Fatalf("login %s: %d", email, res.StatusCode)
+	}
+	if err := json.NewDecoder(res.Body).Decode(&tok); err != nil {
+		t.Fatal(err)
+	}
+	return tok.AccessToken
+}
+
+func getJSON(t *testing.T, url, token string, out any) {
+	t.Helper()
+	req, _ := http.NewRequest(http.MethodGet, url, nil)
+	req.Header.Set("Authorization", "Bearer "+token)
+	res, err := http.DefaultClient.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer res.Body.Close()
+	if res.StatusCode != http.StatusOK {
+		t.Fatalf("GET %s: %d", url, res.StatusCode)
+	}
+	if err := json.NewDecoder(res.Body).Decode(out); err != nil {
+		t.Fatal(err)
+	}
+}
+
+func TestServeRefusesWeakOrMissingSecrets(t *testing.T) {
+	for name, env := range map[string]map[string]string{
+		"no database":    {"BEAMLEDGER_JWT_SIGNING_KEY": strings.Repeat("ab", 16) + "0123456789abcdef0123456789abcdef"},
+		"no signing key": {"BEAMLEDGER_DATABASE_URL": "postgres://x@127.0.0.1/x"},
+		"zero key":       {"BEAMLEDGER_DATABASE_URL": "postgres://x@127.0.0.1/x", "BEAMLEDGER_JWT_SIGNING_KEY": strings.Repeat("00", 32)},
+		"both forms":     {"BEAMLEDGER_DATABASE_URL": "postgres://x@127.0.0.1/x", "BEAMLEDGER_DATABASE_URL_FILE": "/nonexistent"},
+	} {
+		t.Run(name, func(t *testing.T) {
+			for _, k := range []string{"BEAMLEDGER_DATABASE_URL", "BEAMLEDGER_DATABASE_URL_FILE", "BEAMLEDGER_JWT_SIGNING_KEY", "BEAMLEDGER_JWT_SIGNING_KEY_FILE"} {
+				t.Setenv(k, "")
+				os.Unsetenv(k)
+			}
+			for k, v := range env {
+				t.Setenv(k, v)
+			}
+			err := run(context.Background(), []string{"serve"}, io.Discard, io.Discard)
+			if err == nil {
+				t.Fatal("serve started without a usable configuration")
+			}
+		})
+	}
+}
+
+func TestSecretFromFile(t *testing.T) {
+	f := filepath.Join(t.TempDir(), "url")
+	if err := os.WriteFile(f, []byte("postgres://u:p@h/db\n"), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	t.Setenv("BEAMLEDGER_DATABASE_URL_FILE", f)
+	os.Unsetenv("BEAMLEDGER_DATABASE_URL")
+	got, err := databaseURL()
+	if err != nil || got != "postgres://u:p@h/db" {
+		t.Fatalf("got %q, %v", got, err)
+	}
+}
+
+func TestUnknownCommand(t *testing.T) {
+	if err := run(context.Background(), []string{"frobnicate"}, io.Discard, io.Discard); err == nil {
+		t.Fatal("unknown command accepted")
+	}
+	var out strings.Builder
+	if err := run(context.Background(), []string{"version"}, &out, io.Discard); err != nil || !strings.HasPrefix(out.String(), "beamledger ") {
+		t.Fatalf("version: %q %v", out.String(), err)
+	}
+}

@@ -1,0 +1,605 @@
+package server
+
+import (
+	"bytes"
+	"errors"
+	"fmt"
+	"io"
+	"maps"
+	"mime"
+	"net/http"
+	"net/http/httptest"
+	"os"
+	"slices"
+	"strconv"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/google/uuid"
+	"github.com/santhosh-tekuri/jsonschema/v6"
+
+	"beamledger/accounts"
+	"beamledger/scheduling"
+	"beamledger/storage/postgres/pgtest"
+)
+
+// TestMain runs the tests, then holds every answer they received against
+// openapi.yaml: the status must be documented for the operation, required headers
+// present, the media type documented, and a JSON body valid against its schema. So
+// the document is checked against what the server really sends, not only what we
+// meant it to send.
+func TestMain(m *testing.M) {
+	code := m.Run()
+	if code != 0 {
+		os.Exit(code)
+	}
+	ex := recordedExchanges()
+	if len(ex) == 0 {
+		os.Exit(0)
+	}
+	if problems := validateExchanges(ex); len(problems) > 0 {
+		fmt.Fprintf(os.Stderr, "FAIL: %d of %d answers recorded by the tests depart from openapi.yaml:\n", len(problems), len(ex))
+		for _, p := range problems {
+			fmt.Fprintln(os.Stderr, "  "+p)
+		}
+		os.Exit(1)
+	}
+	os.Exit(0)
+}
+
+// validateExchanges returns one line per recorded answer that the document does not
+// describe.
+func validateExchanges(ex []exchange) []string {
+	d, err := loadAPIDoc()
+	if err != nil {
+		return []string{"openapi document: " + err.Error()}
+	}
+	var problems []string
+	for _, e := range ex {
+		if err := d.checkExchange(e); err != nil {
+			body := e.Body
+			if len(body) > 300 {
+				body = append(body[:300:300], "..."...)
+			}
+			problems = append(problems, fmt.Sprintf("%s %s -> %d: %v\n    body: %s", e.Method, e.Path, e.Status,
+				strings.ReplaceAll(err.Error(), "\n", "\n    "), body))
+		}
+	}
+	return problems
+}
+
+// checkExchange reports how one answer departs from the document, or nil.
+func (d *apiDoc) checkExchange(e exchange) error {
+	// Answers to HEAD never have a body, whatever the document says of GET.
+	head := e.Method == http.MethodHead
+	op := d.operation(e.Method, e.Path)
+	if op == nil {
+		// Unknown paths and methods are answered by echo through our error handler.
+		switch {
+		case e.Status != http.StatusNotFound && e.Status != http.StatusMethodNotAllowed:
+			return fmt.Errorf("no documented operation matches")
+		case head:
+			return nil
+		}
+		return d.checkJSON(e, "#/components/schemas/Error")
+	}
+	resp, ptr, ok, err := d.response(op, e.Status)
+	if err != nil {
+		return err
+	}
+	if !ok {
+		return fmt.Errorf("status %d is not documented for %s %s (documented: %v)", e.Status, op.Method, op.Path, op.statuses())
+	}
+	var problems []error
+	headers, _ := resp["headers"].(map[string]any)
+	for _, name := range slices.Sorted(maps.Keys(headers)) {
+		if err := d.checkHeader(e, name, headers[name], ptr+"/headers/"+escapePointer(name)); err != nil {
+			problems = append(problems, err)
+		}
+	}
+	content, _ := resp["content"].(map[string]any)
+	if head {
+		return errors.Join(problems...)
+	}
+	if len(content) == 0 {
+		if len(e.Body) > 0 {
+			problems = append(problems, fmt.Errorf("documented without a body, but %d bytes came", len(e.Body)))
+		}
+		return errors.Join(problems...)
+	}
+	mt, _, err := mime.ParseMediaType(e.Header.Get("Content-Type"))
+	switch {
+	case err != nil:
+		problems = append(problems, fmt.Errorf("Content-Type %q: %v", e.Header.Get("Content-Type"), err))
+	case content[mt] == nil:
+		problems = append(problems, fmt.Errorf("media type %s is not documented (documented: %v)", mt, slices.Sorted(maps.Keys(content))))
+	case mt == "application/json":
+		if err := d.checkJSON(e, ptr+"/content/application~1json/schema"); err != nil {
+			problems = append(problems, err)
+		}
+	}
+	return errors.Join(problems...)
+}
+
+// checkJSON validates the body against the schema at pointer.
+func (d *apiDoc) checkJSON(e exchange, pointer string) error {
+	sch, err := d.schema(pointer)
+	if err != nil {
+		return fmt.Errorf("schema %s: %w", pointer, err)
+	}
+	v, err := jsonschema.UnmarshalJSON(bytes.NewReader(e.Body))
+	if err != nil {
+		return fmt.Errorf("body is not JSON: %w", err)
+	}
+	if err := sch.Validate(v); err != nil {
+		return fmt.Errorf("body does not match %s: %w", pointer, err)
+	}
+	return nil
+}
+
+// checkHeader requires a documented required header and validates its value.
+func (d *apiDoc) checkHeader(e exchange, name string, h any, pointer string) error {
+	hm, hptr, err := d.resolve(h, pointer)
+	if err != nil {
+		return err
+	}
+	value := e.Header.Get(name)
+	if value == "" {
+		if hm["required"] == true {
+			return fmt.Errorf("required header %s is missing", name)
+		}
+		return nil
+	}
+	sch, err := d.schema(hptr + "/schema")
+	if err != nil {
+		return fmt.Errorf("header %s schema: %w", name, err)
+	}
+	var v any = value
+	if s, _ := hm["schema"].(map[string]any); s["type"] == "integer" {
+		if _, err := strconv.Atoi(value); err == nil {
+			v = jsonNumber(value)
+		}
+	}
+	if err := sch.Validate(v); err != nil {
+		return fmt.Errorf("header %s: %q: %w", name, value, err)
+	}
+	return nil
+}
+
+// jsonNumber parses a decimal integer the way jsonschema.UnmarshalJSON would.
+func jsonNumber(s string) any {
+	v, err := jsonschema.UnmarshalJSON(strings.NewReader(s))
+	if err != nil {
+		return s
+	}
+	return v
+}
+
+// TestExchangeValidatorCatchesMismatches makes sure the TestMain check fails for
+// answers the document does not describe, and passes for ones it does.
+func TestExchangeValidatorCatchesMismatches(t *testing.T) {
+	d, err := loadAPIDoc()
+	if err != nil {
+		t.Fatal(err)
+	}
+	jsonHeader := func(kv ...string) http.Header {
+		h := http.Header{"Content-Type": {"application/json"}, "X-Request-Id": {"0123456789abcdef"}}
+		for i := 0; i+1 < len(kv); i += 2 {
+			h.Set(kv[i], kv[i+1])
+		}
+		return h
+	}
+	const user = `{"id":"0b6c5f8e-3f0e-4b1e-9d6a-0a4c6f1d2e3f","email":"ann@example.org","display_name":"Ann","role":"staff","disabled":false,"created_at":"2025-03-01T09:00:00Z","updated_at":"2025-03-01T09:00:00.123456Z"`
+	const unauthorized = `{"error":{"code":"unauthorized","message":"sign in","request_id":"0123456789abcdef"}}`
+	cases := []struct {
+		name string
+		ex   exchange
+		ok   bool
+	}{
+		{"health", exchange{"GET", "/healthz", 200, jsonHeader(), []byte(`{"status":"ok"}`)}, true},
+		{"user", exchange{"GET", "/api/v1/users/0b6c5f8e-3f0e-4b1e-9d6a-0a4c6f1d2e3f", 200, jsonHeader(), []byte(user + `}`)}, true},
+		{"user with orcid", exchange{"GET", "/api/v1/me", 200, jsonHeader(), []byte(user + `,"orcid":"0000-0002-1694-233X"}`)}, true},
+		{"unknown path answered 404", exchange{"GET", "/api/v1/nothing", 404, jsonHeader(), []byte(`{"error":{"code":"not_found","message":"Not Found","request_id":"x1234567"}}`)}, true},
+		{"undocumented status", exchange{"GET", "/healthz", 500, jsonHeader(), []byte(`{"status":"ok"}`)}, false},
+		{"missing required field", exchange{"GET", "/api/v1/me", 200, jsonHeader(), []byte(`{"id":"0b6c5f8e-3f0e-4b1e-9d6a-0a4c6f1d2e3f"}`)}, false},
+		{"undocumented field", exchange{"GET", "/api/v1/me", 200, jsonHeader(), []byte(user + `,"password_hash":"x"}`)}, false},
+		{"null for an omitted field", exchange{"GET", "/api/v1/me", 200, jsonHeader(), []byte(user + `,"orcid":null}`)}, false},
+		{"email not normalised", exchange{"GET", "/api/v1/me", 200, jsonHeader(), []byte(strings.Replace(user, "ann@", "Ann@", 1) + `}`)}, false},
+		{"id not a uuid", exchange{"GET", "/api/v1/me", 200, jsonHeader(), []byte(strings.Replace(user, "0b6c5f8e-", "0b6c5f8e", 1) + `}`)}, false},
+		{"time not RFC 3339", exchange{"GET", "/api/v1/me", 200, jsonHeader(), []byte(strings.Replace(user, "2025-03-01T09:00:00Z", "2025-03-01 09:00", 1) + `}`)}, false},
+		{"wrong media type", exchange{"GET", "/api/v1/me", 200, jsonHeader("Content-Type", "text/html"), []byte(user + `}`)}, false},
+		{"error code for another status", exchange{"GET", "/api/v1/me", 403, jsonHeader(), []byte(unauthorized)}, false},
+		{"401 with its header", exchange{"GET", "/api/v1/me", 401, jsonHeader("WWW-Authenticate", `Bearer realm="beamledger"`), []byte(unauthorized)}, true},
+		{"401 without WWW-Authenticate", exchange{"GET", "/api/v1/me", 401, jsonHeader(), []byte(unauthorized)}, false},
+		{"body on 204", exchange{"POST", "/api/v1/auth/logout", 204, jsonHeader(), []byte(`{}`)}, false},
+		{"Retry-After not seconds", exchange{"POST", "/api/v1/auth/login", 429, jsonHeader("Retry-After", "soon"),
+			[]byte(`{"error":{"code":"rate_limited","message":"later","request_id":"0123456789abcdef"}}`)}, false},
+		{"Retry-After in seconds", exchange{"POST", "/api/v1/auth/login", 429, jsonHeader("Retry-After", "900"),
+			[]byte(`{"error":{"code":"rate_limited","message":"later","request_id":"0123456789abcdef"}}`)}, true},
+		{"no operation", exchange{"GET", "/api/v1/nothing", 200, jsonHeader(), []byte(`{}`)}, false},
+		{"undocumented method", exchange{"DELETE", "/api/v1/me", 200, jsonHeader(), []byte(`{}`)}, false},
+		{"HEAD answered 405 without a body", exchange{"HEAD", "/healthz", 405, http.Header{}, nil}, true},
+		{"method not allowed", exchange{"DELETE", "/api/v1/me", 405, jsonHeader(), []byte(`{"error":{"code":"not_found","message":"Method Not Allowed","request_id":"x1234567"}}`)}, true},
+		{"unknown path answered 404 with text", exchange{"GET", "/api/v1/nothing", 404, http.Header{"Content-Type": {"text/plain"}}, []byte("404 page not found")}, false},
+	}
+	for _, c := range cases {
+		err := d.checkExchange(c.ex)
+		if (err == nil) != c.ok {
+			t.Errorf("%s: checkExchange = %v, want ok=%v", c.name, err, c.ok)
+		}
+	}
+	if got := validateExchanges([]exchange{cases[0].ex, cases[4].ex}); len(got) != 1 {
+		t.Errorf("validateExchanges reported %d problems, want 1: %q", len(got), got)
+	}
+}
+
+// rawDo sends a request built by the caller (for headers w.do does not set) and
+// records the answer like w.do does.
+func (w *world) rawDo(c *http.Client, req *http.Request) response {
+	w.t.Helper()
+	res, err := c.Do(req)
+	if err != nil {
+		w.t.Fatal(err)
+	}
+	defer res.Body.Close()
+	b, err := io.ReadAll(res.Body)
+	if err != nil {
+		w.t.Fatal(err)
+	}
+	recordExchange(req.Method, req.URL.RequestURI(), req, res, b)
+	return response{StatusCode: res.StatusCode, Header: res.Header, Body: b}
+}
+
+// expect is w.do that fails the test unless the answer has the status wanted.
+func (w *world) expect(want int, method, path, token string, body, out any) response {
+	w.t.Helper()
+	r := w.do(method, path, token, body, out)
+	if r.StatusCode != want {
+		w.t.Errorf("%s %s: status %d, want %d; body %s", method, path, r.StatusCode, want, r.Body)
+	}
+	return r
+}
+
+// TestOpenAPIExamplesExercise calls every route at least once with success and at
+// least once with a representative error, so that TestMain holds an answer of every
+// documented success status of every operation against the document.
+func TestOpenAPIExamplesExercise(t *testing.T) {
+	d, err := loadAPIDoc()
+	if err != nil {
+		t.Fatal(err)
+	}
+	start := len(recordedExchanges())
+	w := newWorld(t)
+	exerciseOperations(t, w)
+	exerciseSignIn(t, w)
+	exerciseUsers(t, w)
+	exerciseProjects(t, w)
+	exerciseInstruments(t, w)
+
+	// Every documented 2xx of every operation, and some error of each operation that
+	// documents errors, must have been seen.
+	seen := map[*apiOperation]map[int]bool{}
+	for _, e := range recordedExchanges()[start:] {
+		if op := d.operation(e.Method, e.Path); op != nil {
+			if seen[op] == nil {
+				seen[op] = map[int]bool{}
+			}
+			seen[op][e.Status] = true
+		}
+	}
+	for _, op := range d.ops {
+		var documentsErrors, sawError bool
+		for _, s := range op.statuses() {
+			if s/100 == 2 && !seen[op][s] {
+				t.Errorf("%s %s: documented %d never exercised", op.Method, op.Path, s)
+			}
+			documentsErrors = documentsErrors || s >= 400
+		}
+		for s := range seen[op] {
+			sawError = sawError || s >= 400
+		}
+		if documentsErrors && !sawError {
+			t.Errorf("%s %s: no error answer exercised", op.Method, op.Path)
+		}
+	}
+}
+
+// exerciseOperations covers the routes outside /api/v1: probes, the document, the web.
+func exerciseOperations(t *testing.T, w *world) {
+	w.expect(http.StatusOK, http.MethodGet, "/healthz", "", nil, nil)
+	var ready readiness
+	w.expect(http.StatusOK, http.MethodGet, "/readyz", "", nil, &ready)
+	if ready.Status != "ready" || ready.SchemaVersion != ready.SchemaKnown || ready.SchemaKnown < 1 {
+		t.Errorf("readiness %+v", ready)
+	}
+	w.expect(http.StatusOK, http.MethodGet, "/api/openapi.json", "", nil, nil)
+
+	// A server whose database is gone is alive but not ready.
+	cfg, _ := testConfig("postgres://unused")
+	db := pgtest.Open(t)
+	db.Close()
+	down, err := New(cfg, db, w.srv.log, w.clock.Now)
+	if err != nil {
+		t.Fatal(err)
+	}
+	downHTTP := httptest.NewServer(down.Handler())
+	defer downHTTP.Close()
+	dw := &world{t: t, http: downHTTP}
+	dw.expect(http.StatusOK, http.MethodGet, "/healthz", "", nil, nil)
+	if r := dw.expect(http.StatusServiceUnavailable, http.MethodGet, "/readyz", "", nil, nil); !bytes.Contains(r.Body, []byte(`"unreachable"`)) {
+		t.Errorf("readyz with the database gone: %s", r.Body)
+	}
+
+	get := func(path string, header ...string) response {
+		req, err := http.NewRequest(http.MethodGet, w.http.URL+path, nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for i := 0; i+1 < len(header); i += 2 {
+			req.Header.Set(header[i], header[i+1])
+		}
+		return w.rawDo(w.http.Client(), req)
+	}
+	checks := []struct {
+		path, rangeHeader string
+		status            int
+		mediaPrefix       string
+	}{
+		{"/", "", http.StatusOK, "text/html"},
+		{"/static/beamledger.css", "", http.StatusOK, "text/css"},
+		{"/static/start.js", "", http.StatusOK, ""},
+		{"/static/beamledger.css", "bytes=0-15", http.StatusPartialContent, "text/css"},
+		{"/static/no-such-file.css", "", http.StatusNotFound, "text/plain"},
+	}
+	for _, c := range checks {
+		var r response
+		if c.rangeHeader != "" {
+			r = get(c.path, "Range", c.rangeHeader)
+		} else {
+			r = get(c.path)
+		}
+		if r.StatusCode != c.status || !strings.HasPrefix(r.Header.Get("Content-Type"), c.mediaPrefix) {
+			t.Errorf("GET %s (Range %q): %d %q, want %d %s", c.path, c.rangeHeader, r.StatusCode, r.Header.Get("Content-Type"), c.status, c.mediaPrefix)
+		}
+	}
+	if r := get("/"); !bytes.Contains(r.Body, []byte("Test Facility")) {
+		t.Errorf("start page does not name the facility: %.200s", r.Body)
+	}
+}
+
+// exerciseSignIn covers sign-in, renewal and sign-out, and the body checks every
+// JSON operation shares (unknown field, wrong media type, too large).
+func exerciseSignIn(t *testing.T, w *world) {
+	const login, refresh, logout = "/api/v1/auth/login", "/api/v1/auth/refresh", "/api/v1/auth/logout"
+	staff := w.users[accounts.RoleStaff].Email
+	var tok, next tokenResponse
+	w.expect(http.StatusOK, http.MethodPost, login, "", map[string]string{"email": staff, "password": testPassword}, &tok)
+	w.expect(http.StatusUnauthorized, http.MethodPost, login, "", map[string]string{"email": staff, "password": "wrong password here"}, nil)
+	w.expect(http.StatusBadRequest, http.MethodPost, login, "", map[string]string{"email": "not-an-email", "password": "x"}, nil)
+	r := w.expect(http.StatusBadRequest, http.MethodPost, login, "", map[string]any{"email": staff, "password": testPassword, "remember": true}, nil)
+	if !bytes.Contains(r.Body, []byte(`"remember"`)) {
+		t.Errorf("unknown field not named: %s", r.Body)
+	}
+
+	req, err := http.NewRequest(http.MethodPost, w.http.URL+login, strings.NewReader("email=a&password=b"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	req.Header.Set("Content-Type", "application/x-www-form-urlencoded")
+	if r := w.rawDo(w.http.Client(), req); r.StatusCode != http.StatusUnsupportedMediaType {
+		t.Errorf("form body: %d %s", r.StatusCode, r.Body)
+	}
+	// Announce a body over the limit and wait for 100 Continue, which never comes: the
+	// server answers from the Content-Length alone.
+	big := bytes.Repeat([]byte(" "), int(w.srv.cfg.MaxBodyBytes)+1)
+	req, err = http.NewRequest(http.MethodPost, w.http.URL+login, bytes.NewReader(big))
+	if err != nil {
+		t.Fatal(err)
+	}
+	req.Header.Set("Content-Type", "application/json")
+	req.Header.Set("Expect", "100-continue")
+	tr := w.http.Client().Transport.(*http.Transport).Clone()
+	tr.ExpectContinueTimeout = time.Minute
+	defer tr.CloseIdleConnections()
+	if r := w.rawDo(&http.Client{Transport: tr}, req); r.StatusCode != http.StatusRequestEntityTooLarge {
+		t.Errorf("oversized body: %d %s", r.StatusCode, r.Body)
+	}
+
+	w.expect(http.StatusOK, http.MethodPost, refresh, "", map[string]string{"refresh_token": tok.RefreshToken}, &next)
+	w.expect(http.StatusUnauthorized, http.MethodPost, refresh, "", map[string]string{"refresh_token": "blrefresh_" + strings.Repeat("A", 43)}, nil)
+	w.expect(http.StatusBadRequest, http.MethodPost, refresh, "", map[string]string{"refresh_token": next.AccessToken}, nil)
+	w.expect(http.StatusNoContent, http.MethodPost, logout, "", map[string]string{"refresh_token": next.RefreshToken}, nil)
+	w.expect(http.StatusBadRequest, http.MethodPost, logout, "", map[string]string{}, nil)
+	w.expect(http.StatusUnauthorized, http.MethodPost, refresh, "", map[string]string{"refresh_token": next.RefreshToken}, nil)
+
+	var me accounts.User
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/me", w.tokens[accounts.RoleResearcher], nil, &me)
+	if me.ID != w.users[accounts.RoleResearcher].ID || me.ORCID != "" {
+		t.Errorf("me: %+v", me)
+	}
+	w.expect(http.StatusUnauthorized, http.MethodGet, "/api/v1/me", "", nil, nil)
+	w.expect(http.StatusForbidden, http.MethodGet, "/api/v1/me", w.agent, nil, nil)
+
+	var f scheduling.Facility
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/facility", w.tokens[accounts.RoleAuditor], nil, &f)
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/facility", w.agent, nil, nil)
+	w.expect(http.StatusUnauthorized, http.MethodGet, "/api/v1/facility", "not.a.jwt", nil, nil)
+	if f.TimeZone != "Europe/Berlin" || f.Currency != "EUR" {
+		t.Errorf("facility %+v", f)
+	}
+}
+
+// exerciseUsers covers users, password resets and changing one's own password.
+func exerciseUsers(t *testing.T, w *world) {
+	manager, staff, researcher := w.tokens[accounts.RoleManager], w.tokens[accounts.RoleStaff], w.tokens[accounts.RoleResearcher]
+	managerID, researcherID := w.users[accounts.RoleManager].ID, w.users[accounts.RoleResearcher].ID
+	newUser := map[string]any{"email": "Ann.Lee@Example.org", "display_name": "Ann Lee", "role": "researcher",
+		"orcid": "https://orcid.org/0000-0002-1825-0097", "password": testPassword}
+	var ann accounts.User
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/users", manager, newUser, &ann)
+	if ann.Email != "ann.lee@example.org" || ann.ORCID != "0000-0002-1825-0097" {
+		t.Errorf("created user %+v", ann)
+	}
+	w.expect(http.StatusConflict, http.MethodPost, "/api/v1/users", manager, newUser, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, "/api/v1/users", staff, newUser, nil)
+	typo := map[string]any{"email": "bo@example.org", "display_name": "Bo", "rolee": "staff", "password": testPassword}
+	if r := w.expect(http.StatusBadRequest, http.MethodPost, "/api/v1/users", manager, typo, nil); !bytes.Contains(r.Body, []byte(`"rolee"`)) {
+		t.Errorf("typo not named: %s", r.Body)
+	}
+
+	var researchers list[accounts.User]
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/users?role=researcher&include_disabled=true", w.tokens[accounts.RoleAuditor], nil, &researchers)
+	if len(researchers.Items) != 3 {
+		t.Errorf("researchers: %d, want 3", len(researchers.Items))
+	}
+	w.expect(http.StatusBadRequest, http.MethodGet, "/api/v1/users?role=superuser", manager, nil, nil)
+	w.expect(http.StatusForbidden, http.MethodGet, "/api/v1/users", researcher, nil, nil)
+
+	annPath := "/api/v1/users/" + ann.ID
+	w.expect(http.StatusOK, http.MethodGet, annPath, staff, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, annPath, researcher, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, "/api/v1/users/not-a-uuid", manager, nil, nil)
+
+	var changed accounts.User
+	w.expect(http.StatusOK, http.MethodPatch, annPath, manager, map[string]any{"display_name": "Ann M. Lee", "orcid": "", "role": "staff"}, &changed)
+	if changed.ORCID != "" || changed.Role != accounts.RoleStaff {
+		t.Errorf("patched user %+v", changed)
+	}
+	w.expect(http.StatusOK, http.MethodPatch, "/api/v1/users/"+researcherID, researcher, map[string]any{"orcid": "0000-0001-5109-3700"}, nil)
+	w.expect(http.StatusForbidden, http.MethodPatch, "/api/v1/users/"+researcherID, researcher, map[string]any{"role": "manager"}, nil)
+	w.expect(http.StatusNotFound, http.MethodPatch, "/api/v1/users/"+managerID, researcher, map[string]any{"display_name": "X"}, nil)
+	w.expect(http.StatusConflict, http.MethodPatch, "/api/v1/users/"+managerID, manager, map[string]any{"role": "staff"}, nil)
+	w.expect(http.StatusBadRequest, http.MethodPatch, annPath, manager, map[string]any{}, nil)
+
+	const resetTo = "a new passphrase from the manager"
+	w.expect(http.StatusNoContent, http.MethodPost, annPath+"/password", manager, map[string]string{"new_password": resetTo}, nil)
+	w.expect(http.StatusBadRequest, http.MethodPost, annPath+"/password", manager, map[string]string{"new_password": "short"}, nil)
+	w.expect(http.StatusNotFound, http.MethodPost, "/api/v1/users/"+uuid.NewString()+"/password", manager, map[string]string{"new_password": resetTo}, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, annPath+"/password", staff, map[string]string{"new_password": resetTo}, nil)
+
+	annTok := w.login(ann.Email, resetTo)
+	var fresh tokenResponse
+	w.expect(http.StatusOK, http.MethodPost, "/api/v1/me/password", annTok.AccessToken,
+		map[string]string{"current_password": resetTo, "new_password": "a passphrase only Ann knows"}, &fresh)
+	w.expect(http.StatusBadRequest, http.MethodPost, "/api/v1/me/password", fresh.AccessToken,
+		map[string]string{"current_password": resetTo, "new_password": "whatever it may be"}, nil)
+	w.expect(http.StatusUnauthorized, http.MethodPost, "/api/v1/me/password", annTok.AccessToken,
+		map[string]string{"current_password": resetTo, "new_password": "whatever it may be"}, nil)
+}
+
+// exerciseProjects covers projects and their members.
+func exerciseProjects(t *testing.T, w *world) {
+	manager, staff, researcher := w.tokens[accounts.RoleManager], w.tokens[accounts.RoleStaff], w.tokens[accounts.RoleResearcher]
+	researcherID := w.users[accounts.RoleResearcher].ID
+	newProject := map[string]any{"code": "em-2025-014", "title": "Beam damage in metal-organic frameworks",
+		"principal_investigator_id": w.other.ID, "rate_class": "external_academic"}
+	var p accounts.Project
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/projects", manager, newProject, &p)
+	if p.Code != "EM-2025-014" || !slices.Equal(p.MemberIDs, []string{w.other.ID}) {
+		t.Errorf("created project %+v", p)
+	}
+	w.expect(http.StatusConflict, http.MethodPost, "/api/v1/projects", manager, newProject, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, "/api/v1/projects", researcher, newProject, nil)
+	noPI := map[string]any{"code": "EM-2025-015", "title": "T", "principal_investigator_id": uuid.NewString(), "rate_class": "internal"}
+	w.expect(http.StatusBadRequest, http.MethodPost, "/api/v1/projects", manager, noPI, nil)
+
+	var mine list[accounts.Project]
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/projects", researcher, nil, &mine)
+	if len(mine.Items) != 1 || mine.Items[0].ID != w.own.ID {
+		t.Errorf("researcher's projects: %+v", mine.Items)
+	}
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/projects", w.tokens[accounts.RoleAuditor], nil, nil)
+	w.expect(http.StatusUnauthorized, http.MethodGet, "/api/v1/projects", "", nil, nil)
+
+	pPath := "/api/v1/projects/" + p.ID
+	w.expect(http.StatusOK, http.MethodGet, pPath, staff, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, "/api/v1/projects/"+w.foreign.ID, researcher, nil, nil)
+	w.expect(http.StatusOK, http.MethodPatch, pPath, manager, map[string]any{"title": "Beam damage in MOFs", "rate_class": "commercial"}, nil)
+	w.expect(http.StatusBadRequest, http.MethodPatch, pPath, manager, map[string]any{"rate_class": "free"}, nil)
+	w.expect(http.StatusNotFound, http.MethodPatch, "/api/v1/projects/"+uuid.NewString(), manager, map[string]any{"title": "T"}, nil)
+	w.expect(http.StatusForbidden, http.MethodPatch, pPath, staff, map[string]any{"title": "T"}, nil)
+
+	ownMembers := "/api/v1/projects/" + w.own.ID + "/members/"
+	var withOther accounts.Project
+	w.expect(http.StatusOK, http.MethodPut, ownMembers+w.other.ID, researcher, nil, &withOther)
+	if !slices.Contains(withOther.MemberIDs, w.other.ID) {
+		t.Errorf("member not added: %+v", withOther)
+	}
+	w.expect(http.StatusOK, http.MethodPut, pPath+"/members/"+researcherID, manager, nil, nil)
+	w.expect(http.StatusForbidden, http.MethodPut, pPath+"/members/"+w.users[accounts.RoleStaff].ID, researcher, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodPut, "/api/v1/projects/"+w.foreign.ID+"/members/"+researcherID, researcher, nil, nil)
+	w.expect(http.StatusBadRequest, http.MethodPut, ownMembers+uuid.NewString(), researcher, nil, nil)
+	w.expect(http.StatusOK, http.MethodDelete, ownMembers+w.other.ID, researcher, nil, nil)
+	w.expect(http.StatusConflict, http.MethodDelete, ownMembers+researcherID, researcher, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodDelete, ownMembers+w.other.ID, researcher, nil, nil)
+	w.expect(http.StatusForbidden, http.MethodDelete, ownMembers+w.other.ID, staff, nil, nil)
+}
+
+// exerciseInstruments covers instruments and agent tokens.
+func exerciseInstruments(t *testing.T, w *world) {
+	manager, staff, researcher := w.tokens[accounts.RoleManager], w.tokens[accounts.RoleStaff], w.tokens[accounts.RoleResearcher]
+	newInstrument := map[string]any{"code": "tem-2", "name": "Cryo TEM", "kind": "tem", "location": "Building 4, room B12",
+		"accelerating_voltages_v": []float64{300e3, 80e3, 200e3, 300e3}, "corrector": "image",
+		"detectors": []map[string]any{
+			{"name": "HAADF", "kind": "annular", "inner_radius_m": 1.5e-3, "outer_radius_m": 9e-3},
+			{"name": "K3", "kind": "camera"},
+		}}
+	var in scheduling.Instrument
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/instruments", manager, newInstrument, &in)
+	if in.Code != "TEM-2" || !in.Bookable || !slices.Equal(in.AcceleratingVoltagesV, []float64{80e3, 200e3, 300e3}) || len(in.Detectors) != 2 {
+		t.Errorf("created instrument %+v", in)
+	}
+	var cleaner scheduling.Instrument
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/instruments", manager, map[string]any{"code": "PC-1", "name": "Plasma cleaner", "kind": "other"}, &cleaner)
+	if cleaner.AcceleratingVoltagesV == nil || cleaner.Corrector != scheduling.CorrectorNone || !cleaner.Bookable {
+		t.Errorf("instrument with defaults %+v", cleaner)
+	}
+	w.expect(http.StatusConflict, http.MethodPost, "/api/v1/instruments", manager, newInstrument, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, "/api/v1/instruments", staff, newInstrument, nil)
+	kilovolts := map[string]any{"code": "SEM-1", "name": "SEM", "kind": "sem", "accelerating_voltages_v": []float64{30}}
+	w.expect(http.StatusBadRequest, http.MethodPost, "/api/v1/instruments", manager, kilovolts, nil)
+
+	var all, agentSees list[scheduling.Instrument]
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/instruments", researcher, nil, &all)
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/instruments", w.agent, nil, &agentSees)
+	if len(all.Items) != 3 || len(agentSees.Items) != 1 || agentSees.Items[0].ID != w.instr.ID {
+		t.Errorf("instruments: %d for a researcher, %+v for the agent", len(all.Items), agentSees.Items)
+	}
+	w.expect(http.StatusUnauthorized, http.MethodGet, "/api/v1/instruments", "blagent_unknown", nil, nil)
+	inPath := "/api/v1/instruments/" + in.ID
+	w.expect(http.StatusOK, http.MethodGet, inPath, researcher, nil, nil)
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/instruments/"+w.instr.ID, w.agent, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, inPath, w.agent, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, "/api/v1/instruments/"+uuid.NewString(), researcher, nil, nil)
+
+	tokens := inPath + "/agent-tokens"
+	newToken := map[string]any{"name": "acquisition PC", "scopes": []string{"usage:write", "instrument:read"},
+		"expires_at": w.clock.Now().Add(90 * 24 * time.Hour)}
+	var made agentTokenCreated
+	r := w.expect(http.StatusCreated, http.MethodPost, tokens, manager, newToken, &made)
+	if r.Header.Get("Cache-Control") != "no-store" || made.ExpiresAt == nil || accounts.TokenPrefix(made.Token) != accounts.AgentTokenPrefix {
+		t.Errorf("made token %+v, Cache-Control %q", made.AgentToken, r.Header.Get("Cache-Control"))
+	}
+	w.expect(http.StatusBadRequest, http.MethodPost, tokens, manager, map[string]any{"name": "x", "scopes": []string{"everything"}}, nil)
+	w.expect(http.StatusNotFound, http.MethodPost, "/api/v1/instruments/"+uuid.NewString()+"/agent-tokens", manager, newToken, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, tokens, staff, newToken, nil)
+	w.expect(http.StatusOK, http.MethodGet, inPath, made.Token, nil, nil)
+
+	var listed list[accounts.AgentToken]
+	w.expect(http.StatusOK, http.MethodGet, tokens, staff, nil, &listed)
+	if len(listed.Items) != 1 || listed.Items[0].LastUsedAt == nil {
+		t.Errorf("listed tokens %+v", listed.Items)
+	}
+	w.expect(http.StatusForbidden, http.MethodGet, tokens, researcher, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, "/api/v1/instruments/not-a-uuid/agent-tokens", manager, nil, nil)
+
+	var revoked accounts.AgentToken
+	w.expect(http.StatusOK, http.MethodDelete, tokens+"/"+made.ID, manager, nil, &revoked)
+	if revoked.RevokedAt == nil {
+		t.Errorf("revoked token %+v", revoked)
+	}
+	w.expect(http.StatusUnauthorized, http.MethodGet, inPath, made.Token, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodDelete, "/api/v1/instruments/"+w.instr.ID+"/agent-tokens/"+made.ID, manager, nil, nil)
+	w.expect(http.StatusForbidden, http.MethodDelete, tokens+"/"+made.ID, staff, nil, nil)
+}
