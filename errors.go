@@ -16,7 +16,10 @@ import (
 
 // Error kinds. Each maps to exactly one HTTP status in server/errors.go.
 var (
-	ErrInvalid      = errors.New("invalid")
+	ErrInvalid = errors.New("invalid")
+	// ErrRule is well-formed input that a booking rule refuses (too long, outside
+	// opening hours, not qualified…); the error names the rule.
+	ErrRule         = errors.New("rule")
 	ErrUnauthorized = errors.New("unauthorized")
 	ErrForbidden    = errors.New("forbidden")
 	ErrNotFound     = errors.New("not_found")
@@ -34,6 +37,8 @@ type Error struct {
 	Message string
 	// Fields names offending input fields (JSON names) with a reason each.
 	Fields map[string]string
+	// Rule names the facility rule that refused the request (with ErrRule).
+	Rule string
 	// RetryAfter, when positive, tells a rate-limited caller when to try again.
 	RetryAfter time.Duration
 }
@@ -56,6 +61,12 @@ func Invalid(message string, fields map[string]string) *Error {
 // InvalidField reports one bad input field.
 func InvalidField(field, reason string) *Error {
 	return &Error{Kind: ErrInvalid, Message: field + ": " + reason, Fields: map[string]string{field: reason}}
+}
+
+// RuleViolation reports that the named rule refuses the request. fields, when not nil,
+// names the input fields concerned.
+func RuleViolation(rule, message string, fields map[string]string) *Error {
+	return &Error{Kind: ErrRule, Rule: rule, Message: message, Fields: maps.Clone(fields)}
 }
 
 // NotFound reports that the named thing does not exist or is not visible to the caller.

@@ -12,6 +12,7 @@ import (
 	"log/slog"
 	"net"
 	"net/url"
+	"regexp"
 	"strings"
 	"time"
 
@@ -249,7 +250,7 @@ func (c Config) LogValue() slog.Value {
 		slog.String("listen_addr", c.ListenAddr),
 		slog.String("jwt_issuer", c.Issuer),
 		slog.String("jwt_audience", c.Audience),
-		slog.String("jwt_signing_kid", keyID(c.SigningKey.Public().(ed25519.PublicKey))),
+		slog.String("jwt_signing_kid", signingKID(c.SigningKey)),
 		slog.Int("jwt_verify_keys", len(c.VerifyKeys)),
 		slog.Duration("access_ttl", c.AccessTTL),
 		slog.Duration("refresh_ttl", c.RefreshTTL),
@@ -266,6 +267,13 @@ func (c Config) LogValue() slog.Value {
 	)
 }
 
+func signingKID(k ed25519.PrivateKey) string {
+	if len(k) != ed25519.PrivateKeySize {
+		return ""
+	}
+	return keyID(k.Public().(ed25519.PublicKey))
+}
+
 func redactSecret(s string) string {
 	if s == "" {
 		return ""
@@ -273,13 +281,21 @@ func redactSecret(s string) string {
 	return "[redacted]"
 }
 
+var keywordSecret = regexp.MustCompile(`(?i)\b(password|sslpassword)\s*=\s*('(?:[^'\\]|\\.)*'|\S+)`)
+
+// redactURL renders a database connection string for the log without its secrets:
+// URLs lose the password and the whole query (which may carry password= or
+// sslpassword=); keyword/value strings have their secret values replaced.
 func redactURL(s string) string {
 	u, err := url.Parse(s)
-	if err != nil {
-		return "[unparseable]"
+	if err != nil || (u.Scheme != "postgres" && u.Scheme != "postgresql") {
+		return keywordSecret.ReplaceAllString(s, "$1=[redacted]")
 	}
 	if _, ok := u.User.Password(); ok {
 		u.User = url.UserPassword(u.User.Username(), "redacted")
+	}
+	if u.RawQuery != "" {
+		u.RawQuery = "[query redacted]"
 	}
 	return u.String()
 }

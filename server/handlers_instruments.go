@@ -18,6 +18,23 @@ func (s *Server) handleFacility(c echo.Context) error {
 	return c.JSON(http.StatusOK, f)
 }
 
+// handleFacilitySet sets the facility's name, zone and currency (a fresh installation
+// has none until a manager sets them).
+func (s *Server) handleFacilitySet(c echo.Context) error {
+	var f scheduling.Facility
+	if err := bind(c, &f); err != nil {
+		return err
+	}
+	if err := f.Normalize(); err != nil {
+		return err
+	}
+	out, err := s.store.SetFacility(c.Request().Context(), f)
+	if err != nil {
+		return err
+	}
+	return c.JSON(http.StatusOK, out)
+}
+
 func (s *Server) handleInstrumentList(c echo.Context) error {
 	ctx := c.Request().Context()
 	ins, err := s.store.Instruments(ctx)

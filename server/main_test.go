@@ -425,6 +425,9 @@ func exerciseSignIn(t *testing.T, w *world) {
 	w.expect(http.StatusOK, http.MethodGet, "/api/v1/facility", w.tokens[accounts.RoleAuditor], nil, &f)
 	w.expect(http.StatusOK, http.MethodGet, "/api/v1/facility", w.agent, nil, nil)
 	w.expect(http.StatusUnauthorized, http.MethodGet, "/api/v1/facility", "not.a.jwt", nil, nil)
+	w.expect(http.StatusOK, http.MethodPut, "/api/v1/facility", w.tokens[accounts.RoleManager], f, nil)
+	w.expect(http.StatusBadRequest, http.MethodPut, "/api/v1/facility", w.tokens[accounts.RoleManager], map[string]string{"name": "X"}, nil)
+	w.expect(http.StatusForbidden, http.MethodPut, "/api/v1/facility", w.tokens[accounts.RoleStaff], f, nil)
 	if f.TimeZone != "Europe/Berlin" || f.Currency != "EUR" {
 		t.Errorf("facility %+v", f)
 	}

@@ -32,6 +32,7 @@ func (s *Server) routes() error {
 	add(http.MethodPost, v1+"/me/password", users(everyone...), s.handleChangePassword)
 
 	add(http.MethodGet, v1+"/facility", usersOrAgent(accounts.ScopeInstrumentRead, everyone...), s.handleFacility)
+	add(http.MethodPut, v1+"/facility", users(managers...), s.handleFacilitySet)
 
 	add(http.MethodGet, v1+"/users", users(readersAll...), s.handleUserList)
 	add(http.MethodPost, v1+"/users", users(managers...), s.handleUserCreate)

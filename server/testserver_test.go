@@ -215,3 +215,11 @@ func (r response) errorCode() string {
 	_ = json.Unmarshal(r.Body, &e)
 	return e.Error.Code
 }
+
+// fieldNamed reports whether an error answer names field in error.fields.
+func fieldNamed(r response, field string) bool {
+	var e errorBody
+	_ = json.Unmarshal(r.Body, &e)
+	_, ok := e.Error.Fields[field]
+	return ok
+}

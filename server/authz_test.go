@@ -1,0 +1,447 @@
+package server
+
+import (
+	"context"
+	"net/http"
+	"slices"
+	"sort"
+	"strings"
+	"testing"
+	"time"
+
+	"beamledger/accounts"
+	"beamledger/scheduling"
+)
+
+// matrixPrincipals are the callers of the route matrix, in the order of an access row.
+var matrixPrincipals = [...]string{"anonymous", "manager", "staff", "researcher", "auditor", "agent"}
+
+// outcome is what one principal must get from one route.
+type outcome int
+
+const (
+	// wAllow: neither 401, 403 nor 404 nor a 5xx; a read answers 2xx.
+	wAllow outcome = iota + 1
+	// wDeny: 403 forbidden.
+	wDeny
+	// wHidden: 404 not_found, the object being invisible to the principal.
+	wHidden
+	// wUnauth: 401 unauthorized, credentials being required.
+	wUnauth
+)
+
+func (o outcome) String() string {
+	return map[outcome]string{wAllow: "allow", wDeny: "deny", wHidden: "hidden", wUnauth: "unauth"}[o]
+}
+
+// access is one route's row: anonymous, manager, staff, researcher, auditor, agent.
+type access [len(matrixPrincipals)]outcome
+
+// routeExpectation is what the matrix expects of a route, and the body it sends
+// (nil for none). Bodies are built per request, so a refresh token is fresh.
+type routeExpectation struct {
+	who  access
+	body func(w *world) any
+}
+
+var (
+	openToAll = access{wAllow, wAllow, wAllow, wAllow, wAllow, wAllow}
+	// usersOnly is users(everyone...): any signed-in user, no agent.
+	usersOnly = access{wUnauth, wAllow, wAllow, wAllow, wAllow, wDeny}
+	// usersAndAgent is usersOrAgent(instrument:read, everyone...).
+	usersAndAgent = access{wUnauth, wAllow, wAllow, wAllow, wAllow, wAllow}
+	managerOnly   = access{wUnauth, wAllow, wDeny, wDeny, wDeny, wDeny}
+)
+
+// routeMatrix holds the expected access of every route, with path parameters naming
+// objects the researcher does not own (see matrixPath). A route registered without an
+// entry here fails TestRouteRoleMatrix, and so does an entry with no route.
+var routeMatrix = map[string]routeExpectation{
+	"GET /healthz":          {who: openToAll},
+	"GET /readyz":           {who: openToAll},
+	"GET /api/openapi.json": {who: openToAll},
+	"GET /":                 {who: openToAll},
+	"GET /static/*":         {who: openToAll},
+
+	"POST /api/v1/auth/login": {who: openToAll, body: func(w *world) any {
+		return map[string]string{"email": w.users[accounts.RoleResearcher].Email, "password": testPassword}
+	}},
+	"POST /api/v1/auth/refresh": {who: openToAll, body: func(w *world) any {
+		return map[string]string{"refresh_token": w.login(w.users[accounts.RoleStaff].Email, testPassword).RefreshToken}
+	}},
+	"POST /api/v1/auth/logout": {who: openToAll, body: func(w *world) any {
+		return map[string]string{"refresh_token": w.login(w.users[accounts.RoleStaff].Email, testPassword).RefreshToken}
+	}},
+
+	"GET /api/v1/me": {who: usersOnly},
+	"POST /api/v1/me/password": {who: usersOnly, body: func(*world) any {
+		return map[string]string{"current_password": testPassword, "new_password": "a new and long passphrase"}
+	}},
+	"GET /api/v1/facility": {who: usersAndAgent},
+	"PUT /api/v1/facility": {who: managerOnly, body: func(*world) any {
+		return map[string]string{"name": "Renamed Facility", "time_zone": "Europe/Berlin", "currency": "EUR"}
+	}},
+
+	"GET /api/v1/users": {who: access{wUnauth, wAllow, wAllow, wDeny, wAllow, wDeny}},
+	"POST /api/v1/users": {who: managerOnly, body: func(*world) any {
+		return map[string]string{"email": "new@test.example", "display_name": "New User", "role": "researcher", "password": "a long enough password"}
+	}},
+	"GET /api/v1/users/:user_id": {who: access{wUnauth, wAllow, wAllow, wHidden, wAllow, wDeny}},
+	// Staff and auditors read every user but change none; the researcher sees only themself.
+	"PATCH /api/v1/users/:user_id": {who: access{wUnauth, wAllow, wDeny, wHidden, wDeny, wDeny}, body: func(*world) any {
+		return map[string]string{"display_name": "Renamed"}
+	}},
+	"POST /api/v1/users/:user_id/password": {who: managerOnly, body: func(*world) any {
+		return map[string]string{"new_password": "a reset passphrase of length"}
+	}},
+
+	"GET /api/v1/projects": {who: usersOnly},
+	"POST /api/v1/projects": {who: managerOnly, body: func(w *world) any {
+		return map[string]string{"code": "NEW-1", "title": "New project", "principal_investigator_id": w.users[accounts.RoleResearcher].ID, "rate_class": "internal"}
+	}},
+	"GET /api/v1/projects/:project_id": {who: access{wUnauth, wAllow, wAllow, wHidden, wAllow, wDeny}},
+	"PATCH /api/v1/projects/:project_id": {who: managerOnly, body: func(*world) any {
+		return map[string]string{"title": "Renamed project"}
+	}},
+	// Only a manager or the project's PI changes members; a foreign project is hidden.
+	// The manager's removal of the PI is a 409, which is still "allowed".
+	"PUT /api/v1/projects/:project_id/members/:user_id":    {who: access{wUnauth, wAllow, wDeny, wHidden, wDeny, wDeny}},
+	"DELETE /api/v1/projects/:project_id/members/:user_id": {who: access{wUnauth, wAllow, wDeny, wHidden, wDeny, wDeny}},
+
+	"GET /api/v1/instruments": {who: usersAndAgent},
+	"POST /api/v1/instruments": {who: managerOnly, body: func(*world) any {
+		return map[string]any{"code": "TEM-2", "name": "Second TEM", "kind": "tem", "accelerating_voltages_v": []float64{200e3}}
+	}},
+	"GET /api/v1/instruments/:instrument_id":              {who: usersAndAgent},
+	"GET /api/v1/instruments/:instrument_id/agent-tokens": {who: access{wUnauth, wAllow, wAllow, wDeny, wDeny, wDeny}},
+	"POST /api/v1/instruments/:instrument_id/agent-tokens": {who: managerOnly, body: func(*world) any {
+		return map[string]any{"name": "second-pc", "scopes": []string{"instrument:read"}}
+	}},
+	"DELETE /api/v1/instruments/:instrument_id/agent-tokens/:token_id": {who: managerOnly},
+}
+
+// matrixPath fills a route's parameters with objects the researcher does not own.
+func matrixPath(t *testing.T, w *world, route string) string {
+	t.Helper()
+	params := map[string]string{
+		":project_id":    w.foreign.ID,
+		":user_id":       w.other.ID,
+		":instrument_id": w.instr.ID,
+		":token_id":      w.agentID,
+		"*":              "beamledger.css",
+	}
+	segs := strings.Split(route, "/")
+	for i, s := range segs {
+		if s == "*" || strings.HasPrefix(s, ":") {
+			v, ok := params[s]
+			if !ok {
+				t.Fatalf("route %s: no value for parameter %s; add one to matrixPath", route, s)
+			}
+			segs[i] = v
+		}
+	}
+	return strings.Join(segs, "/")
+}
+
+func (w *world) matrixToken(principal int) string {
+	switch p := matrixPrincipals[principal]; p {
+	case "anonymous":
+		return ""
+	case "agent":
+		return w.agent
+	default:
+		return w.tokens[accounts.Role(p)]
+	}
+}
+
+// checkOutcome fails the test when res is not what o asks for.
+func checkOutcome(t *testing.T, method string, o outcome, res response) {
+	t.Helper()
+	code := res.errorCode()
+	switch o {
+	case wAllow:
+		bad := res.StatusCode == 401 || res.StatusCode == 403 || res.StatusCode == 404 || res.StatusCode >= 500
+		if bad || (method == http.MethodGet && res.StatusCode/100 != 2) {
+			t.Errorf("allow: got %d %s", res.StatusCode, res.Body)
+		}
+	case wDeny:
+		if res.StatusCode != 403 || code != "forbidden" {
+			t.Errorf("deny: got %d %s, want 403 forbidden", res.StatusCode, res.Body)
+		}
+	case wHidden:
+		if res.StatusCode != 404 || code != "not_found" {
+			t.Errorf("hidden: got %d %s, want 404 not_found", res.StatusCode, res.Body)
+		}
+	case wUnauth:
+		if res.StatusCode != 401 || code != "unauthorized" {
+			t.Errorf("unauth: got %d %s, want 401 unauthorized", res.StatusCode, res.Body)
+		}
+	default:
+		t.Errorf("no outcome set")
+	}
+}
+
+// TestRouteRoleMatrix calls every registered route as every principal. Each route
+// gets a fresh world, and within a route the refusals run before the successes, so
+// a write that succeeds (revoking the agent token, resetting a password) cannot
+// change what a later case sees.
+func TestRouteRoleMatrix(t *testing.T) {
+	w0 := newWorld(t)
+	registered := map[string]bool{}
+	for _, r := range w0.srv.echo.Routes() {
+		key := r.Method + " " + r.Path
+		registered[key] = true
+		if _, ok := routeMatrix[key]; !ok {
+			t.Errorf("route %s has no access expectation; add one and a rule", key)
+		}
+	}
+	for key := range routeMatrix {
+		if !registered[key] {
+			t.Errorf("the matrix expects route %s, which is not registered", key)
+		}
+	}
+	keys := make([]string, 0, len(registered))
+	for k := range registered {
+		keys = append(keys, k)
+	}
+	sort.Strings(keys)
+	for _, key := range keys {
+		exp, ok := routeMatrix[key]
+		if !ok {
+			continue
+		}
+		t.Run(key, func(t *testing.T) {
+			t.Parallel() // each route has its own world and database
+			w := newWorld(t)
+			method, route, _ := strings.Cut(key, " ")
+			path := matrixPath(t, w, route)
+			order := make([]int, 0, len(matrixPrincipals))
+			for i := range matrixPrincipals {
+				if exp.who[i] != wAllow {
+					order = append(order, i)
+				}
+			}
+			for i := range matrixPrincipals {
+				if exp.who[i] == wAllow {
+					order = append(order, i)
+				}
+			}
+			for _, i := range order {
+				t.Run(matrixPrincipals[i], func(t *testing.T) {
+					var body any
+					if exp.body != nil {
+						body = exp.body(w)
+					}
+					res := w.do(method, path, w.matrixToken(i), body, nil)
+					checkOutcome(t, method, exp.who[i], res)
+				})
+			}
+		})
+	}
+}
+
+// TestRoleNotSelfAssignable: no one but a manager sets a role or the disabled flag,
+// not even on their own record (OWASP API3, broken object-property authorization).
+func TestRoleNotSelfAssignable(t *testing.T) {
+	w := newWorld(t)
+	for _, role := range []accounts.Role{accounts.RoleResearcher, accounts.RoleStaff, accounts.RoleAuditor} {
+		self := w.users[role].ID
+		tok := w.tokens[role]
+		for field, value := range map[string]any{"role": "manager", "disabled": false} {
+			res := w.do(http.MethodPatch, "/api/v1/users/"+self, tok, map[string]any{field: value}, nil)
+			if res.StatusCode != 403 || res.errorCode() != "forbidden" {
+				t.Errorf("%s sets own %s: %d %s, want 403", role, field, res.StatusCode, res.Body)
+			}
+		}
+		// Smuggled beside an allowed field, still refused, and the name is not changed either.
+		res := w.do(http.MethodPatch, "/api/v1/users/"+self, tok, map[string]any{"display_name": "Boss", "role": "manager"}, nil)
+		if res.StatusCode != 403 {
+			t.Errorf("%s sets own name and role: %d %s, want 403", role, res.StatusCode, res.Body)
+		}
+		var me accounts.User
+		if r := w.do(http.MethodGet, "/api/v1/me", tok, nil, &me); r.StatusCode != 200 || me.Role != role || me.DisplayName == "Boss" {
+			t.Errorf("%s after the attempts: %d %+v", role, r.StatusCode, me)
+		}
+		// What they may change, they can.
+		if r := w.do(http.MethodPatch, "/api/v1/users/"+self, tok, map[string]any{"display_name": "Dr " + string(role)}, &me); r.StatusCode != 200 || me.DisplayName != "Dr "+string(role) {
+			t.Errorf("%s renames self: %d %s", role, r.StatusCode, r.Body)
+		}
+	}
+}
+
+func TestManagerCannotDemoteOrDisableSelf(t *testing.T) {
+	w := newWorld(t)
+	mgr := w.users[accounts.RoleManager]
+	tok := w.tokens[accounts.RoleManager]
+	for _, patch := range []map[string]any{{"role": "staff"}, {"role": "researcher"}, {"disabled": true}, {"display_name": "Still Here", "disabled": true}} {
+		res := w.do(http.MethodPatch, "/api/v1/users/"+mgr.ID, tok, patch, nil)
+		if res.StatusCode != 409 || res.errorCode() != "conflict" {
+			t.Errorf("manager patches self with %v: %d %s, want 409", patch, res.StatusCode, res.Body)
+		}
+	}
+	var me accounts.User
+	if r := w.do(http.MethodGet, "/api/v1/me", tok, nil, &me); r.StatusCode != 200 || me.Role != accounts.RoleManager || me.Disabled || me.DisplayName == "Still Here" {
+		t.Fatalf("manager after the attempts: %d %+v", r.StatusCode, me)
+	}
+	// The refusal is about oneself: a manager still demotes and disables others.
+	staff := w.users[accounts.RoleStaff].ID
+	var u accounts.User
+	if r := w.do(http.MethodPatch, "/api/v1/users/"+staff, tok, map[string]any{"role": "researcher", "disabled": true}, &u); r.StatusCode != 200 || u.Role != accounts.RoleResearcher || !u.Disabled {
+		t.Fatalf("manager demotes staff: %d %s", r.StatusCode, r.Body)
+	}
+}
+
+// members returns the project's member ids as a manager sees them.
+func (w *world) members(t *testing.T, projectID string) []string {
+	t.Helper()
+	var p accounts.Project
+	if r := w.do(http.MethodGet, "/api/v1/projects/"+projectID, w.tokens[accounts.RoleManager], nil, &p); r.StatusCode != 200 {
+		t.Fatalf("get project: %d %s", r.StatusCode, r.Body)
+	}
+	return p.MemberIDs
+}
+
+func TestPrincipalInvestigatorManagesOwnMembersOnly(t *testing.T) {
+	w := newWorld(t)
+	pi := w.tokens[accounts.RoleResearcher]
+	me := w.users[accounts.RoleResearcher].ID
+	third := w.createUser("third@test.example", accounts.RoleResearcher)
+	ownMember := "/api/v1/projects/" + w.own.ID + "/members/"
+
+	// Own project: add and remove.
+	var p accounts.Project
+	if r := w.do(http.MethodPut, ownMember+w.other.ID, pi, nil, &p); r.StatusCode != 200 || !p.HasMember(w.other.ID) {
+		t.Fatalf("PI adds a member: %d %s", r.StatusCode, r.Body)
+	}
+	if r := w.do(http.MethodPut, ownMember+third.ID, pi, nil, nil); r.StatusCode != 200 {
+		t.Fatalf("PI adds a second member: %d %s", r.StatusCode, r.Body)
+	}
+	if r := w.do(http.MethodDelete, ownMember+third.ID, pi, nil, &p); r.StatusCode != 200 || p.HasMember(third.ID) {
+		t.Fatalf("PI removes a member: %d %s", r.StatusCode, r.Body)
+	}
+
+	// A plain member of the same project sees it but does not change its members.
+	member := w.login(w.other.Email, testPassword).AccessToken
+	if r := w.do(http.MethodGet, "/api/v1/projects/"+w.own.ID, member, nil, nil); r.StatusCode != 200 {
+		t.Fatalf("member reads the project: %d", r.StatusCode)
+	}
+	for _, method := range []string{http.MethodPut, http.MethodDelete} {
+		if r := w.do(method, ownMember+third.ID, member, nil, nil); r.StatusCode != 403 || r.errorCode() != "forbidden" {
+			t.Errorf("non-PI member %s: %d %s, want 403", method, r.StatusCode, r.Body)
+		}
+	}
+
+	// Foreign project: invisible, so neither joining it nor removing from it works.
+	if _, err := w.db.AddMember(context.Background(), w.foreign.ID, third.ID); err != nil {
+		t.Fatal(err)
+	}
+	foreignMember := "/api/v1/projects/" + w.foreign.ID + "/members/"
+	if r := w.do(http.MethodPut, foreignMember+me, pi, nil, nil); r.StatusCode != 404 || r.errorCode() != "not_found" {
+		t.Errorf("researcher adds self to a foreign project: %d %s, want 404", r.StatusCode, r.Body)
+	}
+	if r := w.do(http.MethodDelete, foreignMember+third.ID, pi, nil, nil); r.StatusCode != 404 || r.errorCode() != "not_found" {
+		t.Errorf("researcher removes a member of a foreign project: %d %s, want 404", r.StatusCode, r.Body)
+	}
+	if got := w.members(t, w.foreign.ID); slices.Contains(got, me) || !slices.Contains(got, third.ID) {
+		t.Errorf("foreign project members changed: %v", got)
+	}
+}
+
+// TestAgentTokenReach: an agent token reaches no user or project route, and among
+// instruments only its own.
+func TestAgentTokenReach(t *testing.T) {
+	w := newWorld(t)
+	for _, r := range w.srv.echo.Routes() {
+		if !strings.HasPrefix(r.Path, "/api/v1/users") && !strings.HasPrefix(r.Path, "/api/v1/projects") && !strings.HasPrefix(r.Path, "/api/v1/me") {
+			continue
+		}
+		// Fill parameters with objects that exist and are not refused for other reasons.
+		path := strings.NewReplacer(":project_id", w.own.ID, ":user_id", w.users[accounts.RoleResearcher].ID).Replace(r.Path)
+		var body any
+		if exp, ok := routeMatrix[r.Method+" "+r.Path]; ok && exp.body != nil {
+			body = exp.body(w)
+		}
+		if res := w.do(r.Method, path, w.agent, body, nil); res.StatusCode != 403 || res.errorCode() != "forbidden" {
+			t.Errorf("agent %s %s: %d %s, want 403", r.Method, path, res.StatusCode, res.Body)
+		}
+	}
+
+	second, err := w.db.CreateInstrument(context.Background(), scheduling.Instrument{Code: "SEM-2", Name: "Another SEM", Kind: scheduling.KindSEM, Bookable: true, Corrector: scheduling.CorrectorNone})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r := w.do(http.MethodGet, "/api/v1/instruments/"+w.instr.ID, w.agent, nil, nil); r.StatusCode != 200 {
+		t.Errorf("agent reads its instrument: %d %s", r.StatusCode, r.Body)
+	}
+	if r := w.do(http.MethodGet, "/api/v1/instruments/"+second.ID, w.agent, nil, nil); r.StatusCode != 404 || r.errorCode() != "not_found" {
+		t.Errorf("agent reads another instrument: %d %s, want 404", r.StatusCode, r.Body)
+	}
+	var l list[scheduling.Instrument]
+	if r := w.do(http.MethodGet, "/api/v1/instruments", w.agent, nil, &l); r.StatusCode != 200 || len(l.Items) != 1 || l.Items[0].ID != w.instr.ID {
+		t.Errorf("agent lists instruments: %d %s, want only %s", r.StatusCode, r.Body, w.instr.ID)
+	}
+	// A user sees both, so the list above was filtered, not short.
+	if r := w.do(http.MethodGet, "/api/v1/instruments", w.tokens[accounts.RoleResearcher], nil, &l); r.StatusCode != 200 || len(l.Items) != 2 {
+		t.Errorf("researcher lists instruments: %d %s, want 2", r.StatusCode, r.Body)
+	}
+	for _, path := range []string{"/api/v1/instruments/" + second.ID + "/agent-tokens", "/api/v1/instruments/" + w.instr.ID + "/agent-tokens"} {
+		if r := w.do(http.MethodGet, path, w.agent, nil, nil); r.StatusCode != 403 {
+			t.Errorf("agent lists agent tokens at %s: %d, want 403", path, r.StatusCode)
+		}
+	}
+
+	// The instrument routes admit agents by the instrument:read scope, not for being agents.
+	var narrow agentTokenCreated
+	body := map[string]any{"name": "usage-only", "scopes": []string{"usage:write"}}
+	if r := w.do(http.MethodPost, "/api/v1/instruments/"+w.instr.ID+"/agent-tokens", w.tokens[accounts.RoleManager], body, &narrow); r.StatusCode != 201 {
+		t.Fatalf("create usage-only token: %d %s", r.StatusCode, r.Body)
+	}
+	for _, path := range []string{"/api/v1/instruments/" + w.instr.ID, "/api/v1/instruments", "/api/v1/facility"} {
+		if r := w.do(http.MethodGet, path, narrow.Token, nil, nil); r.StatusCode != 403 || r.errorCode() != "forbidden" {
+			t.Errorf("agent without instrument:read at %s: %d %s, want 403", path, r.StatusCode, r.Body)
+		}
+	}
+}
+
+func TestAgentTokenRevokedOrExpired(t *testing.T) {
+	w := newWorld(t)
+	mgr := w.tokens[accounts.RoleManager]
+	instrPath := "/api/v1/instruments/" + w.instr.ID
+
+	t.Run("revoked", func(t *testing.T) {
+		if r := w.do(http.MethodGet, instrPath, w.agent, nil, nil); r.StatusCode != 200 {
+			t.Fatalf("before revoking: %d", r.StatusCode)
+		}
+		if r := w.do(http.MethodDelete, instrPath+"/agent-tokens/"+w.agentID, mgr, nil, nil); r.StatusCode != 200 {
+			t.Fatalf("revoke: %d %s", r.StatusCode, r.Body)
+		}
+		if r := w.do(http.MethodGet, instrPath, w.agent, nil, nil); r.StatusCode != 401 || r.errorCode() != "unauthorized" {
+			t.Errorf("revoked token: %d %s, want 401", r.StatusCode, r.Body)
+		}
+	})
+
+	t.Run("expired", func(t *testing.T) {
+		var created agentTokenCreated
+		body := map[string]any{"name": "short-lived", "scopes": []string{"instrument:read"}, "expires_at": w.clock.Now().Add(time.Hour)}
+		if r := w.do(http.MethodPost, instrPath+"/agent-tokens", mgr, body, &created); r.StatusCode != 201 || created.Token == "" {
+			t.Fatalf("create: %d %s", r.StatusCode, r.Body)
+		}
+		w.clock.Advance(time.Hour - time.Second)
+		if r := w.do(http.MethodGet, instrPath, created.Token, nil, nil); r.StatusCode != 200 {
+			t.Fatalf("a second before expiry: %d %s", r.StatusCode, r.Body)
+		}
+		w.clock.Advance(time.Second)
+		if r := w.do(http.MethodGet, instrPath, created.Token, nil, nil); r.StatusCode != 401 || r.errorCode() != "unauthorized" {
+			t.Errorf("expired token: %d %s, want 401", r.StatusCode, r.Body)
+		}
+	})
+
+	t.Run("unknown", func(t *testing.T) {
+		fake := accounts.AgentTokenPrefix + "_" + strings.Repeat("A", 43)
+		for _, tok := range []string{fake, w.agent + "x", strings.ToUpper(w.agent[:1]) + w.agent[1:]} {
+			if r := w.do(http.MethodGet, instrPath, tok, nil, nil); r.StatusCode != 401 || r.errorCode() != "unauthorized" {
+				t.Errorf("token %q: %d %s, want 401", tok, r.StatusCode, r.Body)
+			}
+		}
+	})
+}
