@@ -2,7 +2,9 @@ package server
 
 import (
 	"context"
+	"maps"
 	"net/http"
+	"net/url"
 	"slices"
 	"sort"
 	"strings"
@@ -42,6 +44,17 @@ type access [len(matrixPrincipals)]outcome
 type routeExpectation struct {
 	who  access
 	body func(w *world) any
+	// bodyAs, when set, builds the body for the principal named (one of
+	// matrixPrincipals) in place of body.
+	bodyAs func(w *world, who string) any
+	// setup, when set, makes the objects the route needs in its fresh world and
+	// returns the values of path parameters matrixPath has no default for.
+	setup func(w *world) map[string]string
+	// query, when set, is added to the path as its query string.
+	query func(w *world) string
+	// strict asks a 2xx of every allowed principal, writes included: the setup
+	// leaves every allowed call able to succeed.
+	strict bool
 }
 
 var (
@@ -118,10 +131,91 @@ var routeMatrix = map[string]routeExpectation{
 		return map[string]any{"name": "second-pc", "scopes": []string{"instrument:read"}}
 	}},
 	"DELETE /api/v1/instruments/:instrument_id/agent-tokens/:token_id": {who: managerOnly},
+
+	// Researchers see only their own qualifications; agents none.
+	"GET /api/v1/qualifications": {who: usersOnly},
+	"POST /api/v1/instruments/:instrument_id/qualifications": {who: facilityOpsOnly, strict: true, body: func(w *world) any {
+		return map[string]any{"user_id": w.other.ID, "level": "independent", "reason": "trained by the facility"}
+	}},
+	// The second allowed caller (staff, after the manager) finds the qualification
+	// revoked already: 409, past the access check.
+	"POST /api/v1/qualifications/:qualification_id/revoke": {who: facilityOpsOnly, setup: matrixQualification, body: func(*world) any {
+		return map[string]string{"reason": "left the group"}
+	}},
+
+	// The booking named is w.other's in the foreign project: hidden from the researcher,
+	// readable by the auditor, changeable by staff and managers only. An agent with
+	// instrument:read reads its instrument's calendar and nothing else.
+	"GET /api/v1/bookings": {who: usersAndAgent, setup: matrixBooking, query: func(w *world) string {
+		_, q, _ := strings.Cut(calendarPath(w), "?")
+		return q
+	}},
+	// A researcher booking for themself in a foreign project finds no such project;
+	// staff and managers book w.other there, each at another time.
+	"POST /api/v1/bookings": {who: bookers, strict: true, setup: matrixQualified, bodyAs: func(w *world, who string) any {
+		start := w.nextTuesday(map[string]int{"manager": 8, "staff": 11, "researcher": 14}[who], 0)
+		b := w.bookingBody(start, start.Add(2*time.Hour), scheduling.KindIndependent)
+		b["project_id"] = w.foreign.ID
+		if who != "researcher" {
+			b["user_id"] = w.other.ID
+		}
+		return b
+	}},
+	"GET /api/v1/bookings/:booking_id": {who: bookingReaders, setup: matrixBooking},
+	"PATCH /api/v1/bookings/:booking_id": {who: bookers, strict: true, setup: matrixBooking, body: func(w *world) any {
+		start := w.nextTuesday(13, 0)
+		return map[string]string{"start": start.Format(time.RFC3339), "end": start.Add(2 * time.Hour).Format(time.RFC3339), "reason": "moved by the facility"}
+	}},
+	// The staff member, after the manager, finds the booking cancelled already: 409.
+	"POST /api/v1/bookings/:booking_id/cancel": {who: bookers, setup: matrixBooking, body: func(*world) any {
+		return map[string]string{"reason": "instrument fault"}
+	}},
+	"GET /api/v1/bookings/:booking_id/events": {who: bookingReaders, setup: matrixBooking},
 }
 
-// matrixPath fills a route's parameters with objects the researcher does not own.
-func matrixPath(t *testing.T, w *world, route string) string {
+var (
+	// facilityOpsOnly is users(facilityOps...): managers and staff.
+	facilityOpsOnly = access{wUnauth, wAllow, wAllow, wDeny, wDeny, wDeny}
+	// bookers may book and change bookings; the matrix's booking is foreign to the researcher.
+	bookers = access{wUnauth, wAllow, wAllow, wHidden, wDeny, wDeny}
+	// bookingReaders read a booking; the matrix's booking is foreign to the researcher.
+	bookingReaders = access{wUnauth, wAllow, wAllow, wHidden, wAllow, wDeny}
+)
+
+// matrixQualified qualifies w.other, the foreign project's researcher, on w.instr.
+func matrixQualified(w *world) map[string]string {
+	w.qualify(w.other.ID, scheduling.LevelIndependent)
+	return nil
+}
+
+// matrixQualification is a qualification of w.other, who is not the researcher.
+func matrixQualification(w *world) map[string]string {
+	q, err := w.db.GrantQualification(context.Background(), scheduling.NewQualification{
+		UserID: w.other.ID, InstrumentID: w.instr.ID, Level: scheduling.LevelSupervised, Reason: "matrix grant", GrantedBy: w.users[accounts.RoleStaff].ID,
+	}, w.clock.Now())
+	if err != nil {
+		w.t.Fatal(err)
+	}
+	return map[string]string{":qualification_id": q.ID}
+}
+
+// matrixBooking is w.other's booking in the foreign project, made by staff and
+// checked against the booking rules as any booking is.
+func matrixBooking(w *world) map[string]string {
+	matrixQualified(w)
+	start := w.nextTuesday(9, 0)
+	body := w.bookingBody(start, start.Add(2*time.Hour), scheduling.KindIndependent)
+	body["project_id"], body["user_id"] = w.foreign.ID, w.other.ID
+	var b bookingAnswer
+	if r := w.do(http.MethodPost, "/api/v1/bookings", w.tokens[accounts.RoleStaff], body, &b); r.StatusCode != http.StatusCreated {
+		w.t.Fatalf("matrix booking: %d %s", r.StatusCode, r.Body)
+	}
+	return map[string]string{":booking_id": b.ID}
+}
+
+// matrixPath fills a route's parameters with objects the researcher does not own;
+// extra gives the ones a route's setup made.
+func matrixPath(t *testing.T, w *world, route string, extra map[string]string) string {
 	t.Helper()
 	params := map[string]string{
 		":project_id":    w.foreign.ID,
@@ -130,6 +224,7 @@ func matrixPath(t *testing.T, w *world, route string) string {
 		":token_id":      w.agentID,
 		"*":              "beamledger.css",
 	}
+	maps.Copy(params, extra)
 	segs := strings.Split(route, "/")
 	for i, s := range segs {
 		if s == "*" || strings.HasPrefix(s, ":") {
@@ -154,14 +249,15 @@ func (w *world) matrixToken(principal int) string {
 	}
 }
 
-// checkOutcome fails the test when res is not what o asks for.
-func checkOutcome(t *testing.T, method string, o outcome, res response) {
+// checkOutcome fails the test when res is not what o asks for. A strict allow asks
+// for a 2xx whatever the method.
+func checkOutcome(t *testing.T, method string, o outcome, strict bool, res response) {
 	t.Helper()
 	code := res.errorCode()
 	switch o {
 	case wAllow:
 		bad := res.StatusCode == 401 || res.StatusCode == 403 || res.StatusCode == 404 || res.StatusCode >= 500
-		if bad || (method == http.MethodGet && res.StatusCode/100 != 2) {
+		if bad || ((strict || method == http.MethodGet) && res.StatusCode/100 != 2) {
 			t.Errorf("allow: got %d %s", res.StatusCode, res.Body)
 		}
 	case wDeny:
@@ -214,7 +310,14 @@ func TestRouteRoleMatrix(t *testing.T) {
 			t.Parallel() // each route has its own world and database
 			w := newWorld(t)
 			method, route, _ := strings.Cut(key, " ")
-			path := matrixPath(t, w, route)
+			var extra map[string]string
+			if exp.setup != nil {
+				extra = exp.setup(w)
+			}
+			path := matrixPath(t, w, route, extra)
+			if exp.query != nil {
+				path += "?" + exp.query(w)
+			}
 			order := make([]int, 0, len(matrixPrincipals))
 			for i := range matrixPrincipals {
 				if exp.who[i] != wAllow {
@@ -229,11 +332,14 @@ func TestRouteRoleMatrix(t *testing.T) {
 			for _, i := range order {
 				t.Run(matrixPrincipals[i], func(t *testing.T) {
 					var body any
-					if exp.body != nil {
+					switch {
+					case exp.bodyAs != nil:
+						body = exp.bodyAs(w, matrixPrincipals[i])
+					case exp.body != nil:
 						body = exp.body(w)
 					}
 					res := w.do(method, path, w.matrixToken(i), body, nil)
-					checkOutcome(t, method, exp.who[i], res)
+					checkOutcome(t, method, exp.who[i], exp.strict, res)
 				})
 			}
 		})
@@ -444,4 +550,177 @@ func TestAgentTokenRevokedOrExpired(t *testing.T) {
 			}
 		}
 	})
+}
+
+// calendarPath is the calendar query for the whole day of w.nextTuesday.
+func calendarPath(w *world) string {
+	from := w.nextTuesday(0, 0)
+	return "/api/v1/bookings?from=" + url.QueryEscape(from.Format(time.RFC3339)) + "&to=" + url.QueryEscape(from.AddDate(0, 0, 1).Format(time.RFC3339))
+}
+
+// TestBookingVisibility: the calendar shows everyone when an instrument is taken but
+// the details only to those who may read them; a foreign booking is hidden from a
+// researcher and untouched by their attempts on it; a fellow project member reads a
+// booking but does not change it; an agent reads its own instrument's calendar only.
+func TestBookingVisibility(t *testing.T) {
+	w := newWorld(t)
+	ctx := context.Background()
+	researcher, staff, manager, auditor := w.tokens[accounts.RoleResearcher], w.tokens[accounts.RoleStaff], w.tokens[accounts.RoleManager], w.tokens[accounts.RoleAuditor]
+	me := w.users[accounts.RoleResearcher].ID
+	w.qualify(me, scheduling.LevelIndependent)
+	foreignID := matrixBooking(w)[":booking_id"] // w.other's, 09:00–11:00
+	foreignPath := "/api/v1/bookings/" + foreignID
+
+	var mine, svc bookingAnswer
+	start := w.nextTuesday(12, 0)
+	if r := w.do(http.MethodPost, "/api/v1/bookings", researcher, w.bookingBody(start, start.Add(time.Hour), scheduling.KindIndependent), &mine); r.StatusCode != 201 {
+		t.Fatalf("own booking: %d %s", r.StatusCode, r.Body)
+	}
+	svcStart := w.nextTuesday(16, 0)
+	svcBody := map[string]any{"instrument_id": w.instr.ID, "kind": "service", "note": "detector service",
+		"start": svcStart.Format(time.RFC3339), "end": svcStart.Add(time.Hour).Format(time.RFC3339)}
+	if r := w.do(http.MethodPost, "/api/v1/bookings", staff, svcBody, &svc); r.StatusCode != 201 {
+		t.Fatalf("service booking: %d %s", r.StatusCode, r.Body)
+	}
+	// Service time on a second instrument, which the agent of the first must not see.
+	second, err := w.db.CreateInstrument(ctx, scheduling.Instrument{Code: "SEM-2", Name: "Another SEM", Kind: scheduling.KindSEM, Bookable: true, Corrector: scheduling.CorrectorNone})
+	if err != nil {
+		t.Fatal(err)
+	}
+	svcBody["instrument_id"] = second.ID
+	if r := w.do(http.MethodPost, "/api/v1/bookings", staff, svcBody, nil); r.StatusCode != 201 {
+		t.Fatalf("service booking on the second instrument: %d %s", r.StatusCode, r.Body)
+	}
+
+	cal := calendarPath(w)
+	slots := func(who, token, query string) map[string]calendarSlot {
+		t.Helper()
+		var l list[calendarSlot]
+		if r := w.do(http.MethodGet, cal+query, token, nil, &l); r.StatusCode != 200 {
+			t.Fatalf("%s reads the calendar: %d %s", who, r.StatusCode, r.Body)
+		}
+		out := map[string]calendarSlot{}
+		for _, s := range l.Items {
+			out[s.ID] = s
+		}
+		return out
+	}
+
+	got := slots("researcher", researcher, "")
+	if len(got) != 4 {
+		t.Fatalf("researcher's calendar has %d slots, want 4: %+v", len(got), got)
+	}
+	if s, ok := got[foreignID]; !ok || s.Mine || s.Booking != nil {
+		t.Errorf("foreign slot %+v: want it shown without details", s)
+	}
+	if s := got[mine.ID]; !s.Mine || s.Booking == nil || s.Booking.UserID != me {
+		t.Errorf("own slot %+v: want it marked mine, with details", s)
+	}
+	if s := got[svc.ID]; s.Mine || s.Booking == nil || s.Booking.Note != "detector service" {
+		t.Errorf("service slot %+v: want it shown with details", s)
+	}
+	for id, s := range slots("auditor", auditor, "") {
+		if s.Booking == nil || s.Mine {
+			t.Errorf("auditor's slot %s: %+v, want details, not mine", id, s)
+		}
+	}
+
+	// Every way at the foreign booking is "not found", and none changes it.
+	moveTo := w.nextTuesday(14, 0)
+	attempts := []struct {
+		method, suffix string
+		body           any
+	}{
+		{http.MethodGet, "", nil},
+		{http.MethodGet, "/events", nil},
+		{http.MethodPatch, "", map[string]string{"start": moveTo.Format(time.RFC3339), "end": moveTo.Add(time.Hour).Format(time.RFC3339)}},
+		{http.MethodPost, "/cancel", map[string]string{"reason": "I need the time"}},
+	}
+	for _, a := range attempts {
+		if r := w.do(a.method, foreignPath+a.suffix, researcher, a.body, nil); r.StatusCode != 404 || r.errorCode() != "not_found" {
+			t.Errorf("researcher %s %s on a foreign booking: %d %s, want 404", a.method, a.suffix, r.StatusCode, r.Body)
+		}
+	}
+	var after bookingAnswer
+	if r := w.do(http.MethodGet, foreignPath, manager, nil, &after); r.StatusCode != 200 ||
+		after.Status != scheduling.StatusActive || !after.Start.Equal(w.nextTuesday(9, 0)) || after.Mine {
+		t.Errorf("foreign booking after the attempts: %d %s", r.StatusCode, r.Body)
+	}
+	var evs list[scheduling.BookingEvent]
+	if r := w.do(http.MethodGet, foreignPath+"/events", auditor, nil, &evs); r.StatusCode != 200 || len(evs.Items) != 1 || evs.Items[0].Action != "created" {
+		t.Errorf("foreign booking's history after the attempts: %d %s", r.StatusCode, r.Body)
+	}
+
+	// A fellow member of the project reads the researcher's booking and its history,
+	// and changes neither.
+	if _, err := w.db.AddMember(ctx, w.own.ID, w.other.ID); err != nil {
+		t.Fatal(err)
+	}
+	fellow := w.login(w.other.Email, testPassword).AccessToken
+	minePath := "/api/v1/bookings/" + mine.ID
+	var seen bookingAnswer
+	if r := w.do(http.MethodGet, minePath, fellow, nil, &seen); r.StatusCode != 200 || seen.Mine || seen.UserID != me {
+		t.Errorf("fellow member reads the booking: %d %s", r.StatusCode, r.Body)
+	}
+	if r := w.do(http.MethodGet, minePath+"/events", fellow, nil, nil); r.StatusCode != 200 {
+		t.Errorf("fellow member reads the history: %d %s", r.StatusCode, r.Body)
+	}
+	for _, a := range attempts[2:] {
+		if r := w.do(a.method, minePath+a.suffix, fellow, a.body, nil); r.StatusCode != 403 || r.errorCode() != "forbidden" {
+			t.Errorf("fellow member %s %s: %d %s, want 403", a.method, a.suffix, r.StatusCode, r.Body)
+		}
+	}
+	if r := w.do(http.MethodGet, minePath, researcher, nil, &seen); r.StatusCode != 200 || !seen.Mine || seen.Status != scheduling.StatusActive || !seen.Start.Equal(start) {
+		t.Errorf("the researcher's booking after the fellow's attempts: %d %s", r.StatusCode, r.Body)
+	}
+
+	// The agent reads its own instrument's calendar in full and no other's.
+	agentSees := slots("agent", w.agent, "")
+	if len(agentSees) != 3 {
+		t.Errorf("agent's calendar has %d slots, want the 3 on its instrument", len(agentSees))
+	}
+	for id, s := range agentSees {
+		if s.InstrumentID != w.instr.ID || s.Booking == nil || s.Mine {
+			t.Errorf("agent's slot %s: %+v", id, s)
+		}
+	}
+	if n := len(slots("agent", w.agent, "&instrument_id="+w.instr.ID)); n != 3 {
+		t.Errorf("agent's calendar of its own instrument: %d slots, want 3", n)
+	}
+	if r := w.do(http.MethodGet, cal+"&instrument_id="+second.ID, w.agent, nil, nil); r.StatusCode != 404 || r.errorCode() != "not_found" {
+		t.Errorf("agent reads another instrument's calendar: %d %s, want 404", r.StatusCode, r.Body)
+	}
+	secret, hash, err := accounts.NewOpaqueToken(accounts.AgentTokenPrefix)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := w.db.CreateAgentToken(ctx, accounts.NewAgentToken{InstrumentID: w.instr.ID, Name: "usage-only", Scopes: []accounts.Scope{accounts.ScopeUsageWrite}},
+		w.users[accounts.RoleManager].ID, hash); err != nil {
+		t.Fatal(err)
+	}
+	if r := w.do(http.MethodGet, cal, secret, nil, nil); r.StatusCode != 403 || r.errorCode() != "forbidden" {
+		t.Errorf("agent without instrument:read reads the calendar: %d %s, want 403", r.StatusCode, r.Body)
+	}
+}
+
+// TestQualificationVisibility: researchers list their own qualifications only; staff
+// list anyone's.
+func TestQualificationVisibility(t *testing.T) {
+	w := newWorld(t)
+	me := w.users[accounts.RoleResearcher].ID
+	w.qualify(me, scheduling.LevelSupervised)
+	w.qualify(w.other.ID, scheduling.LevelUnattended)
+	var qs list[scheduling.Qualification]
+	if r := w.do(http.MethodGet, "/api/v1/qualifications", w.tokens[accounts.RoleResearcher], nil, &qs); r.StatusCode != 200 ||
+		len(qs.Items) != 1 || qs.Items[0].UserID != me {
+		t.Errorf("researcher lists qualifications: %d %s, want only their own", r.StatusCode, r.Body)
+	}
+	if r := w.do(http.MethodGet, "/api/v1/qualifications?user_id="+w.other.ID, w.tokens[accounts.RoleResearcher], nil, nil); r.StatusCode != 403 || r.errorCode() != "forbidden" {
+		t.Errorf("researcher lists another's qualifications: %d %s, want 403", r.StatusCode, r.Body)
+	}
+	for _, role := range []accounts.Role{accounts.RoleStaff, accounts.RoleAuditor} {
+		if r := w.do(http.MethodGet, "/api/v1/qualifications", w.tokens[role], nil, &qs); r.StatusCode != 200 || len(qs.Items) != 2 {
+			t.Errorf("%s lists qualifications: %d %s, want both", role, r.StatusCode, r.Body)
+		}
+	}
 }

@@ -17,25 +17,29 @@ type errorBody struct {
 }
 
 type errorDetail struct {
-	Code      string            `json:"code"`
-	Message   string            `json:"message"`
-	Fields    map[string]string `json:"fields,omitempty"`
-	RequestID string            `json:"request_id"`
+	Code    string            `json:"code"`
+	Message string            `json:"message"`
+	Fields  map[string]string `json:"fields,omitempty"`
+	// Rule names the facility rule that refused a well-formed request (status 422).
+	Rule      string `json:"rule,omitempty"`
+	RequestID string `json:"request_id"`
 }
 
 // errorStatus is the one table from domain error kinds to HTTP statuses and codes.
 var errorStatus = []struct {
 	kind   error
 	status int
+	code   string
 }{
-	{beamledger.ErrInvalid, http.StatusBadRequest},
-	{beamledger.ErrUnauthorized, http.StatusUnauthorized},
-	{beamledger.ErrForbidden, http.StatusForbidden},
-	{beamledger.ErrNotFound, http.StatusNotFound},
-	{beamledger.ErrConflict, http.StatusConflict},
-	{beamledger.ErrTooLarge, http.StatusRequestEntityTooLarge},
-	{beamledger.ErrRateLimited, http.StatusTooManyRequests},
-	{beamledger.ErrUnavailable, http.StatusServiceUnavailable},
+	{beamledger.ErrInvalid, http.StatusBadRequest, "invalid"},
+	{beamledger.ErrRule, http.StatusUnprocessableEntity, "invalid"},
+	{beamledger.ErrUnauthorized, http.StatusUnauthorized, "unauthorized"},
+	{beamledger.ErrForbidden, http.StatusForbidden, "forbidden"},
+	{beamledger.ErrNotFound, http.StatusNotFound, "not_found"},
+	{beamledger.ErrConflict, http.StatusConflict, "conflict"},
+	{beamledger.ErrTooLarge, http.StatusRequestEntityTooLarge, "too_large"},
+	{beamledger.ErrRateLimited, http.StatusTooManyRequests, "rate_limited"},
+	{beamledger.ErrUnavailable, http.StatusServiceUnavailable, "unavailable"},
 }
 
 // echoStatusCodes words echo's own errors (no route, wrong method, body too large).
@@ -76,12 +80,11 @@ func (s *Server) describeError(err error, c echo.Context) (int, errorBody) {
 	var de *beamledger.Error
 	for _, row := range errorStatus {
 		if errors.Is(err, row.kind) {
-			msg := row.kind.Error()
-			var fields map[string]string
+			d := errorDetail{Code: row.code, Message: row.kind.Error(), RequestID: rid}
 			if errors.As(err, &de) {
-				msg, fields = de.Message, de.Fields
+				d.Message, d.Fields, d.Rule = de.Message, de.Fields, de.Rule
 			}
-			return row.status, errorBody{errorDetail{Code: row.kind.Error(), Message: msg, Fields: fields, RequestID: rid}}
+			return row.status, errorBody{d}
 		}
 	}
 	var he *echo.HTTPError

@@ -2,6 +2,7 @@ package server
 
 import (
 	"bytes"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -276,6 +277,7 @@ func TestOpenAPIExamplesExercise(t *testing.T) {
 	exerciseUsers(t, w)
 	exerciseProjects(t, w)
 	exerciseInstruments(t, w)
+	exerciseBookings(t, w)
 
 	// Every documented 2xx of every operation, and some error of each operation that
 	// documents errors, must have been seen.
@@ -605,4 +607,155 @@ func exerciseInstruments(t *testing.T, w *world) {
 	w.expect(http.StatusUnauthorized, http.MethodGet, inPath, made.Token, nil, nil)
 	w.expect(http.StatusNotFound, http.MethodDelete, "/api/v1/instruments/"+w.instr.ID+"/agent-tokens/"+made.ID, manager, nil, nil)
 	w.expect(http.StatusForbidden, http.MethodDelete, tokens+"/"+made.ID, staff, nil, nil)
+}
+
+// ruleOf extracts error.rule from an error answer.
+func ruleOf(r response) string {
+	var e errorBody
+	_ = json.Unmarshal(r.Body, &e)
+	return e.Error.Rule
+}
+
+// exerciseBookings covers qualifications, the calendar, bookings and their history.
+func exerciseBookings(t *testing.T, w *world) {
+	manager, staff, researcher, auditor := w.tokens[accounts.RoleManager], w.tokens[accounts.RoleStaff], w.tokens[accounts.RoleResearcher], w.tokens[accounts.RoleAuditor]
+	staffID, researcherID := w.users[accounts.RoleStaff].ID, w.users[accounts.RoleResearcher].ID
+
+	// Qualifications: grant, list, revoke.
+	grants := "/api/v1/instruments/" + w.instr.ID + "/qualifications"
+	grant := map[string]any{"user_id": researcherID, "level": "independent", "reason": "Completed STEM training on 2026-02-12", "expires_after_idle_days": 180}
+	var q scheduling.Qualification
+	w.expect(http.StatusCreated, http.MethodPost, grants, staff, grant, &q)
+	if q.Level != scheduling.LevelIndependent || q.GrantedBy != staffID || q.ExpiresAfterIdleDays == nil || *q.ExpiresAfterIdleDays != 180 || q.RevokedAt != nil {
+		t.Errorf("granted qualification %+v", q)
+	}
+	if r := w.expect(http.StatusBadRequest, http.MethodPost, grants, staff, map[string]any{"user_id": researcherID, "level": "expert", "reason": "x"}, nil); !fieldNamed(r, "level") {
+		t.Errorf("bad level not named: %s", r.Body)
+	}
+	w.expect(http.StatusNotFound, http.MethodPost, "/api/v1/instruments/"+uuid.NewString()+"/qualifications", staff, grant, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, grants, auditor, grant, nil)
+
+	var other scheduling.Qualification
+	w.expect(http.StatusCreated, http.MethodPost, grants, manager, map[string]any{"user_id": w.other.ID, "level": "supervised", "reason": "Induction"}, &other)
+	revoke := "/api/v1/qualifications/" + other.ID + "/revoke"
+	w.expect(http.StatusBadRequest, http.MethodPost, revoke, manager, map[string]string{"reason": " "}, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, revoke, researcher, map[string]string{"reason": "not mine to revoke"}, nil)
+	var revoked scheduling.Qualification
+	w.expect(http.StatusOK, http.MethodPost, revoke, staff, map[string]string{"reason": "Left the group"}, &revoked)
+	if revoked.RevokedAt == nil || revoked.RevokedBy != staffID || revoked.RevokeReason != "Left the group" {
+		t.Errorf("revoked qualification %+v", revoked)
+	}
+	w.expect(http.StatusConflict, http.MethodPost, revoke, staff, map[string]string{"reason": "again"}, nil)
+	w.expect(http.StatusNotFound, http.MethodPost, "/api/v1/qualifications/"+uuid.NewString()+"/revoke", staff, map[string]string{"reason": "x"}, nil)
+
+	var qs list[scheduling.Qualification]
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/qualifications", researcher, nil, &qs)
+	if len(qs.Items) != 1 || qs.Items[0].ID != q.ID {
+		t.Errorf("researcher's qualifications %+v", qs.Items)
+	}
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/qualifications?include_revoked=true&user_id="+w.other.ID, auditor, nil, &qs)
+	if len(qs.Items) != 1 || qs.Items[0].RevokedAt == nil {
+		t.Errorf("w.other's qualifications with revoked ones %+v", qs.Items)
+	}
+	w.expect(http.StatusForbidden, http.MethodGet, "/api/v1/qualifications?user_id="+w.other.ID, researcher, nil, nil)
+	w.expect(http.StatusBadRequest, http.MethodGet, "/api/v1/qualifications?instrument_id=STEM-T", auditor, nil, nil)
+
+	// Booking: an instant with an offset and a facility wall time are both accepted.
+	const bookings = "/api/v1/bookings"
+	start := w.nextTuesday(9, 0)
+	body := w.bookingBody(start, start.Add(2*time.Hour), scheduling.KindIndependent)
+	body["end"] = start.Add(2 * time.Hour).In(berlin).Format("2006-01-02T15:04")
+	body["note"] = "Cryo holder needed"
+	var b bookingAnswer
+	w.expect(http.StatusCreated, http.MethodPost, bookings, researcher, body, &b)
+	if !b.Start.Equal(start) || !b.End.Equal(start.Add(2*time.Hour)) || !b.Mine || b.Resolutions != nil || b.ProjectID != w.own.ID {
+		t.Errorf("created booking %+v", b)
+	}
+	r := w.expect(http.StatusConflict, http.MethodPost, bookings, researcher, w.bookingBody(start.Add(time.Hour), start.Add(3*time.Hour), scheduling.KindIndependent), nil)
+	if !fieldNamed(r, "start") || !bytes.Contains(r.Body, []byte(start.UTC().Format(time.RFC3339))) {
+		t.Errorf("overlap does not name the range in the way: %s", r.Body)
+	}
+	r = w.expect(http.StatusUnprocessableEntity, http.MethodPost, bookings, researcher, w.bookingBody(start.Add(3*time.Hour), start.Add(3*time.Hour+15*time.Minute), scheduling.KindIndependent), nil)
+	if ruleOf(r) != "min_length" || !fieldNamed(r, "end") {
+		t.Errorf("too short a booking: %s", r.Body)
+	}
+	bad := w.bookingBody(start.Add(3*time.Hour), start.Add(4*time.Hour), scheduling.KindIndependent)
+	bad["start"] = "next Tuesday"
+	if r := w.expect(http.StatusBadRequest, http.MethodPost, bookings, researcher, bad, nil); !fieldNamed(r, "start") || ruleOf(r) != "" {
+		t.Errorf("malformed start: %s", r.Body)
+	}
+	foreign := w.bookingBody(start.Add(3*time.Hour), start.Add(4*time.Hour), scheduling.KindIndependent)
+	foreign["project_id"] = w.foreign.ID
+	w.expect(http.StatusNotFound, http.MethodPost, bookings, researcher, foreign, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, bookings, auditor, body, nil)
+
+	// Assisted time names the staff member; service time displaces what it overlaps.
+	assisted := w.bookingBody(start.Add(3*time.Hour), start.Add(4*time.Hour), scheduling.KindAssisted)
+	assisted["staff_id"] = staffID
+	var ab bookingAnswer
+	w.expect(http.StatusCreated, http.MethodPost, bookings, researcher, assisted, &ab)
+	if ab.StaffID != staffID || ab.Kind != scheduling.KindAssisted {
+		t.Errorf("assisted booking %+v", ab)
+	}
+	svcStart := w.nextTuesday(15, 0)
+	var doomed, svc bookingAnswer
+	w.expect(http.StatusCreated, http.MethodPost, bookings, researcher, w.bookingBody(svcStart, svcStart.Add(time.Hour), scheduling.KindIndependent), &doomed)
+	svcBody := map[string]any{"instrument_id": w.instr.ID, "kind": "service", "note": "Gun bake-out",
+		"start": svcStart.Format(time.RFC3339), "end": svcStart.Add(2 * time.Hour).Format(time.RFC3339)}
+	w.expect(http.StatusCreated, http.MethodPost, bookings, staff, svcBody, &svc)
+	if len(svc.Displaced) != 1 || svc.Displaced[0] != doomed.ID || svc.ProjectID != "" || !svc.Mine || svc.UserID != staffID {
+		t.Errorf("service booking %+v", svc.Booking)
+	}
+
+	// The calendar.
+	cal := calendarPath(w)
+	var slots list[calendarSlot]
+	w.expect(http.StatusOK, http.MethodGet, cal+"&instrument_id="+w.instr.ID, researcher, nil, &slots)
+	if len(slots.Items) != 3 || slots.Items[0].ID != b.ID || !slots.Items[0].Mine || slots.Items[2].ID != svc.ID {
+		t.Errorf("calendar %+v", slots.Items)
+	}
+	w.expect(http.StatusOK, http.MethodGet, cal, w.agent, nil, nil)
+	w.expect(http.StatusBadRequest, http.MethodGet, bookings+"?from=yesterday", researcher, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, cal+"&instrument_id="+uuid.NewString(), w.agent, nil, nil)
+
+	// One booking, moved, refused a move, cancelled, with its history.
+	bPath := bookings + "/" + b.ID
+	w.expect(http.StatusOK, http.MethodGet, bPath, auditor, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, bookings+"/"+uuid.NewString(), manager, nil, nil)
+	var moved bookingAnswer
+	w.expect(http.StatusOK, http.MethodPatch, bPath, researcher,
+		map[string]string{"start": start.Add(-time.Hour).Format(time.RFC3339), "end": start.Add(time.Hour).Format(time.RFC3339), "reason": "Earlier start"}, &moved)
+	if !moved.Start.Equal(start.Add(-time.Hour)) || !moved.End.Equal(start.Add(time.Hour)) {
+		t.Errorf("moved booking %+v", moved.Booking)
+	}
+	w.expect(http.StatusConflict, http.MethodPatch, bPath, researcher,
+		map[string]string{"start": start.Format(time.RFC3339), "end": start.Add(5 * time.Hour).Format(time.RFC3339)}, nil)
+	r = w.expect(http.StatusUnprocessableEntity, http.MethodPatch, bPath, researcher,
+		map[string]string{"start": w.nextTuesday(6, 0).Format(time.RFC3339), "end": w.nextTuesday(8, 0).Format(time.RFC3339)}, nil)
+	if ruleOf(r) != "opening_hours" {
+		t.Errorf("move out of opening hours: %s", r.Body)
+	}
+	w.expect(http.StatusBadRequest, http.MethodPatch, bPath, researcher, map[string]string{"start": "soon"}, nil)
+	w.expect(http.StatusForbidden, http.MethodPatch, bPath, auditor, map[string]string{"start": start.Format(time.RFC3339), "end": start.Add(time.Hour).Format(time.RFC3339)}, nil)
+
+	var cancelled bookingAnswer
+	w.expect(http.StatusBadRequest, http.MethodPost, bPath+"/cancel", researcher, map[string]string{}, nil)
+	w.expect(http.StatusOK, http.MethodPost, bPath+"/cancel", researcher, map[string]string{"reason": "Specimen broke"}, &cancelled)
+	if cancelled.Status != scheduling.StatusCancelled || cancelled.CancelledBy != researcherID || cancelled.CancelReason != "Specimen broke" {
+		t.Errorf("cancelled booking %+v", cancelled.Booking)
+	}
+	w.expect(http.StatusConflict, http.MethodPost, bPath+"/cancel", researcher, map[string]string{"reason": "again"}, nil)
+	w.expect(http.StatusConflict, http.MethodPatch, bPath, staff, map[string]string{"start": start.Format(time.RFC3339), "end": start.Add(time.Hour).Format(time.RFC3339)}, nil)
+
+	var evs list[scheduling.BookingEvent]
+	w.expect(http.StatusOK, http.MethodGet, bPath+"/events", researcher, nil, &evs)
+	if len(evs.Items) != 3 || evs.Items[1].Action != "moved" || evs.Items[1].Reason != "Earlier start" || evs.Items[1].Before == nil || evs.Items[2].After != nil {
+		t.Errorf("history %+v", evs.Items)
+	}
+	w.expect(http.StatusOK, http.MethodGet, bookings+"/"+doomed.ID+"/events", researcher, nil, &evs)
+	if len(evs.Items) != 2 || evs.Items[1].Action != "displaced" {
+		t.Errorf("displaced booking's history %+v", evs.Items)
+	}
+	w.expect(http.StatusNotFound, http.MethodGet, bookings+"/not-a-uuid/events", auditor, nil, nil)
+	w.expect(http.StatusForbidden, http.MethodGet, bPath+"/events", w.agent, nil, nil)
 }

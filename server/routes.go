@@ -54,6 +54,18 @@ func (s *Server) routes() error {
 	add(http.MethodPost, v1+"/instruments/:instrument_id/agent-tokens", users(managers...), s.handleAgentTokenCreate)
 	add(http.MethodDelete, v1+"/instruments/:instrument_id/agent-tokens/:token_id", users(managers...), s.handleAgentTokenRevoke)
 
+	add(http.MethodGet, v1+"/qualifications", users(everyone...), s.handleQualificationList)
+	add(http.MethodPost, v1+"/instruments/:instrument_id/qualifications", users(facilityOps...), s.handleQualificationGrant)
+	add(http.MethodPost, v1+"/qualifications/:qualification_id/revoke", users(facilityOps...), s.handleQualificationRevoke)
+
+	bookers := []accounts.Role{accounts.RoleManager, accounts.RoleStaff, accounts.RoleResearcher}
+	add(http.MethodGet, v1+"/bookings", usersOrAgent(accounts.ScopeInstrumentRead, everyone...), s.handleBookingList)
+	add(http.MethodPost, v1+"/bookings", users(bookers...), s.handleBookingCreate)
+	add(http.MethodGet, v1+"/bookings/:booking_id", users(everyone...), s.handleBookingGet)
+	add(http.MethodPatch, v1+"/bookings/:booking_id", users(bookers...), s.handleBookingMove)
+	add(http.MethodPost, v1+"/bookings/:booking_id/cancel", users(bookers...), s.handleBookingCancel)
+	add(http.MethodGet, v1+"/bookings/:booking_id/events", users(everyone...), s.handleBookingEvents)
+
 	// Every route must carry a rule; echo's own routes (none today) would show here.
 	for _, r := range s.echo.Routes() {
 		if _, ok := s.rules[r.Method+" "+r.Path]; !ok {

@@ -88,6 +88,7 @@ func (s *Server) Serve(ctx context.Context, ln net.Listener) error {
 	}
 	errc := make(chan error, 1)
 	go func() { errc <- hs.Serve(ln) }()
+	go s.markNoShows(ctx, time.Minute)
 	select {
 	case err := <-errc:
 		return err
@@ -130,4 +131,24 @@ func Run(ctx context.Context, cfg Config, store *postgres.DB, log *slog.Logger, 
 		ready(ln.Addr().String())
 	}
 	return s.Serve(ctx, ln)
+}
+
+// markNoShows records no-shows every interval until ctx ends. Several processes may
+// run it at once: storage skips bookings another process is marking.
+func (s *Server) markNoShows(ctx context.Context, every time.Duration) {
+	t := time.NewTicker(every)
+	defer t.Stop()
+	for {
+		select {
+		case <-ctx.Done():
+			return
+		case <-t.C:
+			ids, err := s.store.MarkNoShows(ctx, s.now())
+			if err != nil && ctx.Err() == nil {
+				s.log.Warn("marking no-shows failed", slog.Any("error", err))
+			} else if len(ids) > 0 {
+				s.log.Info("no-shows marked", slog.Int("bookings", len(ids)))
+			}
+		}
+	}
 }

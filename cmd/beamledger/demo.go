@@ -15,6 +15,7 @@ import (
 	"path/filepath"
 	"strings"
 	"text/tabwriter"
+	"time"
 
 	"beamledger/accounts"
 	"beamledger/demo"
@@ -64,6 +65,9 @@ func cmdDemo(ctx context.Context, args []string, stdout, stderr io.Writer) (err 
 	accts, err := demo.Load(ctx, db, hasher, secret)
 	if err != nil {
 		return fmt.Errorf("load demo facility: %w", err)
+	}
+	if err := demo.LoadWeek(ctx, db, db, time.Now()); err != nil {
+		return fmt.Errorf("load demo week: %w", err)
 	}
 	log.Info("starting beamledger demo", slog.String("version", buildVersion()), slog.Any("config", cfg))
 	return server.Run(ctx, cfg, db, log, func(addr string) { printDemoBanner(stdout, addr, accts) })

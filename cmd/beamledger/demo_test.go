@@ -124,6 +124,25 @@ func TestDemoServesReadyAndLogin(t *testing.T) {
 	if len(projects.Items) != 3 {
 		t.Fatalf("after a second load: %d projects, want the 3 demo projects once", len(projects.Items))
 	}
+	// A living calendar: the week holds bookings of every kind, loaded once.
+	var slots struct {
+		Items []struct{ Kind string } `json:"items"`
+	}
+	now := time.Now().UTC()
+	from, to := now.AddDate(0, 0, -8).Format(time.RFC3339), now.AddDate(0, 0, 8).Format(time.RFC3339)
+	getJSON(t, d2.url+"/api/v1/bookings?from="+from+"&to="+to, login(t, d2.url, "staff@demo.example", first["staff@demo.example"]), &slots)
+	kinds := map[string]int{}
+	for _, s := range slots.Items {
+		kinds[s.Kind]++
+	}
+	for _, k := range []string{"independent", "assisted", "training", "unattended", "service"} {
+		if kinds[k] == 0 {
+			t.Errorf("demo week lacks a %s booking: %v", k, kinds)
+		}
+	}
+	if len(slots.Items) != 11 {
+		t.Errorf("demo week has %d bookings, want the 11 demo bookings once", len(slots.Items))
+	}
 }
 
 func login(t *testing.T, base, email, pw string) string {

@@ -1,0 +1,85 @@
+package scheduling
+
+import (
+	"context"
+	"time"
+)
+
+// UsageSource says who recorded a usage.
+type UsageSource string
+
+// Usage sources.
+const (
+	SourceUser  UsageSource = "user"  // the booked user checked in or out
+	SourceStaff UsageSource = "staff" // a staff member or manager did it for them
+	SourceAgent UsageSource = "agent" // the instrument's computer did, with its token
+)
+
+// Usage is the actual work on a booking: check-in to check-out. Work outside the booked
+// range is kept as it happened and reported as overrun, never clipped.
+type Usage struct {
+	ID        string      `json:"id"`
+	BookingID string      `json:"booking_id"`
+	StartedAt time.Time   `json:"started_at"`
+	EndedAt   *time.Time  `json:"ended_at,omitempty"`
+	StartedBy string      `json:"started_by"`
+	EndedBy   string      `json:"ended_by,omitempty"`
+	Source    UsageSource `json:"source"`
+}
+
+// Overrun is how much of the usage lies outside the booked range [start, end): before
+// the start plus after the end. An open usage counts up to now.
+func (u Usage) Overrun(start, end, now time.Time) time.Duration {
+	stop := now
+	if u.EndedAt != nil {
+		stop = *u.EndedAt
+	}
+	var over time.Duration
+	if u.StartedAt.Before(start) {
+		over += minDuration(start, stop).Sub(u.StartedAt)
+	}
+	if stop.After(end) {
+		over += stop.Sub(maxInstant(end, u.StartedAt))
+	}
+	return over
+}
+
+func minDuration(a, b time.Time) time.Time {
+	if a.Before(b) {
+		return a
+	}
+	return b
+}
+
+func maxInstant(a, b time.Time) time.Time {
+	if a.After(b) {
+		return a
+	}
+	return b
+}
+
+// UsageReport is a booking's usage as the API shows it.
+type UsageReport struct {
+	BookingID      string     `json:"booking_id"`
+	Usages         []Usage    `json:"usages"`
+	UsedMinutes    int        `json:"used_minutes"`
+	OverrunMinutes int        `json:"overrun_minutes"`
+	NoShowAt       *time.Time `json:"no_show_at,omitempty"`
+}
+
+// UsageStore records check-in and check-out and finds no-shows.
+type UsageStore interface {
+	// CheckIn opens a usage of an active booking at the given instant, and notes the
+	// booked user's use of the instrument (which keeps an idle-expiring qualification
+	// alive). ErrConflict when a usage is already open or the booking is cancelled.
+	CheckIn(ctx context.Context, bookingID string, at time.Time, actor string, source UsageSource) (Usage, error)
+	// CheckOut closes the open usage. ErrConflict when none is open or at is not after
+	// its start.
+	CheckOut(ctx context.Context, bookingID string, at time.Time, actor string) (Usage, error)
+	// UsageReport returns a booking's usages and no-show state, judged at now.
+	UsageReport(ctx context.Context, bookingID string, now time.Time) (UsageReport, error)
+	// MarkNoShows records every active, non-service booking whose start plus the
+	// instrument's no-show grace has passed at now without any usage, and returns
+	// their ids. Running it again marks nothing twice.
+	MarkNoShows(ctx context.Context, now time.Time) ([]string, error)
+}

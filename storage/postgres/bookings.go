@@ -1,0 +1,362 @@
+package postgres
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"hash/fnv"
+	"strings"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgconn"
+
+	"beamledger"
+	"beamledger/accounts"
+	"beamledger/scheduling"
+)
+
+var _ scheduling.BookingStore = (*DB)(nil)
+
+const bookingSelect = `
+SELECT b.id::text, b.instrument_id::text, coalesce(b.project_id::text, ''), b.user_id::text, b.kind,
+       lower(b.during), upper(b.during), coalesce(b.staff_id::text, ''), coalesce(b.series_id::text, ''),
+       b.status, b.note,
+       coalesce((SELECT array_agg(d.id::text ORDER BY lower(d.during), d.id) FROM bookings d WHERE d.displaced_by = b.id), '{}'),
+       b.cancelled_at, coalesce(b.cancelled_by, ''), coalesce(b.cancel_reason, ''), b.created_at, b.created_by, b.updated_at
+FROM bookings b`
+
+func scanBooking(row pgx.Row) (scheduling.Booking, error) {
+	var b scheduling.Booking
+	var kind, status string
+	err := row.Scan(&b.ID, &b.InstrumentID, &b.ProjectID, &b.UserID, &kind, &b.Start, &b.End, &b.StaffID, &b.SeriesID,
+		&status, &b.Note, &b.Displaced, &b.CancelledAt, &b.CancelledBy, &b.CancelReason, &b.CreatedAt, &b.CreatedBy, &b.UpdatedAt)
+	b.Kind, b.Status = scheduling.BookingKind(kind), scheduling.BookingStatus(status)
+	b.Start, b.End = b.Start.UTC(), b.End.UTC()
+	if len(b.Displaced) == 0 {
+		b.Displaced = nil
+	}
+	return b, err
+}
+
+// CreateBooking implements scheduling.BookingStore.
+func (db *DB) CreateBooking(ctx context.Context, nb scheduling.NewBooking, now time.Time, check func(scheduling.BookingContext) error) (scheduling.Booking, error) {
+	var out scheduling.Booking
+	err := db.retryTx(ctx, func(tx pgx.Tx) error {
+		var err error
+		out, err = createBooking(ctx, tx, nb, now, check)
+		return err
+	})
+	if err != nil {
+		return out, db.bookingError(ctx, err, nb.InstrumentID, nb.StaffID, nb.Start, nb.End, "")
+	}
+	return out, nil
+}
+
+// createBooking does CreateBooking's work inside tx (series use it per instance).
+func createBooking(ctx context.Context, tx pgx.Tx, nb scheduling.NewBooking, now time.Time, check func(scheduling.BookingContext) error) (scheduling.Booking, error) {
+	bc, err := bookingContext(ctx, tx, nb.InstrumentID, nb.UserID, nb.ProjectID, nb.Start, "")
+	if err != nil {
+		return scheduling.Booking{}, err
+	}
+	if err := check(bc); err != nil {
+		return scheduling.Booking{}, err
+	}
+	var id string
+	if err := tx.QueryRow(ctx, `SELECT gen_random_uuid()::text`).Scan(&id); err != nil {
+		return scheduling.Booking{}, err
+	}
+	if nb.Kind == scheduling.KindService {
+		if err := displace(ctx, tx, id, nb, now); err != nil {
+			return scheduling.Booking{}, err
+		}
+	}
+	const q = `
+INSERT INTO bookings (id, instrument_id, project_id, user_id, kind, during, staff_id, series_id, note, created_at, created_by, updated_at)
+VALUES ($1, $2, nullif($3, '')::uuid, $4, $5, tstzrange($6, $7, '[)'), nullif($8, '')::uuid, nullif($9, '')::uuid, $10, $11, $12, $11)`
+	if _, err := tx.Exec(ctx, q, id, nb.InstrumentID, nb.ProjectID, nb.UserID, string(nb.Kind), nb.Start, nb.End,
+		nb.StaffID, nb.SeriesID, nb.Note, now, nb.Actor); err != nil {
+		return scheduling.Booking{}, err
+	}
+	if err := addEvent(ctx, tx, id, now, nb.Actor, "created", "", nil, &scheduling.Interval{Start: nb.Start, End: nb.End}); err != nil {
+		return scheduling.Booking{}, err
+	}
+	return scanBooking(tx.QueryRow(ctx, bookingSelect+` WHERE b.id = $1`, id))
+}
+
+// displace cancels the active bookings a service booking overlaps, recording which
+// service booking displaced them so that the facility can rebook those people.
+func displace(ctx context.Context, tx pgx.Tx, serviceID string, nb scheduling.NewBooking, now time.Time) error {
+	const q = `
+UPDATE bookings SET status = 'cancelled', cancelled_at = $4, cancelled_by = $5, updated_at = $4,
+    cancel_reason = 'displaced by service booking', displaced_by = $6
+WHERE instrument_id = $1 AND status = 'active' AND during && tstzrange($2, $3, '[)')
+RETURNING id::text`
+	rows, err := tx.Query(ctx, q, nb.InstrumentID, nb.Start, nb.End, now, nb.Actor, serviceID)
+	if err != nil {
+		return err
+	}
+	ids, err := pgx.CollectRows(rows, pgx.RowTo[string])
+	if err != nil {
+		return err
+	}
+	for _, id := range ids {
+		if err := addEvent(ctx, tx, id, now, nb.Actor, "displaced", "service booking "+serviceID, nil, nil); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// bookingContext reads what the rules need for a booking of userID/projectID on the
+// instrument starting at start, leaving out booking excludeID (being moved).
+func bookingContext(ctx context.Context, tx pgx.Tx, instrumentID, userID, projectID string, start time.Time, excludeID string) (scheduling.BookingContext, error) {
+	var bc scheduling.BookingContext
+	var zone string
+	var facilityRules, instrumentRules []byte
+	const q = `SELECT f.time_zone, f.booking_rules, i.rules_override FROM facility f, instruments i WHERE f.id = 1 AND i.id = $1`
+	err := tx.QueryRow(ctx, q, instrumentID).Scan(&zone, &facilityRules, &instrumentRules)
+	if errors.Is(err, pgx.ErrNoRows) {
+		return bc, beamledger.NotFound("instrument (or the facility is not set up)")
+	}
+	if err != nil {
+		return bc, err
+	}
+	if bc.Location, err = time.LoadLocation(zone); err != nil {
+		return bc, fmt.Errorf("facility time zone %q: %w", zone, err)
+	}
+	var fo, io scheduling.RulesOverride
+	if err := json.Unmarshal(facilityRules, &fo); err != nil {
+		return bc, fmt.Errorf("facility booking rules: %w", err)
+	}
+	if err := json.Unmarshal(instrumentRules, &io); err != nil {
+		return bc, fmt.Errorf("instrument booking rules: %w", err)
+	}
+	bc.Rules = scheduling.DefaultRules().With(fo).With(io)
+	if bc.Qualification, err = currentQualification(ctx, tx, userID, instrumentID); err != nil {
+		return bc, err
+	}
+	if projectID == "" || bc.Rules.PrimeAllowanceMinutesPerWeek == 0 {
+		return bc, nil
+	}
+	// Bookings of one project on one instrument take their allowance one at a time.
+	h := fnv.New64a()
+	h.Write([]byte(projectID + "/" + instrumentID))
+	if _, err := tx.Exec(ctx, `SELECT pg_advisory_xact_lock($1)`, int64(h.Sum64())); err != nil {
+		return bc, err
+	}
+	weekStart, weekEnd := scheduling.PeriodBounds(scheduling.PeriodWeek, start, bc.Location)
+	const used = `
+SELECT lower(during), upper(during) FROM bookings
+WHERE project_id = $1 AND instrument_id = $2 AND status = 'active' AND id::text <> $5
+  AND during && tstzrange($3, $4, '[)')`
+	rows, err := tx.Query(ctx, used, projectID, instrumentID, weekStart, weekEnd, excludeID)
+	if err != nil {
+		return bc, err
+	}
+	spans, err := pgx.CollectRows(rows, pgx.RowToStructByPos[scheduling.Interval])
+	if err != nil {
+		return bc, err
+	}
+	for _, s := range spans {
+		from, to := maxTime(s.Start, weekStart), minTime(s.End, weekEnd)
+		bc.PrimeUsedMinutes += scheduling.MinutesInside(bc.Rules.PrimeTime, from, to, bc.Location)
+	}
+	return bc, nil
+}
+
+func maxTime(a, b time.Time) time.Time {
+	if a.After(b) {
+		return a
+	}
+	return b
+}
+
+func minTime(a, b time.Time) time.Time {
+	if a.Before(b) {
+		return a
+	}
+	return b
+}
+
+func addEvent(ctx context.Context, tx pgx.Tx, bookingID string, at time.Time, actor, action, reason string, before, after *scheduling.Interval) error {
+	rng := func(iv *scheduling.Interval) any {
+		if iv == nil {
+			return nil
+		}
+		return fmt.Sprintf("[%s,%s)", iv.Start.UTC().Format(time.RFC3339Nano), iv.End.UTC().Format(time.RFC3339Nano))
+	}
+	const q = `INSERT INTO booking_events (booking_id, at, actor, action, reason, before, after) VALUES ($1, $2, $3, $4, $5, $6::tstzrange, $7::tstzrange)`
+	_, err := tx.Exec(ctx, q, bookingID, at, actor, action, reason, rng(before), rng(after))
+	return err
+}
+
+// bookingError turns an exclusion violation into a Conflict naming the range it
+// conflicts with (only the range: the other booking's owner is none of the caller's
+// business). It reads the conflicting booking after the failed transaction.
+func (db *DB) bookingError(ctx context.Context, err error, instrumentID, staffID string, start, end time.Time, excludeID string) error {
+	var pgErr *pgconn.PgError
+	if !errors.As(err, &pgErr) || pgErr.Code != exclusionViolation {
+		return mapError(err, "booking")
+	}
+	col, what, id := "instrument_id", "the instrument is booked", instrumentID
+	if pgErr.ConstraintName == "bookings_staff_no_overlap" {
+		col, what, id = "staff_id", "the staff member is assisting or training elsewhere", staffID
+	}
+	q := `SELECT lower(during), upper(during) FROM bookings
+WHERE ` + col + ` = $1 AND status = 'active' AND during && tstzrange($2, $3, '[)') AND id::text <> $4
+ORDER BY lower(during) LIMIT 1`
+	var iv scheduling.Interval
+	if qerr := db.pool.QueryRow(ctx, q, id, start, end, excludeID).Scan(&iv.Start, &iv.End); qerr != nil {
+		return beamledger.Conflict("%s for part of that time", what)
+	}
+	return &beamledger.Error{
+		Kind:    beamledger.ErrConflict,
+		Message: fmt.Sprintf("%s from %s to %s", what, iv.Start.UTC().Format(time.RFC3339), iv.End.UTC().Format(time.RFC3339)),
+		Fields:  map[string]string{"start": "overlaps [" + iv.Start.UTC().Format(time.RFC3339) + ", " + iv.End.UTC().Format(time.RFC3339) + ")"},
+	}
+}
+
+// Booking implements scheduling.BookingStore.
+func (db *DB) Booking(ctx context.Context, id string) (scheduling.Booking, error) {
+	if !accounts.ValidID(id) {
+		return scheduling.Booking{}, beamledger.NotFound("booking")
+	}
+	b, err := scanBooking(db.pool.QueryRow(ctx, bookingSelect+` WHERE b.id = $1`, id))
+	return b, mapError(err, "booking")
+}
+
+// Bookings implements scheduling.BookingStore.
+func (db *DB) Bookings(ctx context.Context, f scheduling.BookingFilter) ([]scheduling.Booking, error) {
+	var conds []string
+	var args []any
+	arg := func(v any) string { args = append(args, v); return fmt.Sprintf("$%d", len(args)) }
+	for _, c := range []struct{ col, val string }{
+		{"b.instrument_id", f.InstrumentID}, {"b.user_id", f.UserID}, {"b.project_id", f.ProjectID}, {"b.series_id", f.SeriesID},
+	} {
+		if c.val == "" {
+			continue
+		}
+		if !accounts.ValidID(c.val) {
+			return nil, beamledger.InvalidField(strings.TrimPrefix(c.col, "b."), "must be an id")
+		}
+		conds = append(conds, c.col+" = "+arg(c.val))
+	}
+	if !f.From.IsZero() || !f.To.IsZero() {
+		var from, to any
+		if !f.From.IsZero() {
+			from = f.From
+		}
+		if !f.To.IsZero() {
+			to = f.To
+		}
+		conds = append(conds, fmt.Sprintf("b.during && tstzrange(%s::timestamptz, %s::timestamptz, '[)')", arg(from), arg(to)))
+	}
+	if !f.IncludeCancelled {
+		conds = append(conds, "b.status = 'active'")
+	}
+	q := bookingSelect
+	if len(conds) > 0 {
+		q += ` WHERE ` + strings.Join(conds, " AND ")
+	}
+	rows, err := db.pool.Query(ctx, q+` ORDER BY lower(b.during), b.id LIMIT 5000`, args...)
+	if err != nil {
+		return nil, mapError(err, "booking")
+	}
+	bs, err := pgx.CollectRows(rows, func(r pgx.CollectableRow) (scheduling.Booking, error) { return scanBooking(r) })
+	return bs, mapError(err, "booking")
+}
+
+// MoveBooking implements scheduling.BookingStore.
+func (db *DB) MoveBooking(ctx context.Context, id string, start, end time.Time, actor, reason string, now time.Time,
+	check func(scheduling.Booking, scheduling.BookingContext) error) (scheduling.Booking, error) {
+	if !accounts.ValidID(id) {
+		return scheduling.Booking{}, beamledger.NotFound("booking")
+	}
+	var out, cur scheduling.Booking
+	err := db.retryTx(ctx, func(tx pgx.Tx) error {
+		var err error
+		if cur, err = scanBooking(tx.QueryRow(ctx, bookingSelect+` WHERE b.id = $1 FOR UPDATE OF b`, id)); err != nil {
+			return err
+		}
+		if cur.Status != scheduling.StatusActive {
+			return beamledger.Conflict("the booking is cancelled; make a new one")
+		}
+		bc, err := bookingContext(ctx, tx, cur.InstrumentID, cur.UserID, cur.ProjectID, start, id)
+		if err != nil {
+			return err
+		}
+		if err := check(cur, bc); err != nil {
+			return err
+		}
+		const q = `UPDATE bookings SET during = tstzrange($2, $3, '[)'), updated_at = $4 WHERE id = $1`
+		if _, err := tx.Exec(ctx, q, id, start, end, now); err != nil {
+			return err
+		}
+		before, after := scheduling.Interval{Start: cur.Start, End: cur.End}, scheduling.Interval{Start: start, End: end}
+		if err := addEvent(ctx, tx, id, now, actor, "moved", reason, &before, &after); err != nil {
+			return err
+		}
+		out, err = scanBooking(tx.QueryRow(ctx, bookingSelect+` WHERE b.id = $1`, id))
+		return err
+	})
+	if err != nil {
+		return out, db.bookingError(ctx, err, cur.InstrumentID, cur.StaffID, start, end, id)
+	}
+	return out, nil
+}
+
+// CancelBooking implements scheduling.BookingStore.
+func (db *DB) CancelBooking(ctx context.Context, id, actor, reason string, now time.Time) (scheduling.Booking, error) {
+	if !accounts.ValidID(id) {
+		return scheduling.Booking{}, beamledger.NotFound("booking")
+	}
+	var out scheduling.Booking
+	err := pgx.BeginFunc(ctx, db.pool, func(tx pgx.Tx) error {
+		cur, err := scanBooking(tx.QueryRow(ctx, bookingSelect+` WHERE b.id = $1 FOR UPDATE OF b`, id))
+		if err != nil {
+			return err
+		}
+		if cur.Status != scheduling.StatusActive {
+			return beamledger.Conflict("the booking was already cancelled")
+		}
+		const q = `UPDATE bookings SET status = 'cancelled', cancelled_at = $2, cancelled_by = $3, cancel_reason = $4, updated_at = $2 WHERE id = $1`
+		if _, err := tx.Exec(ctx, q, id, now, actor, reason); err != nil {
+			return err
+		}
+		if err := addEvent(ctx, tx, id, now, actor, "cancelled", reason, &scheduling.Interval{Start: cur.Start, End: cur.End}, nil); err != nil {
+			return err
+		}
+		out, err = scanBooking(tx.QueryRow(ctx, bookingSelect+` WHERE b.id = $1`, id))
+		return err
+	})
+	return out, mapError(err, "booking")
+}
+
+// BookingEvents implements scheduling.BookingStore.
+func (db *DB) BookingEvents(ctx context.Context, id string) ([]scheduling.BookingEvent, error) {
+	if !accounts.ValidID(id) {
+		return nil, beamledger.NotFound("booking")
+	}
+	const q = `
+SELECT at, actor, action, reason, lower(before), upper(before), lower(after), upper(after)
+FROM booking_events WHERE booking_id = $1 ORDER BY id`
+	rows, err := db.pool.Query(ctx, q, id)
+	if err != nil {
+		return nil, mapError(err, "booking")
+	}
+	evs, err := pgx.CollectRows(rows, func(r pgx.CollectableRow) (scheduling.BookingEvent, error) {
+		var e scheduling.BookingEvent
+		var bs, be, as, ae *time.Time
+		err := r.Scan(&e.At, &e.Actor, &e.Action, &e.Reason, &bs, &be, &as, &ae)
+		if bs != nil && be != nil {
+			e.Before = &scheduling.Interval{Start: bs.UTC(), End: be.UTC()}
+		}
+		if as != nil && ae != nil {
+			e.After = &scheduling.Interval{Start: as.UTC(), End: ae.UTC()}
+		}
+		return e, err
+	})
+	return evs, mapError(err, "booking")
+}

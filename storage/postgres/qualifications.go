@@ -1,0 +1,141 @@
+package postgres
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"strings"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+
+	"beamledger"
+	"beamledger/accounts"
+	"beamledger/scheduling"
+)
+
+var _ scheduling.QualificationStore = (*DB)(nil)
+
+const qualificationColumns = `id::text, user_id::text, instrument_id::text, level, granted_by::text, granted_at, reason,
+    expires_after_idle_days, last_used_at, revoked_at, coalesce(revoked_by::text, ''), coalesce(revoke_reason, '')`
+
+func scanQualification(row pgx.Row) (scheduling.Qualification, error) {
+	var q scheduling.Qualification
+	var level string
+	err := row.Scan(&q.ID, &q.UserID, &q.InstrumentID, &level, &q.GrantedBy, &q.GrantedAt, &q.Reason,
+		&q.ExpiresAfterIdleDays, &q.LastUsedAt, &q.RevokedAt, &q.RevokedBy, &q.RevokeReason)
+	q.Level = scheduling.QualificationLevel(level)
+	return q, err
+}
+
+// GrantQualification implements scheduling.QualificationStore.
+func (db *DB) GrantQualification(ctx context.Context, n scheduling.NewQualification, now time.Time) (scheduling.Qualification, error) {
+	var out scheduling.Qualification
+	err := pgx.BeginFunc(ctx, db.pool, func(tx pgx.Tx) error {
+		if err := requireUser(ctx, tx, n.UserID, "user_id"); err != nil {
+			return err
+		}
+		if err := requireInstrument(ctx, tx, n.InstrumentID); err != nil {
+			return err
+		}
+		const supersede = `
+UPDATE qualifications SET revoked_at = $3, revoked_by = $4, revoke_reason = 'superseded'
+WHERE user_id = $1 AND instrument_id = $2 AND revoked_at IS NULL`
+		if _, err := tx.Exec(ctx, supersede, n.UserID, n.InstrumentID, now, n.GrantedBy); err != nil {
+			return err
+		}
+		const q = `
+INSERT INTO qualifications (user_id, instrument_id, level, granted_by, granted_at, reason, expires_after_idle_days)
+VALUES ($1, $2, $3, $4, $5, $6, $7) RETURNING ` + qualificationColumns
+		var err error
+		out, err = scanQualification(tx.QueryRow(ctx, q, n.UserID, n.InstrumentID, string(n.Level), n.GrantedBy, now, n.Reason, n.ExpiresAfterIdleDays))
+		return err
+	})
+	return out, mapError(err, "qualification")
+}
+
+// RevokeQualification implements scheduling.QualificationStore.
+func (db *DB) RevokeQualification(ctx context.Context, id, by, reason string, now time.Time) (scheduling.Qualification, error) {
+	if !accounts.ValidID(id) {
+		return scheduling.Qualification{}, beamledger.NotFound("qualification")
+	}
+	var out scheduling.Qualification
+	err := pgx.BeginFunc(ctx, db.pool, func(tx pgx.Tx) error {
+		cur, err := scanQualification(tx.QueryRow(ctx, `SELECT `+qualificationColumns+` FROM qualifications WHERE id = $1 FOR UPDATE`, id))
+		if err != nil {
+			return err
+		}
+		if cur.RevokedAt != nil {
+			return beamledger.Conflict("the qualification was already revoked on %s", cur.RevokedAt.UTC().Format(time.RFC3339))
+		}
+		const q = `UPDATE qualifications SET revoked_at = $2, revoked_by = $3, revoke_reason = $4 WHERE id = $1 RETURNING ` + qualificationColumns
+		out, err = scanQualification(tx.QueryRow(ctx, q, id, now, by, reason))
+		return err
+	})
+	return out, mapError(err, "qualification")
+}
+
+// Qualification implements scheduling.QualificationStore.
+func (db *DB) Qualification(ctx context.Context, id string) (scheduling.Qualification, error) {
+	if !accounts.ValidID(id) {
+		return scheduling.Qualification{}, beamledger.NotFound("qualification")
+	}
+	q, err := scanQualification(db.pool.QueryRow(ctx, `SELECT `+qualificationColumns+` FROM qualifications WHERE id = $1`, id))
+	return q, mapError(err, "qualification")
+}
+
+// Qualifications implements scheduling.QualificationStore.
+func (db *DB) Qualifications(ctx context.Context, f scheduling.QualificationFilter) ([]scheduling.Qualification, error) {
+	var conds []string
+	var args []any
+	for _, c := range []struct{ col, val string }{{"user_id", f.UserID}, {"instrument_id", f.InstrumentID}} {
+		if c.val == "" {
+			continue
+		}
+		if !accounts.ValidID(c.val) {
+			return nil, beamledger.InvalidField(strings.TrimSuffix(c.col, "_id")+"_id", "must be an id")
+		}
+		args = append(args, c.val)
+		conds = append(conds, fmt.Sprintf("%s = $%d", c.col, len(args)))
+	}
+	if !f.IncludeRevoked {
+		conds = append(conds, "revoked_at IS NULL")
+	}
+	q := `SELECT ` + qualificationColumns + ` FROM qualifications`
+	if len(conds) > 0 {
+		q += ` WHERE ` + strings.Join(conds, " AND ")
+	}
+	rows, err := db.pool.Query(ctx, q+` ORDER BY granted_at DESC, id`, args...)
+	if err != nil {
+		return nil, mapError(err, "qualification")
+	}
+	qs, err := pgx.CollectRows(rows, func(r pgx.CollectableRow) (scheduling.Qualification, error) { return scanQualification(r) })
+	return qs, mapError(err, "qualification")
+}
+
+// currentQualification reads the user's unrevoked qualification on the instrument.
+func currentQualification(ctx context.Context, tx pgx.Tx, userID, instrumentID string) (*scheduling.Qualification, error) {
+	const q = `SELECT ` + qualificationColumns + ` FROM qualifications WHERE user_id = $1 AND instrument_id = $2 AND revoked_at IS NULL`
+	qual, err := scanQualification(tx.QueryRow(ctx, q, userID, instrumentID))
+	if errors.Is(err, pgx.ErrNoRows) {
+		return nil, nil
+	}
+	if err != nil {
+		return nil, err
+	}
+	return &qual, nil
+}
+
+func requireInstrument(ctx context.Context, tx pgx.Tx, id string) error {
+	if !accounts.ValidID(id) {
+		return beamledger.NotFound("instrument")
+	}
+	var ok bool
+	if err := tx.QueryRow(ctx, `SELECT EXISTS (SELECT 1 FROM instruments WHERE id = $1)`, id).Scan(&ok); err != nil {
+		return err
+	}
+	if !ok {
+		return beamledger.NotFound("instrument")
+	}
+	return nil
+}
