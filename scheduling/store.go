@@ -55,6 +55,11 @@ type BookingContext struct {
 	// PrimeUsedMinutes are the project's prime-time minutes already booked on the
 	// instrument in the ISO week of the booking's start, not counting the booking itself.
 	PrimeUsedMinutes int
+	// Bookable is the instrument's bookable flag; Member reports whether the booked user
+	// belongs to the booking's project (always false for service bookings).
+	Bookable, Member bool
+	// InstrumentName names the instrument in messages.
+	InstrumentName string
 }
 
 // BookingFilter narrows a booking listing to bookings overlapping [From, To).

@@ -171,6 +171,49 @@ var routeMatrix = map[string]routeExpectation{
 		return map[string]string{"reason": "instrument fault"}
 	}},
 	"GET /api/v1/bookings/:booking_id/events": {who: bookingReaders, setup: matrixBooking},
+
+	// The series named is w.other's weekly series in the foreign project, made by
+	// staff: hidden from the researcher, readable by the auditor, cancelled by staff
+	// and managers only. A researcher asking for a series in a foreign project finds
+	// no such project; staff and managers book w.other there, each at another time.
+	"POST /api/v1/series": {who: bookers, strict: true, setup: matrixQualified, bodyAs: func(w *world, who string) any {
+		start := w.nextTuesday(map[string]int{"manager": 8, "staff": 11, "researcher": 14}[who], 0)
+		b := matrixSeriesBody(w, start)
+		if who == "researcher" {
+			delete(b, "user_id")
+		}
+		return b
+	}},
+	"GET /api/v1/series/:series_id": {who: bookingReaders, setup: matrixSeries},
+	// The staff member, after the manager, finds nothing left to cancel: 200, no items.
+	"POST /api/v1/series/:series_id/cancel": {who: bookers, strict: true, setup: matrixSeries, body: func(*world) any {
+		return map[string]string{"reason": "instrument fault"}
+	}},
+
+	// Usage is recorded by the booked user, staff, managers and the instrument's agent
+	// (usage:write); the auditor reads it but records none. The matrix's agent holds
+	// every scope on the booking's instrument. Check-in: the staff member and the
+	// agent, after the manager, find the booking checked in already: 409. Check-out:
+	// the booking was checked in ten minutes ago; after the manager checks it out,
+	// staff and the agent find it not checked in: 409.
+	"POST /api/v1/bookings/:booking_id/check-in":  {who: usageRecorders, setup: matrixBooking},
+	"POST /api/v1/bookings/:booking_id/check-out": {who: usageRecorders, setup: matrixCheckedIn},
+	"GET /api/v1/bookings/:booking_id/usage":      {who: access{wUnauth, wAllow, wAllow, wHidden, wAllow, wAllow}, setup: matrixCheckedIn},
+
+	// Feed tokens are each person's own: a manager neither sees nor revokes anyone
+	// else's, and the token named here is the researcher's.
+	"GET /api/v1/me/feed-tokens":                   {who: usersOnly},
+	"POST /api/v1/me/feed-tokens":                  {who: usersOnly, strict: true},
+	"DELETE /api/v1/me/feed-tokens/:feed_token_id": {who: access{wUnauth, wHidden, wHidden, wAllow, wHidden, wDeny}, setup: matrixFeedToken},
+	// The feeds ignore the Authorization header: the researcher's feed token in the
+	// path is the credential, whoever calls.
+	"GET /feeds/:feed_token/mine.ics": {who: openToAll, setup: matrixFeedToken},
+	"GET /feeds/:feed_token/instruments/:instrument_id": {who: openToAll, setup: func(w *world) map[string]string {
+		extra := matrixFeedToken(w)
+		maps.Copy(extra, matrixBooking(w))
+		extra[":instrument_id"] = w.instr.ID + ".ics"
+		return extra
+	}},
 }
 
 var (
@@ -180,6 +223,9 @@ var (
 	bookers = access{wUnauth, wAllow, wAllow, wHidden, wDeny, wDeny}
 	// bookingReaders read a booking; the matrix's booking is foreign to the researcher.
 	bookingReaders = access{wUnauth, wAllow, wAllow, wHidden, wAllow, wDeny}
+	// usageRecorders check the matrix's booking in and out: not the auditor, and not
+	// the researcher, to whom the booking is foreign.
+	usageRecorders = access{wUnauth, wAllow, wAllow, wHidden, wDeny, wAllow}
 )
 
 // matrixQualified qualifies w.other, the foreign project's researcher, on w.instr.
@@ -211,6 +257,44 @@ func matrixBooking(w *world) map[string]string {
 		w.t.Fatalf("matrix booking: %d %s", r.StatusCode, r.Body)
 	}
 	return map[string]string{":booking_id": b.ID}
+}
+
+// matrixSeriesBody asks for two weekly two-hour bookings of w.other in the foreign
+// project, the first at start.
+func matrixSeriesBody(w *world, start time.Time) map[string]any {
+	return map[string]any{"instrument_id": w.instr.ID, "project_id": w.foreign.ID, "user_id": w.other.ID, "kind": "independent",
+		"rrule": "FREQ=WEEKLY;COUNT=2;BYDAY=TU", "start": start.In(berlin).Format("2006-01-02T15:04"), "duration_minutes": 120}
+}
+
+// matrixSeries is w.other's weekly series in the foreign project, made by staff and
+// checked against the booking rules as any series is.
+func matrixSeries(w *world) map[string]string {
+	matrixQualified(w)
+	var res scheduling.SeriesResult
+	if r := w.do(http.MethodPost, "/api/v1/series", w.tokens[accounts.RoleStaff], matrixSeriesBody(w, w.nextTuesday(9, 0)), &res); r.StatusCode != http.StatusCreated || len(res.Booked) != 2 {
+		w.t.Fatalf("matrix series: %d %s", r.StatusCode, r.Body)
+	}
+	return map[string]string{":series_id": res.Series.ID}
+}
+
+// matrixCheckedIn is matrixBooking with a usage opened ten minutes ago by staff.
+func matrixCheckedIn(w *world) map[string]string {
+	extra := matrixBooking(w)
+	_, err := w.db.CheckIn(context.Background(), extra[":booking_id"], w.clock.Now().Add(-10*time.Minute),
+		w.users[accounts.RoleStaff].ID, scheduling.SourceStaff)
+	if err != nil {
+		w.t.Fatal(err)
+	}
+	return extra
+}
+
+// matrixFeedToken is a calendar-feed token of the researcher: its id and its secret.
+func matrixFeedToken(w *world) map[string]string {
+	var f feedTokenCreated
+	if r := w.do(http.MethodPost, "/api/v1/me/feed-tokens", w.tokens[accounts.RoleResearcher], nil, &f); r.StatusCode != http.StatusCreated {
+		w.t.Fatalf("matrix feed token: %d %s", r.StatusCode, r.Body)
+	}
+	return map[string]string{":feed_token_id": f.ID, ":feed_token": f.Token}
 }
 
 // matrixPath fills a route's parameters with objects the researcher does not own;

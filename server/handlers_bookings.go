@@ -42,18 +42,39 @@ type bookingAnswer struct {
 	Resolutions map[string]scheduling.Resolution `json:"resolutions,omitempty"`
 }
 
-// parseRange reads start and end (RFC 3339 with an offset, or facility wall time).
-func parseRange(startText, endText string, loc *time.Location) (start, end time.Time, res map[string]scheduling.Resolution, err error) {
+// parseRange reads start and end: RFC 3339 with an offset, or wall time in the
+// facility zone (read from storage only when a wall time needs it).
+func (s *Server) parseRange(ctx context.Context, startText, endText string) (start, end time.Time, res map[string]scheduling.Resolution, err error) {
+	var loc *time.Location
+	parse := func(field, text string) (time.Time, scheduling.Resolution, error) {
+		if t, err := time.Parse(time.RFC3339, text); err == nil {
+			return t.UTC(), scheduling.ResolutionExact, nil
+		}
+		if loc == nil {
+			l, err := s.facilityLocation(ctx)
+			if err != nil {
+				return time.Time{}, "", err
+			}
+			loc = l
+		}
+		return scheduling.ParseInstant(field, text, loc)
+	}
 	fe := beamledger.FieldErrors{}
 	res = map[string]scheduling.Resolution{}
 	var r scheduling.Resolution
 	var e error
-	if start, r, e = scheduling.ParseInstant("start", startText, loc); e != nil {
+	if start, r, e = parse("start", startText); e != nil {
+		if !errors.Is(e, beamledger.ErrInvalid) {
+			return start, end, nil, e
+		}
 		fe.Add("start", fieldReasonOf(e))
 	} else if r != scheduling.ResolutionExact {
 		res["start"] = r
 	}
-	if end, r, e = scheduling.ParseInstant("end", endText, loc); e != nil {
+	if end, r, e = parse("end", endText); e != nil {
+		if !errors.Is(e, beamledger.ErrInvalid) {
+			return start, end, nil, e
+		}
 		fe.Add("end", fieldReasonOf(e))
 	} else if r != scheduling.ResolutionExact {
 		res["end"] = r
@@ -82,11 +103,7 @@ func (s *Server) handleBookingCreate(c echo.Context) error {
 	}
 	ctx := c.Request().Context()
 	me := principal(ctx)
-	loc, err := s.facilityLocation(ctx)
-	if err != nil {
-		return err
-	}
-	start, end, res, err := parseRange(in.Start, in.End, loc)
+	start, end, res, err := s.parseRange(ctx, in.Start, in.End)
 	if err != nil {
 		return err
 	}
@@ -96,16 +113,32 @@ func (s *Server) handleBookingCreate(c echo.Context) error {
 	}
 	now := s.now()
 	b, err := s.store.CreateBooking(ctx, nb, now, func(bc scheduling.BookingContext) error {
-		return scheduling.CheckBooking(scheduling.BookingCheck{
-			Kind: nb.Kind, Start: start, End: end, Now: now, Loc: bc.Location, Rules: bc.Rules,
-			Qualification: bc.Qualification, ByStaff: me.FacilityWide(), StaffID: nb.StaffID,
-			PrimeUsedMinutes: bc.PrimeUsedMinutes,
-		})
+		return checkNewBooking(me, nb, bc, now)
 	})
 	if err != nil {
 		return err
 	}
 	return c.JSON(http.StatusCreated, bookingAnswer{Booking: b, Mine: b.UserID == me.UserID, Resolutions: res})
+}
+
+// checkNewBooking applies, inside the booking's transaction, what needs stored state:
+// project membership, the bookable flag, then the facility's rules.
+func checkNewBooking(me accounts.Principal, nb scheduling.NewBooking, bc scheduling.BookingContext, now time.Time) error {
+	if nb.Kind != scheduling.KindService && !bc.Member {
+		if !me.FacilityWide() && nb.UserID == me.UserID {
+			return beamledger.NotFound("project") // not theirs: do not confirm it exists
+		}
+		return beamledger.InvalidField("user_id", "is not a member of the project")
+	}
+	if !bc.Bookable && nb.Kind != scheduling.KindService {
+		return beamledger.RuleViolation("bookable", bc.InstrumentName+" is not open for booking; only staff book service time on it",
+			map[string]string{"instrument_id": "is not bookable"})
+	}
+	return scheduling.CheckBooking(scheduling.BookingCheck{
+		Kind: nb.Kind, Start: nb.Start, End: nb.End, Now: now, Loc: bc.Location, Rules: bc.Rules,
+		Qualification: bc.Qualification, ByStaff: me.FacilityWide(), StaffID: nb.StaffID,
+		PrimeUsedMinutes: bc.PrimeUsedMinutes,
+	})
 }
 
 // newBooking checks who may book what for whom: researchers book for themselves in
@@ -145,23 +178,6 @@ func (s *Server) newBooking(ctx context.Context, me accounts.Principal, in booki
 		if in.UserID != me.UserID {
 			return scheduling.NewBooking{}, beamledger.Forbidden("researchers book for themselves; ask staff to book for someone else")
 		}
-	}
-	if in.Kind != scheduling.KindService {
-		p, err := s.visibleProject(ctx, in.ProjectID)
-		if err != nil {
-			return scheduling.NewBooking{}, err
-		}
-		if !p.HasMember(in.UserID) {
-			return scheduling.NewBooking{}, beamledger.InvalidField("user_id", "is not a member of the project")
-		}
-	}
-	in2, err := s.store.Instrument(ctx, in.InstrumentID)
-	if err != nil {
-		return scheduling.NewBooking{}, err
-	}
-	if !in2.Bookable && in.Kind != scheduling.KindService {
-		return scheduling.NewBooking{}, beamledger.RuleViolation("bookable", in2.Name+" is not open for booking; only staff book service time on it",
-			map[string]string{"instrument_id": "is not bookable"})
 	}
 	if in.StaffID != "" {
 		st, err := s.store.AuthState(ctx, in.StaffID)
@@ -241,11 +257,7 @@ func (s *Server) handleBookingMove(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	loc, err := s.facilityLocation(ctx)
-	if err != nil {
-		return err
-	}
-	start, end, res, err := parseRange(in.Start, in.End, loc)
+	start, end, res, err := s.parseRange(ctx, in.Start, in.End)
 	if err != nil {
 		return err
 	}

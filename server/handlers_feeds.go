@@ -51,7 +51,7 @@ func (s *Server) handleFeedTokenList(c echo.Context) error {
 
 func (s *Server) handleFeedTokenRevoke(c echo.Context) error {
 	ctx := c.Request().Context()
-	t, err := s.store.RevokeFeedToken(ctx, principal(ctx).UserID, c.Param("token_id"), s.now())
+	t, err := s.store.RevokeFeedToken(ctx, principal(ctx).UserID, c.Param("feed_token_id"), s.now())
 	if err != nil {
 		return err
 	}
@@ -82,7 +82,7 @@ func (s *Server) feedWindow() (time.Time, time.Time) {
 
 func (s *Server) handleMyFeed(c echo.Context) error {
 	ctx := c.Request().Context()
-	me, err := s.feedPrincipal(ctx, c.Param("token"))
+	me, err := s.feedPrincipal(ctx, c.Param("feed_token"))
 	if err != nil {
 		return err
 	}
@@ -96,7 +96,7 @@ func (s *Server) handleMyFeed(c echo.Context) error {
 
 func (s *Server) handleInstrumentFeed(c echo.Context) error {
 	ctx := c.Request().Context()
-	me, err := s.feedPrincipal(ctx, c.Param("token"))
+	me, err := s.feedPrincipal(ctx, c.Param("feed_token"))
 	if err != nil {
 		return err
 	}

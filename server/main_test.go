@@ -2,6 +2,7 @@ package server
 
 import (
 	"bytes"
+	"context"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -278,6 +279,9 @@ func TestOpenAPIExamplesExercise(t *testing.T) {
 	exerciseProjects(t, w)
 	exerciseInstruments(t, w)
 	exerciseBookings(t, w)
+	exerciseUsage(t, w)
+	exerciseFeeds(t, w)
+	exerciseSeries(t, w)
 
 	// Every documented 2xx of every operation, and some error of each operation that
 	// documents errors, must have been seen.
@@ -758,4 +762,276 @@ func exerciseBookings(t *testing.T, w *world) {
 	}
 	w.expect(http.StatusNotFound, http.MethodGet, bookings+"/not-a-uuid/events", auditor, nil, nil)
 	w.expect(http.StatusForbidden, http.MethodGet, bPath+"/events", w.agent, nil, nil)
+}
+
+// exerciseUsage covers check-in, check-out and a booking's usage report.
+func exerciseUsage(t *testing.T, w *world) {
+	staff, researcher, auditor := w.tokens[accounts.RoleStaff], w.tokens[accounts.RoleResearcher], w.tokens[accounts.RoleAuditor]
+	start := w.nextTuesday(10, 0)
+	var b bookingAnswer
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/bookings", researcher, w.bookingBody(start, start.Add(time.Hour), scheduling.KindIndependent), &b)
+	bPath := "/api/v1/bookings/" + b.ID
+
+	// The researcher checks in five minutes ago, sent with the facility's offset.
+	at := w.clock.Now().Add(-5 * time.Minute)
+	var in scheduling.Usage
+	w.expect(http.StatusOK, http.MethodPost, bPath+"/check-in", researcher, map[string]string{"at": at.In(berlin).Format(time.RFC3339)}, &in)
+	if !in.StartedAt.Equal(at) || in.Source != scheduling.SourceUser || in.StartedBy != w.users[accounts.RoleResearcher].ID || in.EndedAt != nil {
+		t.Errorf("check-in %+v", in)
+	}
+	w.expect(http.StatusConflict, http.MethodPost, bPath+"/check-in", staff, nil, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, bPath+"/check-in", auditor, nil, nil)
+	if r := w.expect(http.StatusBadRequest, http.MethodPost, bPath+"/check-in", researcher, map[string]string{"at": "yesterday"}, nil); !fieldNamed(r, "at") {
+		t.Errorf("malformed at not named: %s", r.Body)
+	}
+	w.expect(http.StatusBadRequest, http.MethodPost, bPath+"/check-in", researcher, map[string]string{"at": w.clock.Now().Add(2 * time.Hour).Format(time.RFC3339)}, nil)
+	w.expect(http.StatusBadRequest, http.MethodPost, bPath+"/check-in", researcher, map[string]string{"at": w.clock.Now().Add(-25 * time.Hour).Format(time.RFC3339)}, nil)
+	w.expect(http.StatusNotFound, http.MethodPost, "/api/v1/bookings/"+uuid.NewString()+"/check-in", staff, nil, nil)
+	// A cancelled booking takes no new work.
+	cancelled := w.bookingBody(start.Add(3*time.Hour), start.Add(4*time.Hour), scheduling.KindIndependent)
+	var c bookingAnswer
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/bookings", researcher, cancelled, &c)
+	w.expect(http.StatusOK, http.MethodPost, "/api/v1/bookings/"+c.ID+"/cancel", researcher, map[string]string{"reason": "Specimen not ready"}, nil)
+	w.expect(http.StatusConflict, http.MethodPost, "/api/v1/bookings/"+c.ID+"/check-in", researcher, nil, nil)
+	// The agent of one instrument does not reach another instrument's bookings.
+	second, err := w.db.CreateInstrument(context.Background(), scheduling.Instrument{Code: "SEM-9", Name: "Usage SEM", Kind: scheduling.KindSEM, Bookable: true, Corrector: scheduling.CorrectorNone})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var elsewhere bookingAnswer
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/bookings", staff, map[string]any{"instrument_id": second.ID, "kind": "service",
+		"start": start.Format(time.RFC3339), "end": start.Add(time.Hour).Format(time.RFC3339)}, &elsewhere)
+	w.expect(http.StatusNotFound, http.MethodPost, "/api/v1/bookings/"+elsewhere.ID+"/check-in", w.agent, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, "/api/v1/bookings/"+elsewhere.ID+"/usage", w.agent, nil, nil)
+
+	// The instrument's agent checks out; a check-out before the check-in is refused.
+	if r := w.expect(http.StatusBadRequest, http.MethodPost, bPath+"/check-out", w.agent, map[string]string{"at": at.Add(-time.Minute).Format(time.RFC3339)}, nil); !fieldNamed(r, "at") {
+		t.Errorf("check-out before check-in not named: %s", r.Body)
+	}
+	var out scheduling.Usage
+	w.expect(http.StatusOK, http.MethodPost, bPath+"/check-out", w.agent, nil, &out)
+	if out.ID != in.ID || out.EndedAt == nil || !out.EndedAt.Equal(w.clock.Now()) || out.EndedBy != "agent:"+w.agentID || out.Source != scheduling.SourceUser {
+		t.Errorf("check-out %+v", out)
+	}
+	w.expect(http.StatusConflict, http.MethodPost, bPath+"/check-out", researcher, nil, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, bPath+"/check-out", auditor, nil, nil)
+
+	// [constructed] five minutes of work, all of it a week before the booked range.
+	var rep scheduling.UsageReport
+	w.expect(http.StatusOK, http.MethodGet, bPath+"/usage", auditor, nil, &rep)
+	if rep.BookingID != b.ID || len(rep.Usages) != 1 || rep.UsedMinutes != 5 || rep.OverrunMinutes != 5 || rep.NoShowAt != nil {
+		t.Errorf("usage report %+v", rep)
+	}
+	w.expect(http.StatusOK, http.MethodGet, bPath+"/usage", w.agent, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, "/api/v1/bookings/not-a-uuid/usage", researcher, nil, nil)
+}
+
+// exerciseFeeds covers calendar-feed tokens and the feeds they open.
+func exerciseFeeds(t *testing.T, w *world) {
+	manager, researcher := w.tokens[accounts.RoleManager], w.tokens[accounts.RoleResearcher]
+	var made feedTokenCreated
+	r := w.expect(http.StatusCreated, http.MethodPost, "/api/v1/me/feed-tokens", researcher, nil, &made)
+	if r.Header.Get("Cache-Control") != "no-store" || accounts.TokenPrefix(made.Token) != accounts.FeedTokenPrefix ||
+		made.UserID != w.users[accounts.RoleResearcher].ID || made.MyBookings != "/feeds/"+made.Token+"/mine.ics" {
+		t.Errorf("made feed token %+v, Cache-Control %q", made, r.Header.Get("Cache-Control"))
+	}
+	w.expect(http.StatusForbidden, http.MethodPost, "/api/v1/me/feed-tokens", w.agent, nil, nil)
+	var listed list[accounts.FeedToken]
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/me/feed-tokens", researcher, nil, &listed)
+	if len(listed.Items) != 1 || listed.Items[0].ID != made.ID || listed.Items[0].RevokedAt != nil {
+		t.Errorf("listed feed tokens %+v", listed.Items)
+	}
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/me/feed-tokens", manager, nil, &listed)
+	if len(listed.Items) != 0 {
+		t.Errorf("the manager sees the researcher's feed tokens: %+v", listed.Items)
+	}
+	w.expect(http.StatusUnauthorized, http.MethodGet, "/api/v1/me/feed-tokens", "", nil, nil)
+
+	// The researcher's own feed holds their cancelled bookings too, marked so.
+	r = w.expect(http.StatusOK, http.MethodGet, made.MyBookings, "", nil, nil)
+	if r.Header.Get("Content-Type") != "text/calendar; charset=utf-8" || !contains(r.Body, "BEGIN:VCALENDAR\r\n") || !contains(r.Body, "STATUS:CANCELLED") {
+		t.Errorf("my feed: %q\n%s", r.Header.Get("Content-Type"), r.Body)
+	}
+	instrFeed := strings.Replace(made.Instrument, "{instrument_id}", w.instr.ID, 1)
+	if r := w.expect(http.StatusOK, http.MethodGet, instrFeed, "", nil, nil); !contains(r.Body, "X-WR-CALNAME:"+w.instr.Name) {
+		t.Errorf("instrument feed:\n%s", r.Body)
+	}
+	w.expect(http.StatusOK, http.MethodGet, strings.TrimSuffix(instrFeed, ".ics"), "", nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, "/feeds/"+made.Token+"/instruments/"+uuid.NewString()+".ics", "", nil, nil)
+
+	// Only the owner revokes a token; a revoked token opens nothing.
+	w.expect(http.StatusNotFound, http.MethodDelete, "/api/v1/me/feed-tokens/"+made.ID, manager, nil, nil)
+	var revoked accounts.FeedToken
+	w.expect(http.StatusOK, http.MethodDelete, "/api/v1/me/feed-tokens/"+made.ID, researcher, nil, &revoked)
+	if revoked.RevokedAt == nil {
+		t.Errorf("revoked feed token %+v", revoked)
+	}
+	w.expect(http.StatusNotFound, http.MethodGet, made.MyBookings, "", nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, instrFeed, "", nil, nil)
+	w.expect(http.StatusNotFound, http.MethodDelete, "/api/v1/me/feed-tokens/"+uuid.NewString(), researcher, nil, nil)
+}
+
+// exerciseSeries covers recurring bookings: a series booked whole, refused whole or
+// booked in part, read, and cancelled from a given day on.
+func exerciseSeries(t *testing.T, w *world) {
+	staff, researcher, auditor := w.tokens[accounts.RoleStaff], w.tokens[accounts.RoleResearcher], w.tokens[accounts.RoleAuditor]
+	researcherID := w.users[accounts.RoleResearcher].ID
+	const series = "/api/v1/series"
+	// Wednesdays, clear of the Tuesdays the exercises above booked.
+	first := w.nextTuesday(9, 0).AddDate(0, 0, 1)
+	seriesBody := func(rrule string, start time.Time, minutes int) map[string]any {
+		return map[string]any{"instrument_id": w.instr.ID, "project_id": w.own.ID, "kind": "independent",
+			"rrule": rrule, "start": start.In(berlin).Format("2006-01-02T15:04"), "duration_minutes": minutes}
+	}
+
+	// Three Wednesdays at 09:00 local; the rule's prefix and case are normalised.
+	weekly := seriesBody("RRULE:freq=weekly;count=3;byday=we", first, 120)
+	weekly["note"] = "Weekly cryo session"
+	var made scheduling.SeriesResult
+	w.expect(http.StatusCreated, http.MethodPost, series, researcher, weekly, &made)
+	sr := made.Series
+	if sr.RRule != "FREQ=WEEKLY;COUNT=3;BYDAY=WE" || sr.Start.String() != first.In(berlin).Format("2006-01-02T15:04:05") ||
+		sr.TimeZone != "Europe/Berlin" || sr.DurationMinutes != 120 || sr.UserID != researcherID || sr.CreatedBy != researcherID ||
+		sr.ProjectID != w.own.ID || len(made.Booked) != 3 || len(made.Conflicts) != 0 {
+		t.Fatalf("created series %+v, booked %d, conflicts %+v", sr, len(made.Booked), made.Conflicts)
+	}
+	for i, b := range made.Booked {
+		// Each a week after the last, at the same wall time [published: RFC 5545 §3.3.10].
+		at := first.AddDate(0, 0, 7*i)
+		if !b.Start.Equal(at) || !b.End.Equal(at.Add(2*time.Hour)) || b.SeriesID != sr.ID || b.Note != "Weekly cryo session" || b.Status != scheduling.StatusActive {
+			t.Errorf("booking %d of the series %+v, want it at %s", i, b, at)
+		}
+	}
+
+	// Daily at 10:00 from that first Wednesday: Wednesday overlaps the series above and
+	// Saturday is outside opening hours, so the whole series is refused...
+	daily := seriesBody("FREQ=DAILY;COUNT=4", first.Add(time.Hour), 60)
+	wed, sat := first.Add(time.Hour), first.Add(time.Hour).AddDate(0, 0, 3)
+	r := w.expect(http.StatusConflict, http.MethodPost, series, researcher, daily, nil)
+	var refused errorBody
+	if err := json.Unmarshal(r.Body, &refused); err != nil || len(refused.Error.Fields) != 2 ||
+		!fieldNamed(r, "occurrence "+wed.UTC().Format(time.RFC3339)) || !fieldNamed(r, "occurrence "+sat.UTC().Format(time.RFC3339)) {
+		t.Errorf("refused series: %s", r.Body)
+	}
+	// ...unless the free bookings are asked for. Thursday and Friday are free, which they
+	// would not be had the refused series booked them.
+	daily["book_free"] = true
+	var part scheduling.SeriesResult
+	w.expect(http.StatusCreated, http.MethodPost, series, researcher, daily, &part)
+	if len(part.Booked) != 2 || !part.Booked[0].Start.Equal(wed.AddDate(0, 0, 1)) || !part.Booked[1].Start.Equal(wed.AddDate(0, 0, 2)) {
+		t.Errorf("booked in part: %+v", part.Booked)
+	}
+	if len(part.Conflicts) != 2 {
+		t.Fatalf("conflicts of the series booked in part: %+v", part.Conflicts)
+	}
+	if c := part.Conflicts[0]; !c.Start.Equal(wed) || c.Rule != "" || !strings.Contains(c.Message, first.UTC().Format(time.RFC3339)) {
+		t.Errorf("overlapping booking refused as %+v", c)
+	}
+	if c := part.Conflicts[1]; !c.Start.Equal(sat) || !c.End.Equal(sat.Add(time.Hour)) || c.Rule != "opening_hours" {
+		t.Errorf("Saturday booking refused as %+v", c)
+	}
+	// A series with every booking refused is still stored, with no bookings.
+	weekly["book_free"] = true
+	var none scheduling.SeriesResult
+	w.expect(http.StatusCreated, http.MethodPost, series, researcher, weekly, &none)
+	if len(none.Booked) != 0 || len(none.Conflicts) != 3 {
+		t.Errorf("series over taken times: booked %d, conflicts %+v", len(none.Booked), none.Conflicts)
+	}
+	var empty seriesAnswer
+	w.expect(http.StatusOK, http.MethodGet, series+"/"+none.Series.ID, researcher, nil, &empty)
+	if empty.Series.ID != none.Series.ID || empty.Bookings == nil || len(empty.Bookings) != 0 {
+		t.Errorf("series with no bookings %+v", empty)
+	}
+
+	// Malformed series are refused with the field named.
+	bad := []struct {
+		field string
+		body  map[string]any
+	}{
+		{"rrule", seriesBody("FREQ=FORTNIGHTLY;COUNT=2", first, 60)},
+		{"rrule", seriesBody("FREQ=DAILY;COUNT=105", first, 60)},
+		{"start", seriesBody("FREQ=WEEKLY;COUNT=2;BYDAY=TU", first, 60)},
+		{"start", seriesBody("FREQ=WEEKLY;COUNT=2", first, 60)},
+		{"duration_minutes", seriesBody("FREQ=WEEKLY;COUNT=2", first, 0)},
+	}
+	bad[3].body["start"] = "next Wednesday"
+	for _, b := range bad {
+		if r := w.expect(http.StatusBadRequest, http.MethodPost, series, researcher, b.body, nil); !fieldNamed(r, b.field) {
+			t.Errorf("%v: %s does not name %s", b.body, r.Body, b.field)
+		}
+	}
+	service := seriesBody("FREQ=WEEKLY;COUNT=2", first.Add(8*time.Hour), 60)
+	service["kind"] = "service"
+	if r := w.expect(http.StatusUnprocessableEntity, http.MethodPost, series, researcher, service, nil); ruleOf(r) != "service_by_staff" {
+		t.Errorf("researcher's service series: %s", r.Body)
+	}
+	foreign := seriesBody("FREQ=WEEKLY;COUNT=2", first.Add(8*time.Hour), 60)
+	foreign["project_id"] = w.foreign.ID
+	w.expect(http.StatusNotFound, http.MethodPost, series, researcher, foreign, nil)
+	forOther := seriesBody("FREQ=WEEKLY;COUNT=2", first.Add(8*time.Hour), 60)
+	forOther["user_id"] = w.other.ID
+	w.expect(http.StatusForbidden, http.MethodPost, series, researcher, forOther, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, series, auditor, weekly, nil)
+
+	// Reading a series.
+	sPath := series + "/" + sr.ID
+	var got seriesAnswer
+	w.expect(http.StatusOK, http.MethodGet, sPath, auditor, nil, &got)
+	if got.Series != sr || len(got.Bookings) != 3 || got.Bookings[0].ID != made.Booked[0].ID || got.Bookings[2].ID != made.Booked[2].ID {
+		t.Errorf("series as read %+v", got)
+	}
+	other := w.login(w.other.Email, testPassword).AccessToken
+	w.expect(http.StatusNotFound, http.MethodGet, sPath, other, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, series+"/"+uuid.NewString(), staff, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, series+"/not-a-uuid", auditor, nil, nil)
+	w.expect(http.StatusForbidden, http.MethodGet, sPath, w.agent, nil, nil)
+
+	// Cancelling the rest of it: from the second Wednesday, sent with the facility's
+	// offset; then from now, which takes the first; then nothing is left.
+	cancel := sPath + "/cancel"
+	w.expect(http.StatusBadRequest, http.MethodPost, cancel, researcher, map[string]string{"reason": " "}, nil)
+	if r := w.expect(http.StatusBadRequest, http.MethodPost, cancel, researcher, map[string]string{"reason": "Project paused", "from": "next week"}, nil); !fieldNamed(r, "from") {
+		t.Errorf("malformed from not named: %s", r.Body)
+	}
+	w.expect(http.StatusNotFound, http.MethodPost, series+"/"+uuid.NewString()+"/cancel", staff, map[string]string{"reason": "x"}, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, cancel, auditor, map[string]string{"reason": "x"}, nil)
+	var rest list[scheduling.Booking]
+	from := made.Booked[1].Start.In(berlin).Format(time.RFC3339)
+	w.expect(http.StatusOK, http.MethodPost, cancel, researcher, map[string]string{"reason": "Project paused", "from": from}, &rest)
+	ids := map[string]bool{}
+	for _, b := range rest.Items {
+		ids[b.ID] = true
+		if b.Status != scheduling.StatusCancelled || b.CancelledBy != researcherID || b.CancelReason != "Project paused" || b.SeriesID != sr.ID {
+			t.Errorf("cancelled booking %+v", b)
+		}
+	}
+	if len(rest.Items) != 2 || !ids[made.Booked[1].ID] || !ids[made.Booked[2].ID] {
+		t.Errorf("cancelled from the second Wednesday: %+v", rest.Items)
+	}
+	var left, nothing list[scheduling.Booking]
+	w.expect(http.StatusOK, http.MethodPost, cancel, researcher, map[string]string{"reason": "Project stopped"}, &left)
+	if len(left.Items) != 1 || left.Items[0].ID != made.Booked[0].ID {
+		t.Errorf("cancelled from now: %+v", left.Items)
+	}
+	w.expect(http.StatusOK, http.MethodPost, cancel, staff, map[string]string{"reason": "again"}, &nothing)
+	if nothing.Items == nil || len(nothing.Items) != 0 {
+		t.Errorf("cancelled from a series with nothing left: %+v", nothing.Items)
+	}
+	var after seriesAnswer
+	w.expect(http.StatusOK, http.MethodGet, sPath, researcher, nil, &after)
+	if len(after.Bookings) != 3 {
+		t.Errorf("after cancelling, the series has %d bookings, want all 3", len(after.Bookings))
+	}
+	for _, b := range after.Bookings {
+		if b.Status != scheduling.StatusCancelled {
+			t.Errorf("after cancelling the whole series, %+v", b)
+		}
+	}
+
+	// A fellow member of the project reads the series but does not cancel it.
+	if _, err := w.db.AddMember(context.Background(), w.own.ID, w.other.ID); err != nil {
+		t.Fatal(err)
+	}
+	w.expect(http.StatusOK, http.MethodGet, series+"/"+part.Series.ID, other, nil, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, series+"/"+part.Series.ID+"/cancel", other, map[string]string{"reason": "not mine"}, nil)
 }

@@ -65,6 +65,20 @@ func (s *Server) routes() error {
 	add(http.MethodPatch, v1+"/bookings/:booking_id", users(bookers...), s.handleBookingMove)
 	add(http.MethodPost, v1+"/bookings/:booking_id/cancel", users(bookers...), s.handleBookingCancel)
 	add(http.MethodGet, v1+"/bookings/:booking_id/events", users(everyone...), s.handleBookingEvents)
+	add(http.MethodPost, v1+"/series", users(bookers...), s.handleSeriesCreate)
+	add(http.MethodGet, v1+"/series/:series_id", users(everyone...), s.handleSeriesGet)
+	add(http.MethodPost, v1+"/series/:series_id/cancel", users(bookers...), s.handleSeriesCancel)
+	add(http.MethodPost, v1+"/bookings/:booking_id/check-in", usageRule(), s.handleCheckIn)
+	add(http.MethodPost, v1+"/bookings/:booking_id/check-out", usageRule(), s.handleCheckOut)
+	add(http.MethodGet, v1+"/bookings/:booking_id/usage", usersOrAgent(accounts.ScopeUsageWrite, everyone...), s.handleUsageReport)
+
+	add(http.MethodGet, v1+"/me/feed-tokens", users(everyone...), s.handleFeedTokenList)
+	add(http.MethodPost, v1+"/me/feed-tokens", users(everyone...), s.handleFeedTokenCreate)
+	add(http.MethodDelete, v1+"/me/feed-tokens/:feed_token_id", users(everyone...), s.handleFeedTokenRevoke)
+	// Calendar clients send no Authorization header: the feed token in the path is the
+	// credential, checked by the handlers.
+	add(http.MethodGet, "/feeds/:feed_token/mine.ics", open(), s.handleMyFeed)
+	add(http.MethodGet, "/feeds/:feed_token/instruments/:instrument_id", open(), s.handleInstrumentFeed)
 
 	// Every route must carry a rule; echo's own routes (none today) would show here.
 	for _, r := range s.echo.Routes() {

@@ -70,7 +70,13 @@ func testConfig(dbURL string) (Config, ed25519.PrivateKey) {
 
 func newWorld(t testing.TB) *world {
 	t.Helper()
-	db := pgtest.Open(t)
+	return newWorldPool(t, 8)
+}
+
+// newWorldPool is newWorld over a pool of maxConns database connections.
+func newWorldPool(t testing.TB, maxConns int32) *world {
+	t.Helper()
+	db := pgtest.OpenPool(t, maxConns)
 	cfg, key := testConfig("postgres://unused")
 	// A low-cost hash keeps the suite fast; the production parameters are tested in accounts.
 	w := &world{t: t, db: db, key: key, clock: &testClock{now: time.Now().UTC().Truncate(time.Second)},

@@ -1,14 +1,17 @@
 package postgres
 
 import (
+	"cmp"
 	"context"
 	"encoding/json"
 	"errors"
 	"fmt"
 	"hash/fnv"
+	"slices"
 	"strings"
 	"time"
 
+	"github.com/google/uuid"
 	"github.com/jackc/pgx/v5"
 	"github.com/jackc/pgx/v5/pgconn"
 
@@ -63,50 +66,63 @@ func createBooking(ctx context.Context, tx pgx.Tx, nb scheduling.NewBooking, now
 	if err := check(bc); err != nil {
 		return scheduling.Booking{}, err
 	}
-	var id string
-	if err := tx.QueryRow(ctx, `SELECT gen_random_uuid()::text`).Scan(&id); err != nil {
-		return scheduling.Booking{}, err
-	}
+	id := uuid.NewString()
+	var displaced []string
 	if nb.Kind == scheduling.KindService {
-		if err := displace(ctx, tx, id, nb, now); err != nil {
+		if displaced, err = displace(ctx, tx, id, nb, now); err != nil {
 			return scheduling.Booking{}, err
 		}
 	}
+	// The booking and its "created" event in one statement: one round trip.
 	const q = `
-INSERT INTO bookings (id, instrument_id, project_id, user_id, kind, during, staff_id, series_id, note, created_at, created_by, updated_at)
-VALUES ($1, $2, nullif($3, '')::uuid, $4, $5, tstzrange($6, $7, '[)'), nullif($8, '')::uuid, nullif($9, '')::uuid, $10, $11, $12, $11)`
+WITH b AS (
+    INSERT INTO bookings (id, instrument_id, project_id, user_id, kind, during, staff_id, series_id, note, created_at, created_by, updated_at)
+    VALUES ($1, $2, nullif($3, '')::uuid, $4, $5, tstzrange($6, $7, '[)'), nullif($8, '')::uuid, nullif($9, '')::uuid, $10, $11, $12, $11)
+    RETURNING id, during)
+INSERT INTO booking_events (booking_id, at, actor, action, after) SELECT id, $11, $12, 'created', during FROM b`
 	if _, err := tx.Exec(ctx, q, id, nb.InstrumentID, nb.ProjectID, nb.UserID, string(nb.Kind), nb.Start, nb.End,
 		nb.StaffID, nb.SeriesID, nb.Note, now, nb.Actor); err != nil {
 		return scheduling.Booking{}, err
 	}
-	if err := addEvent(ctx, tx, id, now, nb.Actor, "created", "", nil, &scheduling.Interval{Start: nb.Start, End: nb.End}); err != nil {
-		return scheduling.Booking{}, err
-	}
-	return scanBooking(tx.QueryRow(ctx, bookingSelect+` WHERE b.id = $1`, id))
+	return scheduling.Booking{
+		ID: id, InstrumentID: nb.InstrumentID, ProjectID: nb.ProjectID, UserID: nb.UserID, Kind: nb.Kind,
+		Start: nb.Start.UTC(), End: nb.End.UTC(), StaffID: nb.StaffID, SeriesID: nb.SeriesID, Status: scheduling.StatusActive,
+		Note: nb.Note, Displaced: displaced, CreatedAt: now, CreatedBy: nb.Actor, UpdatedAt: now,
+	}, nil
 }
 
 // displace cancels the active bookings a service booking overlaps, recording which
 // service booking displaced them so that the facility can rebook those people.
-func displace(ctx context.Context, tx pgx.Tx, serviceID string, nb scheduling.NewBooking, now time.Time) error {
+func displace(ctx context.Context, tx pgx.Tx, serviceID string, nb scheduling.NewBooking, now time.Time) ([]string, error) {
 	const q = `
 UPDATE bookings SET status = 'cancelled', cancelled_at = $4, cancelled_by = $5, updated_at = $4,
     cancel_reason = 'displaced by service booking', displaced_by = $6
 WHERE instrument_id = $1 AND status = 'active' AND during && tstzrange($2, $3, '[)')
-RETURNING id::text`
+RETURNING id::text, lower(during)`
 	rows, err := tx.Query(ctx, q, nb.InstrumentID, nb.Start, nb.End, now, nb.Actor, serviceID)
 	if err != nil {
-		return err
+		return nil, err
 	}
-	ids, err := pgx.CollectRows(rows, pgx.RowTo[string])
+	type hit struct {
+		ID    string
+		Start time.Time
+	}
+	hits, err := pgx.CollectRows(rows, pgx.RowToStructByPos[hit])
 	if err != nil {
-		return err
+		return nil, err
+	}
+	// In time order, as the booking's answer lists them when read back.
+	slices.SortFunc(hits, func(a, b hit) int { return cmp.Or(a.Start.Compare(b.Start), strings.Compare(a.ID, b.ID)) })
+	ids := make([]string, len(hits))
+	for i, h := range hits {
+		ids[i] = h.ID
 	}
 	for _, id := range ids {
 		if err := addEvent(ctx, tx, id, now, nb.Actor, "displaced", "service booking "+serviceID, nil, nil); err != nil {
-			return err
+			return nil, err
 		}
 	}
-	return nil
+	return ids, nil
 }
 
 // bookingContext reads what the rules need for a booking of userID/projectID on the
@@ -115,8 +131,20 @@ func bookingContext(ctx context.Context, tx pgx.Tx, instrumentID, userID, projec
 	var bc scheduling.BookingContext
 	var zone string
 	var facilityRules, instrumentRules []byte
-	const q = `SELECT f.time_zone, f.booking_rules, i.rules_override FROM facility f, instruments i WHERE f.id = 1 AND i.id = $1`
-	err := tx.QueryRow(ctx, q, instrumentID).Scan(&zone, &facilityRules, &instrumentRules)
+	// One round trip for the facility, the instrument, membership and the booked user's
+	// current qualification (NULL columns when there is none).
+	const q = `
+SELECT f.time_zone, f.booking_rules, i.rules_override, i.bookable, i.name,
+       EXISTS (SELECT 1 FROM project_members m WHERE m.project_id = nullif($3, '')::uuid AND m.user_id = $2),
+       q.id::text, q.level, q.granted_by::text, q.granted_at, q.reason, q.expires_after_idle_days, q.last_used_at
+FROM facility f CROSS JOIN instruments i
+LEFT JOIN qualifications q ON q.user_id = $2 AND q.instrument_id = i.id AND q.revoked_at IS NULL
+WHERE f.id = 1 AND i.id = $1`
+	var qID, qLevel, qBy, qReason *string
+	var qAt, qUsed *time.Time
+	var qIdle *int
+	err := tx.QueryRow(ctx, q, instrumentID, userID, projectID).Scan(&zone, &facilityRules, &instrumentRules, &bc.Bookable,
+		&bc.InstrumentName, &bc.Member, &qID, &qLevel, &qBy, &qAt, &qReason, &qIdle, &qUsed)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return bc, beamledger.NotFound("instrument (or the facility is not set up)")
 	}
@@ -134,8 +162,10 @@ func bookingContext(ctx context.Context, tx pgx.Tx, instrumentID, userID, projec
 		return bc, fmt.Errorf("instrument booking rules: %w", err)
 	}
 	bc.Rules = scheduling.DefaultRules().With(fo).With(io)
-	if bc.Qualification, err = currentQualification(ctx, tx, userID, instrumentID); err != nil {
-		return bc, err
+	if qID != nil {
+		bc.Qualification = &scheduling.Qualification{ID: *qID, UserID: userID, InstrumentID: instrumentID,
+			Level: scheduling.QualificationLevel(*qLevel), GrantedBy: *qBy, GrantedAt: *qAt, Reason: *qReason,
+			ExpiresAfterIdleDays: qIdle, LastUsedAt: qUsed}
 	}
 	if projectID == "" || bc.Rules.PrimeAllowanceMinutesPerWeek == 0 {
 		return bc, nil

@@ -2,7 +2,6 @@ package postgres
 
 import (
 	"context"
-	"errors"
 	"fmt"
 	"strings"
 	"time"
@@ -111,19 +110,6 @@ func (db *DB) Qualifications(ctx context.Context, f scheduling.QualificationFilt
 	}
 	qs, err := pgx.CollectRows(rows, func(r pgx.CollectableRow) (scheduling.Qualification, error) { return scanQualification(r) })
 	return qs, mapError(err, "qualification")
-}
-
-// currentQualification reads the user's unrevoked qualification on the instrument.
-func currentQualification(ctx context.Context, tx pgx.Tx, userID, instrumentID string) (*scheduling.Qualification, error) {
-	const q = `SELECT ` + qualificationColumns + ` FROM qualifications WHERE user_id = $1 AND instrument_id = $2 AND revoked_at IS NULL`
-	qual, err := scanQualification(tx.QueryRow(ctx, q, userID, instrumentID))
-	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, nil
-	}
-	if err != nil {
-		return nil, err
-	}
-	return &qual, nil
 }
 
 func requireInstrument(ctx context.Context, tx pgx.Tx, id string) error {

@@ -44,11 +44,18 @@ func NewDatabase(tb testing.TB) string {
 	return dbURL
 }
 
-// Open is NewDatabase plus postgres.Open; the DB is closed at cleanup.
+// Open is NewDatabase plus postgres.Open with a pool of 8 connections; the DB is
+// closed at cleanup.
 func Open(tb testing.TB) *postgres.DB {
 	tb.Helper()
+	return OpenPool(tb, 8)
+}
+
+// OpenPool is Open with a pool of maxConns connections (benchmarks with many clients).
+func OpenPool(tb testing.TB, maxConns int32) *postgres.DB {
+	tb.Helper()
 	dbURL := NewDatabase(tb)
-	db, err := postgres.Open(context.Background(), dbURL, 8)
+	db, err := postgres.Open(context.Background(), dbURL, maxConns)
 	if err != nil {
 		tb.Fatalf("open test database: %v", err)
 	}
