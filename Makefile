@@ -13,7 +13,7 @@ test: fmt-check
 	$(GO) run ./deploy/testenv -- sh -c '$(GO) vet ./... && $(GO) test -count=1 ./...'
 
 bench:
-	$(GO) run ./deploy/testenv -- $(GO) test -run '^$$' -bench . ./...
+	$(GO) run ./deploy/testenv -- $(GO) test -run '^$$' -bench . -benchtime 3000x ./...
 
 build:
 	$(GO) build -o bin/beamledger ./cmd/beamledger

@@ -37,6 +37,8 @@ type QualificationStore interface {
 
 // NewBooking is a booking to store, its range already resolved to UTC instants.
 type NewBooking struct {
+	// ID is the id to give the booking; storage picks one when empty.
+	ID                                                 string
 	InstrumentID, ProjectID, UserID, StaffID, SeriesID string
 	Kind                                               BookingKind
 	Start, End                                         time.Time

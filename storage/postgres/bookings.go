@@ -45,16 +45,48 @@ func scanBooking(row pgx.Row) (scheduling.Booking, error) {
 
 // CreateBooking implements scheduling.BookingStore.
 func (db *DB) CreateBooking(ctx context.Context, nb scheduling.NewBooking, now time.Time, check func(scheduling.BookingContext) error) (scheduling.Booking, error) {
-	var out scheduling.Booking
-	err := db.retryTx(ctx, func(tx pgx.Tx) error {
-		var err error
-		out, err = createBooking(ctx, tx, nb, now, check)
-		return err
-	})
+	out, err, done := db.createBookingDirect(ctx, nb, now, check)
+	if !done {
+		err = db.retryTx(ctx, func(tx pgx.Tx) error {
+			var err error
+			out, err = createBooking(ctx, tx, nb, now, check)
+			return err
+		})
+	}
 	if err != nil {
 		return out, db.bookingError(ctx, err, nb.InstrumentID, nb.StaffID, nb.Start, nb.End, "")
 	}
 	return out, nil
+}
+
+// createBookingDirect books without an explicit transaction when nothing needs one:
+// the context is read in one statement, the rules are checked, and the booking with
+// its history row is written in a second, which the exclusion constraints guard as
+// always. A read committed transaction would give the rules no stronger view, since
+// it locks nothing it reads. Service bookings (which displace others) and bookings
+// under a prime-time allowance (which take a lock) report done=false and go through
+// createBooking in a transaction.
+func (db *DB) createBookingDirect(ctx context.Context, nb scheduling.NewBooking, now time.Time,
+	check func(scheduling.BookingContext) error) (b scheduling.Booking, err error, done bool) {
+	if nb.Kind == scheduling.KindService {
+		return b, nil, false
+	}
+	bc, err := readBookingContext(ctx, db.pool, nb.InstrumentID, nb.UserID, nb.ProjectID)
+	if err != nil {
+		return b, err, true
+	}
+	if nb.ProjectID != "" && bc.Rules.PrimeAllowanceMinutesPerWeek > 0 {
+		return b, nil, false
+	}
+	if err := check(bc); err != nil {
+		return b, err, true
+	}
+	for attempt := 0; ; attempt++ {
+		b, err = insertBooking(ctx, db.pool, nb, now, nil)
+		if !retryable(err) || attempt == 4 {
+			return b, err, true
+		}
+	}
 }
 
 // createBooking does CreateBooking's work inside tx (series use it per instance).
@@ -66,21 +98,29 @@ func createBooking(ctx context.Context, tx pgx.Tx, nb scheduling.NewBooking, now
 	if err := check(bc); err != nil {
 		return scheduling.Booking{}, err
 	}
-	id := uuid.NewString()
 	var displaced []string
 	if nb.Kind == scheduling.KindService {
-		if displaced, err = displace(ctx, tx, id, nb, now); err != nil {
+		nb.ID = uuid.NewString()
+		if displaced, err = displace(ctx, tx, nb.ID, nb, now); err != nil {
 			return scheduling.Booking{}, err
 		}
 	}
-	// The booking and its "created" event in one statement: one round trip.
+	return insertBooking(ctx, tx, nb, now, displaced)
+}
+
+// insertBooking writes the booking and its "created" event in one statement.
+func insertBooking(ctx context.Context, db querier, nb scheduling.NewBooking, now time.Time, displaced []string) (scheduling.Booking, error) {
+	id := nb.ID
+	if id == "" {
+		id = uuid.NewString()
+	}
 	const q = `
 WITH b AS (
     INSERT INTO bookings (id, instrument_id, project_id, user_id, kind, during, staff_id, series_id, note, created_at, created_by, updated_at)
     VALUES ($1, $2, nullif($3, '')::uuid, $4, $5, tstzrange($6, $7, '[)'), nullif($8, '')::uuid, nullif($9, '')::uuid, $10, $11, $12, $11)
     RETURNING id, during)
 INSERT INTO booking_events (booking_id, at, actor, action, after) SELECT id, $11, $12, 'created', during FROM b`
-	if _, err := tx.Exec(ctx, q, id, nb.InstrumentID, nb.ProjectID, nb.UserID, string(nb.Kind), nb.Start, nb.End,
+	if _, err := db.Exec(ctx, q, id, nb.InstrumentID, nb.ProjectID, nb.UserID, string(nb.Kind), nb.Start, nb.End,
 		nb.StaffID, nb.SeriesID, nb.Note, now, nb.Actor); err != nil {
 		return scheduling.Booking{}, err
 	}
@@ -125,9 +165,29 @@ RETURNING id::text, lower(during)`
 	return ids, nil
 }
 
+// querier is what both a transaction and the pool can do.
+type querier interface {
+	QueryRow(ctx context.Context, sql string, args ...any) pgx.Row
+	Query(ctx context.Context, sql string, args ...any) (pgx.Rows, error)
+	Exec(ctx context.Context, sql string, args ...any) (pgconn.CommandTag, error)
+}
+
 // bookingContext reads what the rules need for a booking of userID/projectID on the
-// instrument starting at start, leaving out booking excludeID (being moved).
+// instrument starting at start, leaving out booking excludeID (being moved), and,
+// when a prime-time allowance applies, takes the project's lock for it.
 func bookingContext(ctx context.Context, tx pgx.Tx, instrumentID, userID, projectID string, start time.Time, excludeID string) (scheduling.BookingContext, error) {
+	bc, err := readBookingContext(ctx, tx, instrumentID, userID, projectID)
+	if err != nil || projectID == "" || bc.Rules.PrimeAllowanceMinutesPerWeek == 0 {
+		return bc, err
+	}
+	bc.PrimeUsedMinutes, err = primeUsed(ctx, tx, bc, instrumentID, projectID, start, excludeID)
+	return bc, err
+}
+
+// readBookingContext reads, in one statement, the facility's zone and rules, the
+// instrument's override, flag and name, membership and the booked user's current
+// qualification. It leaves PrimeUsedMinutes at zero.
+func readBookingContext(ctx context.Context, db querier, instrumentID, userID, projectID string) (scheduling.BookingContext, error) {
 	var bc scheduling.BookingContext
 	var zone string
 	var facilityRules, instrumentRules []byte
@@ -143,7 +203,7 @@ WHERE f.id = 1 AND i.id = $1`
 	var qID, qLevel, qBy, qReason *string
 	var qAt, qUsed *time.Time
 	var qIdle *int
-	err := tx.QueryRow(ctx, q, instrumentID, userID, projectID).Scan(&zone, &facilityRules, &instrumentRules, &bc.Bookable,
+	err := db.QueryRow(ctx, q, instrumentID, userID, projectID).Scan(&zone, &facilityRules, &instrumentRules, &bc.Bookable,
 		&bc.InstrumentName, &bc.Member, &qID, &qLevel, &qBy, &qAt, &qReason, &qIdle, &qUsed)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return bc, beamledger.NotFound("instrument (or the facility is not set up)")
@@ -167,14 +227,17 @@ WHERE f.id = 1 AND i.id = $1`
 			Level: scheduling.QualificationLevel(*qLevel), GrantedBy: *qBy, GrantedAt: *qAt, Reason: *qReason,
 			ExpiresAfterIdleDays: qIdle, LastUsedAt: qUsed}
 	}
-	if projectID == "" || bc.Rules.PrimeAllowanceMinutesPerWeek == 0 {
-		return bc, nil
-	}
-	// Bookings of one project on one instrument take their allowance one at a time.
+	return bc, nil
+}
+
+// primeUsed sums the project's prime-time minutes booked on the instrument in the ISO
+// week of start, after taking a transaction lock so that bookings of one project on
+// one instrument take their allowance one at a time.
+func primeUsed(ctx context.Context, tx pgx.Tx, bc scheduling.BookingContext, instrumentID, projectID string, start time.Time, excludeID string) (int, error) {
 	h := fnv.New64a()
 	h.Write([]byte(projectID + "/" + instrumentID))
 	if _, err := tx.Exec(ctx, `SELECT pg_advisory_xact_lock($1)`, int64(h.Sum64())); err != nil {
-		return bc, err
+		return 0, err
 	}
 	weekStart, weekEnd := scheduling.PeriodBounds(scheduling.PeriodWeek, start, bc.Location)
 	const used = `
@@ -183,17 +246,18 @@ WHERE project_id = $1 AND instrument_id = $2 AND status = 'active' AND id::text 
   AND during && tstzrange($3, $4, '[)')`
 	rows, err := tx.Query(ctx, used, projectID, instrumentID, weekStart, weekEnd, excludeID)
 	if err != nil {
-		return bc, err
+		return 0, err
 	}
 	spans, err := pgx.CollectRows(rows, pgx.RowToStructByPos[scheduling.Interval])
 	if err != nil {
-		return bc, err
+		return 0, err
 	}
+	minutes := 0
 	for _, s := range spans {
 		from, to := maxTime(s.Start, weekStart), minTime(s.End, weekEnd)
-		bc.PrimeUsedMinutes += scheduling.MinutesInside(bc.Rules.PrimeTime, from, to, bc.Location)
+		minutes += scheduling.MinutesInside(bc.Rules.PrimeTime, from, to, bc.Location)
 	}
-	return bc, nil
+	return minutes, nil
 }
 
 func maxTime(a, b time.Time) time.Time {
