@@ -13,6 +13,7 @@ import (
 type BookingStores interface {
 	scheduling.QualificationStore
 	scheduling.BookingStore
+	scheduling.SeriesStore
 }
 
 type demoQualification struct {
@@ -87,6 +88,9 @@ func LoadWeek(ctx context.Context, st Stores, bst BookingStores, now time.Time) 
 	if err != nil || len(existing) > 0 {
 		return err
 	}
+	if err := loadSeries(ctx, bst, loc, monday, users, projects, instruments, staff, now); err != nil {
+		return err
+	}
 	for _, d := range week {
 		day := monday.In(loc).AddDate(0, 0, d.day)
 		start := time.Date(day.Year(), day.Month(), day.Day(), d.from, 0, 0, 0, loc)
@@ -126,4 +130,26 @@ func demoIDs(ctx context.Context, st Stores) (users, projects, instruments map[s
 		instruments[in.Code] = in.ID
 	}
 	return users, projects, instruments, nil
+}
+
+// loadSeries books the demo's recurring session: a weekly TEM slot on Friday
+// afternoons for four weeks, starting in the demo week.
+func loadSeries(ctx context.Context, bst BookingStores, loc *time.Location, monday time.Time,
+	users, projects, instruments map[string]string, staff string, now time.Time) error {
+	friday := monday.In(loc).AddDate(0, 0, 4)
+	start := scheduling.Wall{Year: friday.Year(), Month: friday.Month(), Day: friday.Day(), Hour: 14}
+	spec := scheduling.SeriesSpec{RRule: "FREQ=WEEKLY;COUNT=4;BYDAY=FR", Start: start, Duration: 3 * time.Hour}
+	occs, err := scheduling.Expand(spec, loc, now.AddDate(0, 2, 0), 10)
+	if err != nil {
+		return err
+	}
+	tmpl := scheduling.NewBooking{InstrumentID: instruments["TEM-200"], ProjectID: projects["SSB-INTERFACE"],
+		UserID: users["researcher@demo.example"], Kind: scheduling.KindIndependent, Note: "weekly cross-section survey", Actor: staff}
+	_, err = bst.CreateSeries(ctx, scheduling.NewSeries{Template: tmpl, RRule: spec.RRule, Start: start, TimeZone: loc.String(),
+		Duration: spec.Duration, Occurrences: occs, BookFree: true}, now,
+		func(scheduling.Occurrence, scheduling.BookingContext) error { return nil })
+	if err != nil {
+		return fmt.Errorf("demo series: %w", err)
+	}
+	return nil
 }

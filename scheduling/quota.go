@@ -2,6 +2,7 @@ package scheduling
 
 import (
 	"cmp"
+	"context"
 	"slices"
 	"strings"
 	"time"
@@ -186,4 +187,16 @@ func permille(part, whole int) int {
 		return 0
 	}
 	return (part*1000 + whole/2) / whole
+}
+
+// QuotaStore persists quotas and gathers what the fair-share report needs.
+type QuotaStore interface {
+	// SetQuota creates or replaces the quota of a project on an instrument for a kind
+	// of period. ErrInvalid when the project or instrument is unknown.
+	SetQuota(ctx context.Context, q Quota) (Quota, error)
+	// Quotas lists quotas, of one project when projectID is set.
+	Quotas(ctx context.Context, projectID string) ([]Quota, error)
+	// ShareIntervals returns, per project and instrument, the active non-service
+	// bookings and the usages that overlap [from, to); a usage still open ends at now.
+	ShareIntervals(ctx context.Context, from, to, now time.Time) (booked, used map[ShareKey][]Interval, err error)
 }

@@ -132,6 +132,28 @@ var routeMatrix = map[string]routeExpectation{
 	}},
 	"DELETE /api/v1/instruments/:instrument_id/agent-tokens/:token_id": {who: managerOnly},
 
+	// Booking rules are read by everyone, and by an agent with instrument:read (the
+	// instrument named is the agent's own); only managers change them, and the changes
+	// sent leave valid rules, so the manager's call succeeds.
+	"GET /api/v1/facility/booking-rules": {who: usersAndAgent},
+	"PUT /api/v1/facility/booking-rules": {who: managerOnly, strict: true, body: func(*world) any {
+		return map[string]any{"horizon_days": 60, "prime_time": []any{}}
+	}},
+	"GET /api/v1/instruments/:instrument_id/booking-rules": {who: usersAndAgent},
+	"PUT /api/v1/instruments/:instrument_id/booking-rules": {who: managerOnly, strict: true, body: func(*world) any {
+		return map[string]any{"slot_minutes": 60}
+	}},
+	// The quotas asked for are the foreign project's: hidden from the researcher,
+	// readable by staff and the auditor. Only managers set quotas.
+	"GET /api/v1/quotas": {who: access{wUnauth, wAllow, wAllow, wHidden, wAllow, wDeny}, setup: matrixQuota, query: func(w *world) string {
+		return "project_id=" + w.foreign.ID
+	}},
+	"PUT /api/v1/quotas": {who: managerOnly, strict: true, body: func(w *world) any {
+		return scheduling.Quota{ProjectID: w.foreign.ID, InstrumentID: w.instr.ID, Period: scheduling.PeriodMonth, AllocatedMinutes: 600}
+	}},
+	// Every user reads the report (a researcher only their projects' lines); no agent.
+	"GET /api/v1/reports/fair-share": {who: usersOnly, setup: matrixQuota, query: func(*world) string { return "period=week" }},
+
 	// Researchers see only their own qualifications; agents none.
 	"GET /api/v1/qualifications": {who: usersOnly},
 	"POST /api/v1/instruments/:instrument_id/qualifications": {who: facilityOpsOnly, strict: true, body: func(w *world) any {
@@ -231,6 +253,16 @@ var (
 // matrixQualified qualifies w.other, the foreign project's researcher, on w.instr.
 func matrixQualified(w *world) map[string]string {
 	w.qualify(w.other.ID, scheduling.LevelIndependent)
+	return nil
+}
+
+// matrixQuota gives the foreign project a weekly quota on w.instr, so that the quota
+// routes have something of it to show or hide.
+func matrixQuota(w *world) map[string]string {
+	q := scheduling.Quota{ProjectID: w.foreign.ID, InstrumentID: w.instr.ID, Period: scheduling.PeriodWeek, AllocatedMinutes: 600}
+	if _, err := w.db.SetQuota(context.Background(), q); err != nil {
+		w.t.Fatal(err)
+	}
 	return nil
 }
 

@@ -11,7 +11,9 @@ import (
 	"mime"
 	"net/http"
 	"net/http/httptest"
+	"net/url"
 	"os"
+	"reflect"
 	"slices"
 	"strconv"
 	"strings"
@@ -282,6 +284,8 @@ func TestOpenAPIExamplesExercise(t *testing.T) {
 	exerciseUsage(t, w)
 	exerciseFeeds(t, w)
 	exerciseSeries(t, w)
+	exerciseQuotas(t, w)
+	exerciseBookingRules(t, w)
 
 	// Every documented 2xx of every operation, and some error of each operation that
 	// documents errors, must have been seen.
@@ -1034,4 +1038,188 @@ func exerciseSeries(t *testing.T, w *world) {
 	}
 	w.expect(http.StatusOK, http.MethodGet, series+"/"+part.Series.ID, other, nil, nil)
 	w.expect(http.StatusForbidden, http.MethodPost, series+"/"+part.Series.ID+"/cancel", other, map[string]string{"reason": "not mine"}, nil)
+}
+
+// exerciseQuotas covers quotas and the fair-share report, in a week three weeks after
+// the Tuesday the exercises above book, which only this one books.
+func exerciseQuotas(t *testing.T, w *world) {
+	manager, staff, researcher, auditor := w.tokens[accounts.RoleManager], w.tokens[accounts.RoleStaff], w.tokens[accounts.RoleResearcher], w.tokens[accounts.RoleAuditor]
+	const quotas = "/api/v1/quotas"
+	weekly := scheduling.Quota{ProjectID: w.own.ID, InstrumentID: w.instr.ID, Period: scheduling.PeriodWeek, AllocatedMinutes: 600}
+	var got scheduling.Quota
+	w.expect(http.StatusOK, http.MethodPut, quotas, manager, weekly, &got)
+	if got != weekly {
+		t.Errorf("set quota %+v, want %+v", got, weekly)
+	}
+	// Setting it again replaces it.
+	weekly.AllocatedMinutes = 900
+	w.expect(http.StatusOK, http.MethodPut, quotas, manager, weekly, nil)
+	monthly := scheduling.Quota{ProjectID: w.own.ID, InstrumentID: w.instr.ID, Period: scheduling.PeriodMonth, AllocatedMinutes: 2400}
+	w.expect(http.StatusOK, http.MethodPut, quotas, manager, monthly, nil)
+	foreign := scheduling.Quota{ProjectID: w.foreign.ID, InstrumentID: w.instr.ID, Period: scheduling.PeriodWeek, AllocatedMinutes: 300}
+	w.expect(http.StatusOK, http.MethodPut, quotas, manager, foreign, nil)
+
+	bad := []struct {
+		field string
+		body  map[string]any
+	}{
+		{"period", map[string]any{"project_id": w.own.ID, "instrument_id": w.instr.ID, "period": "fortnight", "allocated_minutes": 60}},
+		{"allocated_minutes", map[string]any{"project_id": w.own.ID, "instrument_id": w.instr.ID, "period": "week", "allocated_minutes": -1}},
+		{"project_id", map[string]any{"project_id": "OWN-1", "instrument_id": w.instr.ID, "period": "week", "allocated_minutes": 60}},
+		{"instrument_id", map[string]any{"project_id": w.own.ID, "period": "week", "allocated_minutes": 60}},
+		{"allocation", map[string]any{"project_id": w.own.ID, "instrument_id": w.instr.ID, "period": "week", "allocation": 60}},
+	}
+	for _, b := range bad {
+		if r := w.expect(http.StatusBadRequest, http.MethodPut, quotas, manager, b.body, nil); !fieldNamed(r, b.field) {
+			t.Errorf("%v: %s does not name %s", b.body, r.Body, b.field)
+		}
+	}
+	unknown := scheduling.Quota{ProjectID: uuid.NewString(), InstrumentID: w.instr.ID, Period: scheduling.PeriodWeek, AllocatedMinutes: 60}
+	if r := w.expect(http.StatusBadRequest, http.MethodPut, quotas, manager, unknown, nil); r.errorCode() != "invalid" {
+		t.Errorf("quota of an unknown project: %s", r.Body)
+	}
+	w.expect(http.StatusForbidden, http.MethodPut, quotas, staff, weekly, nil)
+
+	var all, own list[scheduling.Quota]
+	w.expect(http.StatusOK, http.MethodGet, quotas, auditor, nil, &all)
+	if len(all.Items) != 3 || !slices.Contains(all.Items, weekly) || !slices.Contains(all.Items, monthly) || !slices.Contains(all.Items, foreign) {
+		t.Errorf("every quota: %+v", all.Items)
+	}
+	w.expect(http.StatusOK, http.MethodGet, quotas+"?project_id="+w.own.ID, researcher, nil, &own)
+	if len(own.Items) != 2 || own.Items[0] != monthly || own.Items[1] != weekly {
+		t.Errorf("own project's quotas: %+v, want the monthly then the weekly one", own.Items)
+	}
+	if r := w.expect(http.StatusBadRequest, http.MethodGet, quotas, researcher, nil, nil); !fieldNamed(r, "project_id") {
+		t.Errorf("researcher without project_id: %s", r.Body)
+	}
+	w.expect(http.StatusNotFound, http.MethodGet, quotas+"?project_id="+w.foreign.ID, researcher, nil, nil)
+	w.expect(http.StatusBadRequest, http.MethodGet, quotas+"?project_id=OWN-1", manager, nil, nil)
+	w.expect(http.StatusForbidden, http.MethodGet, quotas, w.agent, nil, nil)
+
+	// Three hours booked of the fifteen allocated in that week; nothing used yet.
+	tuesday := w.nextTuesday(9, 0).AddDate(0, 0, 21)
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/bookings", researcher, w.bookingBody(tuesday, tuesday.Add(3*time.Hour), scheduling.KindIndependent), nil)
+	monday := time.Date(tuesday.Year(), tuesday.Month(), tuesday.Day()-1, 0, 0, 0, 0, berlin)
+	report := "/api/v1/reports/fair-share?period=week&at=" + url.QueryEscape(tuesday.Add(3*time.Hour).Format(time.RFC3339))
+	var lines list[scheduling.ShareLine]
+	w.expect(http.StatusOK, http.MethodGet, report, researcher, nil, &lines)
+	// [constructed] 180 of 900 minutes is 200 per mille.
+	want := scheduling.ShareLine{ProjectID: w.own.ID, InstrumentID: w.instr.ID, AllocatedMinutes: 900, BookedMinutes: 180, BookedPermille: 200}
+	if len(lines.Items) != 1 {
+		t.Fatalf("researcher's fair-share lines: %+v", lines.Items)
+	}
+	l := lines.Items[0]
+	if !l.PeriodStart.Equal(monday) || !l.PeriodEnd.Equal(monday.AddDate(0, 0, 7)) {
+		t.Errorf("week of the report: %s to %s, want from %s", l.PeriodStart, l.PeriodEnd, monday)
+	}
+	l.PeriodStart, l.PeriodEnd = time.Time{}, time.Time{}
+	if l != want {
+		t.Errorf("researcher's line %+v, want %+v", l, want)
+	}
+	// The manager also sees the foreign project's quota, with nothing booked.
+	w.expect(http.StatusOK, http.MethodGet, report, manager, nil, &lines)
+	if len(lines.Items) != 2 {
+		t.Errorf("manager's fair-share lines: %+v, want the researcher's and the foreign project's", lines.Items)
+	}
+	// By default, the month containing now, against the monthly quota.
+	now := w.clock.Now().In(berlin)
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/reports/fair-share", auditor, nil, &lines)
+	var sawMonthly bool
+	for _, l := range lines.Items {
+		if !l.PeriodStart.Equal(time.Date(now.Year(), now.Month(), 1, 0, 0, 0, 0, berlin)) {
+			t.Errorf("default period starts %s, want the 1st of this month", l.PeriodStart)
+		}
+		sawMonthly = sawMonthly || (l.ProjectID == w.own.ID && l.InstrumentID == w.instr.ID && l.AllocatedMinutes == monthly.AllocatedMinutes)
+	}
+	if !sawMonthly {
+		t.Errorf("default report %+v has no line with the monthly quota", lines.Items)
+	}
+
+	if r := w.expect(http.StatusBadRequest, http.MethodGet, "/api/v1/reports/fair-share?period=fortnight", researcher, nil, nil); !fieldNamed(r, "period") {
+		t.Errorf("unknown period: %s", r.Body)
+	}
+	// An unescaped + in the offset arrives as a space.
+	unescaped := "/api/v1/reports/fair-share?at=" + tuesday.Format(time.RFC3339)
+	if !strings.Contains(unescaped, "+") {
+		t.Fatalf("%s has no + to lose", unescaped)
+	}
+	if r := w.expect(http.StatusBadRequest, http.MethodGet, unescaped, researcher, nil, nil); !fieldNamed(r, "at") {
+		t.Errorf("unescaped offset: %s", r.Body)
+	}
+	w.expect(http.StatusForbidden, http.MethodGet, "/api/v1/reports/fair-share", w.agent, nil, nil)
+}
+
+// exerciseBookingRules covers the facility's and an instrument's booking rules: their
+// defaults, changes and invalid changes. It runs last: the rules it leaves would refuse
+// the bookings the exercises above make.
+func exerciseBookingRules(t *testing.T, w *world) {
+	manager, staff, researcher, auditor := w.tokens[accounts.RoleManager], w.tokens[accounts.RoleStaff], w.tokens[accounts.RoleResearcher], w.tokens[accounts.RoleAuditor]
+	const facility = "/api/v1/facility/booking-rules"
+	instrument := "/api/v1/instruments/" + w.instr.ID + "/booking-rules"
+	defaults := scheduling.DefaultRules()
+
+	var got rulesAnswer
+	w.expect(http.StatusOK, http.MethodGet, facility, auditor, nil, &got)
+	if !reflect.DeepEqual(got.Effective, defaults) || !reflect.DeepEqual(got.Override, scheduling.RulesOverride{}) {
+		t.Errorf("facility rules before any change: %+v", got)
+	}
+	w.expect(http.StatusOK, http.MethodGet, facility, w.agent, nil, nil)
+	w.expect(http.StatusUnauthorized, http.MethodGet, facility, "", nil, nil)
+
+	// A longer horizon, and no prime time: [] clears the list, null inherits it.
+	r := w.expect(http.StatusOK, http.MethodPut, facility, manager, map[string]any{"horizon_days": 120, "prime_time": []any{}, "opening_hours": nil}, &got)
+	if got.Effective.HorizonDays != 120 || got.Effective.PrimeTime == nil || len(got.Effective.PrimeTime) != 0 ||
+		!reflect.DeepEqual(got.Effective.OpeningHours, defaults.OpeningHours) || got.Effective.SlotMinutes != defaults.SlotMinutes {
+		t.Errorf("facility rules in force: %+v", got.Effective)
+	}
+	if got.Override.PrimeTime == nil || got.Override.OpeningHours != nil || got.Override.SlotMinutes != nil || !contains(r.Body, `"opening_hours":null`) {
+		t.Errorf("facility override as stored: %s", r.Body)
+	}
+	if r := w.expect(http.StatusBadRequest, http.MethodPut, facility, manager, map[string]any{"slot_minutes": 7}, nil); !fieldNamed(r, "slot_minutes") {
+		t.Errorf("7-minute slots: %s", r.Body)
+	}
+	if r := w.expect(http.StatusBadRequest, http.MethodPut, facility, manager, map[string]any{"slots": 30}, nil); !fieldNamed(r, "slots") {
+		t.Errorf("unknown field: %s", r.Body)
+	}
+	w.expect(http.StatusForbidden, http.MethodPut, facility, staff, map[string]any{}, nil)
+
+	// The instrument books on the hour, for at least two hours, over longer opening
+	// hours; the rest it inherits from the facility.
+	longer := []scheduling.ClockWindow{{Days: []time.Weekday{time.Monday, time.Tuesday, time.Wednesday, time.Thursday, time.Friday}, Start: "07:00", End: "19:00"}}
+	change := map[string]any{"slot_minutes": 60, "min_length_minutes": 120, "opening_hours": longer}
+	var in, read rulesAnswer
+	w.expect(http.StatusOK, http.MethodPut, instrument, manager, change, &in)
+	if e := in.Effective; e.SlotMinutes != 60 || e.MinLengthMinutes != 120 || e.HorizonDays != 120 || len(e.PrimeTime) != 0 || !reflect.DeepEqual(e.OpeningHours, longer) {
+		t.Errorf("instrument rules in force: %+v", e)
+	}
+	w.expect(http.StatusOK, http.MethodGet, instrument, researcher, nil, &read)
+	if !reflect.DeepEqual(read, in) {
+		t.Errorf("instrument rules as read %+v, as set %+v", read, in)
+	}
+	w.expect(http.StatusOK, http.MethodGet, instrument, w.agent, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, "/api/v1/instruments/"+uuid.NewString()+"/booking-rules", researcher, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodPut, "/api/v1/instruments/"+uuid.NewString()+"/booking-rules", manager, change, nil)
+	if r := w.expect(http.StatusBadRequest, http.MethodPut, instrument, manager, map[string]any{"opening_hours": []any{}}, nil); !fieldNamed(r, "opening_hours") {
+		t.Errorf("no opening hours: %s", r.Body)
+	}
+	badWindow := map[string]any{"prime_time": []map[string]any{{"start": "9:00", "end": "17:00"}}}
+	if r := w.expect(http.StatusBadRequest, http.MethodPut, instrument, manager, badWindow, nil); !fieldNamed(r, "prime_time") {
+		t.Errorf("malformed window: %s", r.Body)
+	}
+	w.expect(http.StatusForbidden, http.MethodPut, instrument, staff, change, nil)
+
+	// Facility bookings of at most 90 minutes would leave the instrument's two-hour
+	// shortest booking invalid: refused, naming the instrument, and nothing changes.
+	if r := w.expect(http.StatusBadRequest, http.MethodPut, facility, manager, map[string]any{"max_length_minutes": 90}, nil); !contains(r.Body, w.instr.Code) || !contains(r.Body, "min_length_minutes") {
+		t.Errorf("facility change that breaks an instrument's rules: %s", r.Body)
+	}
+	w.expect(http.StatusOK, http.MethodGet, facility, researcher, nil, &got)
+	if got.Effective.MaxLengthMinutes != defaults.MaxLengthMinutes || got.Effective.HorizonDays != 120 {
+		t.Errorf("facility rules after the refused change: %+v", got.Effective)
+	}
+	// {} returns the facility to the defaults.
+	w.expect(http.StatusOK, http.MethodPut, facility, manager, map[string]any{}, &got)
+	if !reflect.DeepEqual(got.Effective, defaults) {
+		t.Errorf("facility rules after {}: %+v", got.Effective)
+	}
 }

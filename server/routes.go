@@ -54,6 +54,14 @@ func (s *Server) routes() error {
 	add(http.MethodPost, v1+"/instruments/:instrument_id/agent-tokens", users(managers...), s.handleAgentTokenCreate)
 	add(http.MethodDelete, v1+"/instruments/:instrument_id/agent-tokens/:token_id", users(managers...), s.handleAgentTokenRevoke)
 
+	add(http.MethodGet, v1+"/facility/booking-rules", usersOrAgent(accounts.ScopeInstrumentRead, everyone...), s.handleFacilityRulesGet)
+	add(http.MethodPut, v1+"/facility/booking-rules", users(managers...), s.handleFacilityRulesSet)
+	add(http.MethodGet, v1+"/instruments/:instrument_id/booking-rules", usersOrAgent(accounts.ScopeInstrumentRead, everyone...), s.handleInstrumentRulesGet)
+	add(http.MethodPut, v1+"/instruments/:instrument_id/booking-rules", users(managers...), s.handleInstrumentRulesSet)
+	add(http.MethodGet, v1+"/quotas", users(everyone...), s.handleQuotaList)
+	add(http.MethodPut, v1+"/quotas", users(managers...), s.handleQuotaSet)
+	add(http.MethodGet, v1+"/reports/fair-share", users(everyone...), s.handleFairShare)
+
 	add(http.MethodGet, v1+"/qualifications", users(everyone...), s.handleQualificationList)
 	add(http.MethodPost, v1+"/instruments/:instrument_id/qualifications", users(facilityOps...), s.handleQualificationGrant)
 	add(http.MethodPost, v1+"/qualifications/:qualification_id/revoke", users(facilityOps...), s.handleQualificationRevoke)

@@ -133,8 +133,9 @@ func Run(ctx context.Context, cfg Config, store *postgres.DB, log *slog.Logger, 
 	return s.Serve(ctx, ln)
 }
 
-// markNoShows records no-shows every interval until ctx ends. Several processes may
-// run it at once: storage skips bookings another process is marking.
+// markNoShows records no-shows and lapses expired waitlist offers every interval until
+// ctx ends. Several processes may run it at once: storage skips rows another process
+// is working on.
 func (s *Server) markNoShows(ctx context.Context, every time.Duration) {
 	t := time.NewTicker(every)
 	defer t.Stop()
@@ -148,6 +149,12 @@ func (s *Server) markNoShows(ctx context.Context, every time.Duration) {
 				s.log.Warn("marking no-shows failed", slog.Any("error", err))
 			} else if len(ids) > 0 {
 				s.log.Info("no-shows marked", slog.Int("bookings", len(ids)))
+			}
+			lapsed, err := s.store.LapseOffers(ctx, s.now())
+			if err != nil && ctx.Err() == nil {
+				s.log.Warn("lapsing waitlist offers failed", slog.Any("error", err))
+			} else if len(lapsed) > 0 {
+				s.log.Info("waitlist offers lapsed", slog.Int("entries", len(lapsed)))
 			}
 		}
 	}

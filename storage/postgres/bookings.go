@@ -392,6 +392,9 @@ func (db *DB) MoveBooking(ctx context.Context, id string, start, end time.Time, 
 		if err := addEvent(ctx, tx, id, now, actor, "moved", reason, &before, &after); err != nil {
 			return err
 		}
+		if err := offerFreed(ctx, tx, cur.InstrumentID, now, db.window()); err != nil {
+			return err
+		}
 		out, err = scanBooking(tx.QueryRow(ctx, bookingSelect+` WHERE b.id = $1`, id))
 		return err
 	})
@@ -420,6 +423,9 @@ func (db *DB) CancelBooking(ctx context.Context, id, actor, reason string, now t
 			return err
 		}
 		if err := addEvent(ctx, tx, id, now, actor, "cancelled", reason, &scheduling.Interval{Start: cur.Start, End: cur.End}, nil); err != nil {
+			return err
+		}
+		if err := offerFreed(ctx, tx, cur.InstrumentID, now, db.window()); err != nil {
 			return err
 		}
 		out, err = scanBooking(tx.QueryRow(ctx, bookingSelect+` WHERE b.id = $1`, id))

@@ -14,6 +14,8 @@ import (
 // DB is the product's storage: a pgx pool plus the methods of every Store.
 type DB struct {
 	pool *pgxpool.Pool
+	// offerWindow is how long a waitlist offer stays open (see SetOfferWindow).
+	offerWindow time.Duration
 }
 
 var (
