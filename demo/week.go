@@ -14,6 +14,7 @@ type BookingStores interface {
 	scheduling.QualificationStore
 	scheduling.BookingStore
 	scheduling.SeriesStore
+	scheduling.WaitlistStore
 }
 
 type demoQualification struct {
@@ -56,7 +57,7 @@ var week = []demoBooking{
 // LoadWeek grants the demo qualifications and, when the instruments have no bookings
 // in the week of now, books a realistic week: independent, assisted, training,
 // unattended and service time across three instruments.
-func LoadWeek(ctx context.Context, st Stores, bst BookingStores, now time.Time) error {
+func LoadWeek(ctx context.Context, st Stores, bst BookingStores, now time.Time) (err error) {
 	loc, err := time.LoadLocation(Facility.TimeZone)
 	if err != nil {
 		return err
@@ -91,6 +92,11 @@ func LoadWeek(ctx context.Context, st Stores, bst BookingStores, now time.Time) 
 	if err := loadSeries(ctx, bst, loc, monday, users, projects, instruments, staff, now); err != nil {
 		return err
 	}
+	defer func() {
+		if err == nil {
+			err = loadWaitlist(ctx, bst, loc, monday, users, projects, instruments, now)
+		}
+	}()
 	for _, d := range week {
 		day := monday.In(loc).AddDate(0, 0, d.day)
 		start := time.Date(day.Year(), day.Month(), day.Day(), d.from, 0, 0, 0, loc)
@@ -150,6 +156,20 @@ func loadSeries(ctx context.Context, bst BookingStores, loc *time.Location, mond
 		func(scheduling.Occurrence, scheduling.BookingContext) error { return nil })
 	if err != nil {
 		return fmt.Errorf("demo series: %w", err)
+	}
+	return nil
+}
+
+// loadWaitlist puts one request on the waitlist: the second researcher would like
+// Tuesday morning on the TEM, which the first holds.
+func loadWaitlist(ctx context.Context, bst BookingStores, loc *time.Location, monday time.Time,
+	users, projects, instruments map[string]string, now time.Time) error {
+	day := monday.In(loc).AddDate(0, 0, 1)
+	start := time.Date(day.Year(), day.Month(), day.Day(), 10, 0, 0, 0, loc)
+	_, err := bst.JoinWaitlist(ctx, scheduling.WaitlistEntry{InstrumentID: instruments["TEM-200"], ProjectID: projects["CERIA-SAC"],
+		UserID: users["researcher2@demo.example"], Kind: scheduling.KindIndependent, Start: start.UTC(), End: start.Add(time.Hour).UTC()}, now)
+	if err != nil {
+		return fmt.Errorf("demo waitlist entry: %w", err)
 	}
 	return nil
 }

@@ -62,6 +62,9 @@ type BookingContext struct {
 	Bookable, Member bool
 	// InstrumentName names the instrument in messages.
 	InstrumentName string
+	// HeldUntil, when set, says the range overlaps time offered to someone else from
+	// the waitlist, held for them until then.
+	HeldUntil *time.Time
 }
 
 // BookingFilter narrows a booking listing to bookings overlapping [From, To).

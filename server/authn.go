@@ -89,7 +89,7 @@ func (s *Server) authenticate(ctx context.Context, header string) (accounts.Prin
 	if err != nil {
 		return accounts.Principal{}, beamledger.Unauthorized("access token is not valid; sign in or refresh")
 	}
-	st, err := s.store.AuthState(ctx, claims.Subject)
+	st, err := s.auth.state(ctx, claims.Subject, s.store.AuthState)
 	if errors.Is(err, beamledger.ErrNotFound) || (err == nil && (st.Disabled || st.TokenVersion != claims.TokenVersion)) {
 		return accounts.Principal{}, beamledger.Unauthorized("access token is no longer valid; sign in again")
 	}

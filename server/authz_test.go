@@ -212,6 +212,27 @@ var routeMatrix = map[string]routeExpectation{
 		return map[string]string{"reason": "instrument fault"}
 	}},
 
+	// The entry named is w.other's in the foreign project, made by staff while the
+	// matrix booking holds its range: hidden from the researcher (who lists only their
+	// own entries), listed for the auditor, withdrawn or accepted by staff and managers
+	// only. A researcher waiting in a foreign project finds no such project; staff and
+	// managers make w.other an entry there, each for another part of the booked range.
+	"GET /api/v1/waitlist": {who: usersOnly, setup: matrixWaitlistEntry},
+	"POST /api/v1/waitlist": {who: bookers, strict: true, setup: matrixBooking, bodyAs: func(w *world, who string) any {
+		start := w.nextTuesday(map[string]int{"manager": 9, "staff": 10, "researcher": 9}[who], 0)
+		b := w.bookingBody(start, start.Add(time.Hour), scheduling.KindIndependent)
+		b["project_id"] = w.foreign.ID
+		if who != "researcher" {
+			b["user_id"] = w.other.ID
+		}
+		return b
+	}},
+	// The staff member, after the manager, finds the entry withdrawn already: 409.
+	"POST /api/v1/waitlist/:entry_id/withdraw": {who: bookers, setup: matrixWaitlistEntry},
+	// The entry is on offer, its booking cancelled; the staff member, after the
+	// manager, finds it booked already: 409.
+	"POST /api/v1/waitlist/:entry_id/accept": {who: bookers, setup: matrixOfferedEntry},
+
 	// Usage is recorded by the booked user, staff, managers and the instrument's agent
 	// (usage:write); the auditor reads it but records none. The matrix's agent holds
 	// every scope on the booking's instrument. Check-in: the staff member and the
@@ -307,6 +328,35 @@ func matrixSeries(w *world) map[string]string {
 		w.t.Fatalf("matrix series: %d %s", r.StatusCode, r.Body)
 	}
 	return map[string]string{":series_id": res.Series.ID}
+}
+
+// matrixWaitlistEntry is w.other's waitlist entry in the foreign project for the range
+// of matrixBooking, which it returns too, made by staff.
+func matrixWaitlistEntry(w *world) map[string]string {
+	extra := matrixBooking(w)
+	start := w.nextTuesday(9, 0)
+	body := w.bookingBody(start, start.Add(2*time.Hour), scheduling.KindIndependent)
+	body["project_id"], body["user_id"] = w.foreign.ID, w.other.ID
+	var e scheduling.WaitlistEntry
+	if r := w.do(http.MethodPost, "/api/v1/waitlist", w.tokens[accounts.RoleStaff], body, &e); r.StatusCode != http.StatusCreated {
+		w.t.Fatalf("matrix waitlist entry: %d %s", r.StatusCode, r.Body)
+	}
+	extra[":entry_id"] = e.ID
+	return extra
+}
+
+// matrixOfferedEntry is matrixWaitlistEntry on offer: staff cancelled the booking it
+// waited for.
+func matrixOfferedEntry(w *world) map[string]string {
+	extra := matrixWaitlistEntry(w)
+	cancel := "/api/v1/bookings/" + extra[":booking_id"] + "/cancel"
+	if r := w.do(http.MethodPost, cancel, w.tokens[accounts.RoleStaff], map[string]string{"reason": "matrix offer"}, nil); r.StatusCode != http.StatusOK {
+		w.t.Fatalf("cancelling the matrix booking: %d %s", r.StatusCode, r.Body)
+	}
+	if e, err := w.db.WaitlistEntry(context.Background(), extra[":entry_id"]); err != nil || e.Status != scheduling.WaitlistOffered {
+		w.t.Fatalf("matrix waitlist entry after the cancellation: %+v %v", e, err)
+	}
+	return extra
 }
 
 // matrixCheckedIn is matrixBooking with a usage opened ten minutes ago by staff.

@@ -276,3 +276,33 @@ func TestConcurrentConflictingCreates(t *testing.T) {
 }
 
 func contains(b []byte, s string) bool { return len(s) > 0 && strings.Contains(string(b), s) }
+
+// TestBookingAcrossAutumnChangeIsAnHourLonger: 18:00 Saturday to 08:00 Sunday across
+// the autumn change is 14 h of wall time and 15 h of elapsed time.
+func TestBookingAcrossAutumnChangeIsAnHourLonger(t *testing.T) {
+	w := newWorld(t)
+	w.qualify(w.users[accounts.RoleResearcher].ID, scheduling.LevelUnattended)
+	// The next Sunday whose day is 25 h long in Berlin (the last Sunday of October).
+	day := w.clock.Now().In(berlin)
+	for {
+		d0 := time.Date(day.Year(), day.Month(), day.Day(), 0, 0, 0, 0, berlin)
+		if d0.AddDate(0, 0, 1).Sub(d0) == 25*time.Hour {
+			day = d0
+			break
+		}
+		day = day.AddDate(0, 0, 1)
+	}
+	sat := day.AddDate(0, 0, -1)
+	body := map[string]any{"instrument_id": w.instr.ID, "project_id": w.own.ID, "kind": "unattended", "user_id": w.users[accounts.RoleResearcher].ID,
+		"start": fmt.Sprintf("%04d-%02d-%02dT18:00", sat.Year(), sat.Month(), sat.Day()),
+		"end":   fmt.Sprintf("%04d-%02d-%02dT08:00", day.Year(), day.Month(), day.Day())}
+	var b bookingAnswer
+	// Staff book it: the date may lie past the researchers' booking horizon.
+	if r := w.do(http.MethodPost, "/api/v1/bookings", w.tokens[accounts.RoleStaff], body, &b); r.StatusCode != 201 {
+		t.Fatalf("overnight booking: %d %s", r.StatusCode, r.Body)
+	}
+	// [computed] CEST (UTC+2) to CET (UTC+1): 16:00Z to 07:00Z is 15 h elapsed.
+	if got := b.End.Sub(b.Start); got != 15*time.Hour {
+		t.Fatalf("elapsed %s, want 15h (wall clock shows 14 h)", got)
+	}
+}

@@ -54,6 +54,10 @@ type Config struct {
 	// LoginPerAccount and LoginPerAddress throttle failed sign-ins.
 	LoginPerAccount accounts.ThrottleRule
 	LoginPerAddress accounts.ThrottleRule
+	// AuthCacheTTL is how long a process may reuse a user's account state (role,
+	// disabled, token version) before reading it again; changes made through the same
+	// process apply at once. 0 reads it on every request.
+	AuthCacheTTL time.Duration
 	// TrustProxyHeaders takes the client address from X-Forwarded-For; enable only
 	// behind a proxy that sets it.
 	TrustProxyHeaders bool
@@ -91,6 +95,7 @@ func Defaults() Config {
 		IdleTimeout:       120 * time.Second,
 		ShutdownTimeout:   20 * time.Second,
 		HashConcurrency:   2,
+		AuthCacheTTL:      time.Second,
 		MinPasswordLength: accounts.MinPasswordLength,
 		LoginPerAccount:   accounts.ThrottleRule{MaxFailures: 10, Window: 15 * time.Minute},
 		LoginPerAddress:   accounts.ThrottleRule{MaxFailures: 50, Window: 15 * time.Minute},
@@ -142,6 +147,9 @@ func (c Config) Validate() error {
 	}
 	if c.MaxBodyBytes < 1024 {
 		bad("max body size must be at least 1 KiB")
+	}
+	if c.AuthCacheTTL < 0 || c.AuthCacheTTL > 10*time.Second {
+		bad("account-state cache %s must be between 0 and 10s", c.AuthCacheTTL)
 	}
 	if c.HashConcurrency < 1 {
 		bad("hash concurrency must be at least 1")
@@ -262,6 +270,7 @@ func (c Config) LogValue() slog.Value {
 		slog.String("s3_secret_key", redactSecret(c.S3.SecretKey)),
 		slog.Int64("max_body_bytes", c.MaxBodyBytes),
 		slog.Int("hash_concurrency", c.HashConcurrency),
+		slog.Duration("auth_cache_ttl", c.AuthCacheTTL),
 		slog.Bool("trust_proxy_headers", c.TrustProxyHeaders),
 		slog.Bool("demo", c.Demo),
 	)

@@ -219,5 +219,6 @@ func (s *Server) setPassword(ctx context.Context, userID, field, password string
 	if err != nil {
 		return err
 	}
+	defer s.auth.forget(userID)
 	return s.store.SetPasswordHash(ctx, userID, h, true)
 }

@@ -130,6 +130,9 @@ func checkNewBooking(me accounts.Principal, nb scheduling.NewBooking, bc schedul
 		}
 		return beamledger.InvalidField("user_id", "is not a member of the project")
 	}
+	if bc.HeldUntil != nil && nb.Kind != scheduling.KindService {
+		return beamledger.Conflict("part of that time is held for a waitlist offer until %s", bc.HeldUntil.UTC().Format(time.RFC3339))
+	}
 	if !bc.Bookable && nb.Kind != scheduling.KindService {
 		return beamledger.RuleViolation("bookable", bc.InstrumentName+" is not open for booking; only staff book service time on it",
 			map[string]string{"instrument_id": "is not bookable"})

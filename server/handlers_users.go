@@ -101,6 +101,7 @@ func (s *Server) handleUserPatch(c echo.Context) error {
 		return beamledger.Invalid("nothing to change: send at least one of display_name, orcid, role, disabled", nil)
 	}
 	u, err := s.store.UpdateUser(ctx, id, p)
+	s.auth.forget(id)
 	if err != nil {
 		return err
 	}

@@ -285,6 +285,7 @@ func TestOpenAPIExamplesExercise(t *testing.T) {
 	exerciseFeeds(t, w)
 	exerciseSeries(t, w)
 	exerciseQuotas(t, w)
+	exerciseWaitlist(t, w)
 	exerciseBookingRules(t, w)
 
 	// Every documented 2xx of every operation, and some error of each operation that
@@ -1147,6 +1148,140 @@ func exerciseQuotas(t *testing.T, w *world) {
 		t.Errorf("unescaped offset: %s", r.Body)
 	}
 	w.expect(http.StatusForbidden, http.MethodGet, "/api/v1/reports/fair-share", w.agent, nil, nil)
+}
+
+// exerciseWaitlist covers the waitlist: waiting for taken time, the offer made when it
+// frees up, accepting it (refused while a booking rule stands in the way), withdrawing,
+// and who sees which entries. It books a Thursday nine days after the Tuesday the
+// exercises above book, which none of them books.
+func exerciseWaitlist(t *testing.T, w *world) {
+	manager, staff, researcher, auditor := w.tokens[accounts.RoleManager], w.tokens[accounts.RoleStaff], w.tokens[accounts.RoleResearcher], w.tokens[accounts.RoleAuditor]
+	researcherID := w.users[accounts.RoleResearcher].ID
+	other := w.login(w.other.Email, testPassword).AccessToken
+	const waitlist = "/api/v1/waitlist"
+	thursday := w.nextTuesday(9, 0).AddDate(0, 0, 9)
+	// wait asks for a range for w.other in the foreign project.
+	wait := func(start, end time.Time) map[string]any {
+		return map[string]any{"instrument_id": w.instr.ID, "project_id": w.foreign.ID, "kind": "independent",
+			"start": start.Format(time.RFC3339), "end": end.Format(time.RFC3339)}
+	}
+
+	// The researcher holds 09:00–12:00; w.other waits for 10:00–11:00, and a manager
+	// asks for 11:00–12:00 on w.other's behalf.
+	var held bookingAnswer
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/bookings", researcher, w.bookingBody(thursday, thursday.Add(3*time.Hour), scheduling.KindIndependent), &held)
+	var first, second scheduling.WaitlistEntry
+	w.expect(http.StatusCreated, http.MethodPost, waitlist, other, wait(thursday.Add(time.Hour), thursday.Add(2*time.Hour)), &first)
+	if first.Status != scheduling.WaitlistWaiting || first.UserID != w.other.ID || first.ProjectID != w.foreign.ID ||
+		!first.Start.Equal(thursday.Add(time.Hour)) || !first.End.Equal(thursday.Add(2*time.Hour)) || first.OfferExpiresAt != nil {
+		t.Errorf("joined the waitlist %+v", first)
+	}
+	forOther := wait(thursday.Add(2*time.Hour), thursday.Add(3*time.Hour))
+	forOther["user_id"] = w.other.ID
+	w.expect(http.StatusCreated, http.MethodPost, waitlist, manager, forOther, &second)
+	if second.UserID != w.other.ID || second.Status != scheduling.WaitlistWaiting {
+		t.Errorf("joined for w.other %+v", second)
+	}
+
+	// Free time is booked, not waited for; so is service time.
+	w.expect(http.StatusConflict, http.MethodPost, waitlist, other, wait(thursday.Add(4*time.Hour), thursday.Add(5*time.Hour)), nil)
+	service := wait(thursday, thursday.Add(time.Hour))
+	service["kind"] = "service"
+	if r := w.expect(http.StatusBadRequest, http.MethodPost, waitlist, staff, service, nil); !fieldNamed(r, "kind") {
+		t.Errorf("waiting for service time: %s", r.Body)
+	}
+	if r := w.expect(http.StatusBadRequest, http.MethodPost, waitlist, other, wait(thursday.Add(time.Hour), thursday), nil); !fieldNamed(r, "end") {
+		t.Errorf("end before start: %s", r.Body)
+	}
+	// A researcher waits only for themself, in their own projects.
+	w.expect(http.StatusNotFound, http.MethodPost, waitlist, researcher, wait(thursday, thursday.Add(time.Hour)), nil)
+	someoneElse := w.bookingBody(thursday, thursday.Add(time.Hour), scheduling.KindIndependent)
+	someoneElse["user_id"] = w.other.ID
+	w.expect(http.StatusForbidden, http.MethodPost, waitlist, researcher, someoneElse, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, waitlist, auditor, forOther, nil)
+	w.expect(http.StatusUnauthorized, http.MethodPost, waitlist, "", forOther, nil)
+
+	// w.other withdraws the entry made for them; the researcher cannot see it.
+	withdrawSecond := waitlist + "/" + second.ID + "/withdraw"
+	w.expect(http.StatusNotFound, http.MethodPost, withdrawSecond, researcher, nil, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, withdrawSecond, auditor, nil, nil)
+	var withdrawn scheduling.WaitlistEntry
+	w.expect(http.StatusOK, http.MethodPost, withdrawSecond, other, nil, &withdrawn)
+	if withdrawn.ID != second.ID || withdrawn.Status != scheduling.WaitlistWithdrawn {
+		t.Errorf("withdrawn entry %+v", withdrawn)
+	}
+	w.expect(http.StatusConflict, http.MethodPost, withdrawSecond, other, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodPost, waitlist+"/"+uuid.NewString()+"/withdraw", staff, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodPost, waitlist+"/not-a-uuid/withdraw", manager, nil, nil)
+
+	// Nothing is on offer while the time is taken. The researcher cancels: the hour is
+	// offered to w.other for two hours.
+	accept := waitlist + "/" + first.ID + "/accept"
+	w.expect(http.StatusConflict, http.MethodPost, accept, other, nil, nil)
+	w.expect(http.StatusOK, http.MethodPost, "/api/v1/bookings/"+held.ID+"/cancel", researcher, map[string]string{"reason": "Plans changed"}, nil)
+	var open list[scheduling.WaitlistEntry]
+	w.expect(http.StatusOK, http.MethodGet, waitlist+"?instrument_id="+w.instr.ID, staff, nil, &open)
+	if len(open.Items) != 1 || open.Items[0].ID != first.ID || open.Items[0].Status != scheduling.WaitlistOffered ||
+		open.Items[0].OfferExpiresAt == nil || !open.Items[0].OfferExpiresAt.Equal(w.clock.Now().Add(2*time.Hour)) {
+		t.Errorf("open entries after the cancellation: %+v", open.Items)
+	}
+
+	// w.other's qualification on the instrument was revoked above: the offer is refused
+	// under the booking rules and stays open until they are qualified again.
+	if r := w.expect(http.StatusUnprocessableEntity, http.MethodPost, accept, other, nil, nil); ruleOf(r) != "qualification" {
+		t.Errorf("accepting without a qualification: %s", r.Body)
+	}
+	w.expect(http.StatusNotFound, http.MethodPost, accept, researcher, nil, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, accept, auditor, nil, nil)
+	w.qualify(w.other.ID, scheduling.LevelIndependent)
+	var acc offerAccepted
+	w.expect(http.StatusOK, http.MethodPost, accept, other, nil, &acc)
+	b := acc.Booking
+	if acc.Entry.ID != first.ID || acc.Entry.Status != scheduling.WaitlistBooked || acc.Entry.BookingID != b.ID || b.ID == "" ||
+		b.UserID != w.other.ID || b.ProjectID != w.foreign.ID || b.Kind != scheduling.KindIndependent || b.Status != scheduling.StatusActive ||
+		!b.Start.Equal(first.Start) || !b.End.Equal(first.End) || b.CreatedBy != w.other.ID || b.Note != "booked from the waitlist" {
+		t.Errorf("accepted offer %+v", acc)
+	}
+	w.expect(http.StatusConflict, http.MethodPost, accept, other, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodPost, waitlist+"/"+uuid.NewString()+"/accept", manager, nil, nil)
+
+	// The researcher now waits for the hour w.other booked. Researchers list only their
+	// own entries; the others list everyone's, closed ones when asked.
+	var mine scheduling.WaitlistEntry
+	w.expect(http.StatusCreated, http.MethodPost, waitlist, researcher, w.bookingBody(first.Start, first.End, scheduling.KindIndependent), &mine)
+	ids := func(token, query string) []string {
+		t.Helper()
+		var l list[scheduling.WaitlistEntry]
+		w.expect(http.StatusOK, http.MethodGet, waitlist+query, token, nil, &l)
+		var out []string
+		for _, e := range l.Items {
+			out = append(out, e.ID)
+		}
+		return out
+	}
+	if got := ids(researcher, "?include_closed=true"); !slices.Equal(got, []string{mine.ID}) {
+		t.Errorf("researcher's entries %v, want only %s", got, mine.ID)
+	}
+	if got := ids(other, "?include_closed=true"); !slices.Equal(got, []string{first.ID, second.ID}) {
+		t.Errorf("w.other's entries %v, want %s then %s", got, first.ID, second.ID)
+	}
+	if got := ids(auditor, "?include_closed=true&instrument_id="+w.instr.ID); !slices.Equal(got, []string{first.ID, second.ID, mine.ID}) {
+		t.Errorf("every entry, oldest first: %v", got)
+	}
+	if got := ids(manager, ""); !slices.Equal(got, []string{mine.ID}) {
+		t.Errorf("open entries %v, want only %s", got, mine.ID)
+	}
+	if r := w.expect(http.StatusBadRequest, http.MethodGet, waitlist+"?instrument_id=STEM-T", auditor, nil, nil); !fieldNamed(r, "instrument_id") {
+		t.Errorf("instrument code for an id: %s", r.Body)
+	}
+	w.expect(http.StatusForbidden, http.MethodGet, waitlist, w.agent, nil, nil)
+	w.expect(http.StatusUnauthorized, http.MethodGet, waitlist, "", nil, nil)
+
+	// Staff withdraw anyone's entry.
+	w.expect(http.StatusOK, http.MethodPost, waitlist+"/"+mine.ID+"/withdraw", staff, nil, &withdrawn)
+	if withdrawn.Status != scheduling.WaitlistWithdrawn || withdrawn.UserID != researcherID {
+		t.Errorf("entry withdrawn by staff %+v", withdrawn)
+	}
 }
 
 // exerciseBookingRules covers the facility's and an instrument's booking rules: their

@@ -24,6 +24,7 @@ type Server struct {
 	echo   *echo.Echo
 	hasher *accounts.PasswordHasher
 	tokens *tokenSigner
+	auth   *authCache
 	pages  *web.Pages
 	// openapi is the API description as JSON, converted once at start.
 	openapi []byte
@@ -43,6 +44,7 @@ func New(cfg Config, store *postgres.DB, log *slog.Logger, now func() time.Time)
 		log:    log,
 		hasher: accounts.NewPasswordHasher(accounts.DefaultPasswordParams(), cfg.HashConcurrency),
 		tokens: newTokenSigner(cfg, now),
+		auth:   newAuthCache(cfg.AuthCacheTTL),
 		now:    now,
 		rules:  map[string]rule{},
 	}

@@ -98,6 +98,7 @@ func serverFlags(fs *flag.FlagSet, cfg *server.Config) func() error {
 	e.boolean(&cfg.S3.UseTLS, "s3-tls", "BEAMLEDGER_S3_TLS", "use TLS to reach S3")
 	e.boolean(&cfg.S3.PathStyle, "s3-path-style", "BEAMLEDGER_S3_PATH_STYLE", "path-style S3 addressing")
 	e.integer(&cfg.MaxBodyBytes, "max-body-bytes", "BEAMLEDGER_MAX_BODY_BYTES", "largest JSON request body")
+	e.duration(&cfg.AuthCacheTTL, "auth-cache-ttl", "BEAMLEDGER_AUTH_CACHE_TTL", "how long a process reuses a user's account state (0: every request)")
 	e.boolean(&cfg.TrustProxyHeaders, "trust-proxy-headers", "BEAMLEDGER_TRUST_PROXY_HEADERS", "take client addresses from X-Forwarded-For")
 	hashN := int64(cfg.HashConcurrency)
 	e.integer(&hashN, "hash-concurrency", "BEAMLEDGER_HASH_CONCURRENCY", "password hashes computed at once")

@@ -71,7 +71,7 @@ func (db *DB) createBookingDirect(ctx context.Context, nb scheduling.NewBooking,
 	if nb.Kind == scheduling.KindService {
 		return b, nil, false
 	}
-	bc, err := readBookingContext(ctx, db.pool, nb.InstrumentID, nb.UserID, nb.ProjectID)
+	bc, err := readBookingContext(ctx, db.pool, nb.InstrumentID, nb.UserID, nb.ProjectID, nb.Start, nb.End, now)
 	if err != nil {
 		return b, err, true
 	}
@@ -91,7 +91,7 @@ func (db *DB) createBookingDirect(ctx context.Context, nb scheduling.NewBooking,
 
 // createBooking does CreateBooking's work inside tx (series use it per instance).
 func createBooking(ctx context.Context, tx pgx.Tx, nb scheduling.NewBooking, now time.Time, check func(scheduling.BookingContext) error) (scheduling.Booking, error) {
-	bc, err := bookingContext(ctx, tx, nb.InstrumentID, nb.UserID, nb.ProjectID, nb.Start, "")
+	bc, err := bookingContext(ctx, tx, nb.InstrumentID, nb.UserID, nb.ProjectID, nb.Start, nb.End, now, "")
 	if err != nil {
 		return scheduling.Booking{}, err
 	}
@@ -175,8 +175,8 @@ type querier interface {
 // bookingContext reads what the rules need for a booking of userID/projectID on the
 // instrument starting at start, leaving out booking excludeID (being moved), and,
 // when a prime-time allowance applies, takes the project's lock for it.
-func bookingContext(ctx context.Context, tx pgx.Tx, instrumentID, userID, projectID string, start time.Time, excludeID string) (scheduling.BookingContext, error) {
-	bc, err := readBookingContext(ctx, tx, instrumentID, userID, projectID)
+func bookingContext(ctx context.Context, tx pgx.Tx, instrumentID, userID, projectID string, start, end, now time.Time, excludeID string) (scheduling.BookingContext, error) {
+	bc, err := readBookingContext(ctx, tx, instrumentID, userID, projectID, start, end, now)
 	if err != nil || projectID == "" || bc.Rules.PrimeAllowanceMinutesPerWeek == 0 {
 		return bc, err
 	}
@@ -187,7 +187,7 @@ func bookingContext(ctx context.Context, tx pgx.Tx, instrumentID, userID, projec
 // readBookingContext reads, in one statement, the facility's zone and rules, the
 // instrument's override, flag and name, membership and the booked user's current
 // qualification. It leaves PrimeUsedMinutes at zero.
-func readBookingContext(ctx context.Context, db querier, instrumentID, userID, projectID string) (scheduling.BookingContext, error) {
+func readBookingContext(ctx context.Context, db querier, instrumentID, userID, projectID string, start, end, now time.Time) (scheduling.BookingContext, error) {
 	var bc scheduling.BookingContext
 	var zone string
 	var facilityRules, instrumentRules []byte
@@ -196,15 +196,17 @@ func readBookingContext(ctx context.Context, db querier, instrumentID, userID, p
 	const q = `
 SELECT f.time_zone, f.booking_rules, i.rules_override, i.bookable, i.name,
        EXISTS (SELECT 1 FROM project_members m WHERE m.project_id = nullif($3, '')::uuid AND m.user_id = $2),
-       q.id::text, q.level, q.granted_by::text, q.granted_at, q.reason, q.expires_after_idle_days, q.last_used_at
+       q.id::text, q.level, q.granted_by::text, q.granted_at, q.reason, q.expires_after_idle_days, q.last_used_at,
+       (SELECT max(o.offer_expires_at) FROM waitlist_entries o WHERE o.instrument_id = i.id AND o.status = 'offered'
+           AND o.offer_expires_at > $6 AND o.user_id <> $2 AND o.during && tstzrange($4, $5, '[)'))
 FROM facility f CROSS JOIN instruments i
 LEFT JOIN qualifications q ON q.user_id = $2 AND q.instrument_id = i.id AND q.revoked_at IS NULL
 WHERE f.id = 1 AND i.id = $1`
 	var qID, qLevel, qBy, qReason *string
 	var qAt, qUsed *time.Time
 	var qIdle *int
-	err := db.QueryRow(ctx, q, instrumentID, userID, projectID).Scan(&zone, &facilityRules, &instrumentRules, &bc.Bookable,
-		&bc.InstrumentName, &bc.Member, &qID, &qLevel, &qBy, &qAt, &qReason, &qIdle, &qUsed)
+	err := db.QueryRow(ctx, q, instrumentID, userID, projectID, start, end, now).Scan(&zone, &facilityRules, &instrumentRules, &bc.Bookable,
+		&bc.InstrumentName, &bc.Member, &qID, &qLevel, &qBy, &qAt, &qReason, &qIdle, &qUsed, &bc.HeldUntil)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return bc, beamledger.NotFound("instrument (or the facility is not set up)")
 	}
@@ -377,7 +379,7 @@ func (db *DB) MoveBooking(ctx context.Context, id string, start, end time.Time, 
 		if cur.Status != scheduling.StatusActive {
 			return beamledger.Conflict("the booking is cancelled; make a new one")
 		}
-		bc, err := bookingContext(ctx, tx, cur.InstrumentID, cur.UserID, cur.ProjectID, start, id)
+		bc, err := bookingContext(ctx, tx, cur.InstrumentID, cur.UserID, cur.ProjectID, start, end, now, id)
 		if err != nil {
 			return err
 		}

@@ -148,6 +148,15 @@ RETURNING id::text, lower(during), upper(during)`
 		if err != nil {
 			return err
 		}
+		if len(cs) > 0 {
+			var instrumentID string
+			if err := tx.QueryRow(ctx, `SELECT instrument_id::text FROM series WHERE id = $1`, id).Scan(&instrumentID); err != nil {
+				return err
+			}
+			if err := offerFreed(ctx, tx, instrumentID, now, db.window()); err != nil {
+				return err
+			}
+		}
 		for _, c := range cs {
 			if err := addEvent(ctx, tx, c.ID, now, actor, "cancelled", reason, &scheduling.Interval{Start: c.Start, End: c.End}, nil); err != nil {
 				return err

@@ -46,6 +46,9 @@ func scanWaitlist(row pgx.Row) (scheduling.WaitlistEntry, error) {
 func (db *DB) JoinWaitlist(ctx context.Context, e scheduling.WaitlistEntry, now time.Time) (scheduling.WaitlistEntry, error) {
 	var out scheduling.WaitlistEntry
 	err := pgx.BeginFunc(ctx, db.pool, func(tx pgx.Tx) error {
+		if err := requireInstrument(ctx, tx, e.InstrumentID); err != nil {
+			return err
+		}
 		var taken bool
 		const q = `SELECT EXISTS (SELECT 1 FROM bookings WHERE instrument_id = $1 AND status = 'active' AND during && tstzrange($2, $3, '[)'))`
 		if err := tx.QueryRow(ctx, q, e.InstrumentID, e.Start, e.End).Scan(&taken); err != nil {
@@ -94,7 +97,7 @@ func (db *DB) WaitlistEntries(ctx context.Context, f scheduling.WaitlistFilter) 
 	if len(conds) > 0 {
 		q += ` WHERE ` + strings.Join(conds, " AND ")
 	}
-	rows, err := db.pool.Query(ctx, q+` ORDER BY created_at, id LIMIT 1000`, args...)
+	rows, err := db.pool.Query(ctx, q+` ORDER BY seq LIMIT 1000`, args...)
 	if err != nil {
 		return nil, mapError(err, "waitlist entry")
 	}
@@ -141,7 +144,10 @@ func (db *DB) AcceptOffer(ctx context.Context, id, actor string, now time.Time, 
 		if err != nil {
 			return err
 		}
-		if cur.Status != scheduling.WaitlistOffered || cur.OfferExpiresAt == nil || !now.Before(*cur.OfferExpiresAt) {
+		switch {
+		case cur.Status == scheduling.WaitlistOffered && cur.OfferExpiresAt != nil && !now.Before(*cur.OfferExpiresAt):
+			return beamledger.Conflict("the offer lapsed at %s", cur.OfferExpiresAt.UTC().Format(time.RFC3339))
+		case cur.Status != scheduling.WaitlistOffered:
 			return beamledger.Conflict("the entry is not on offer (it is %s)", cur.Status)
 		}
 		nb := scheduling.NewBooking{InstrumentID: cur.InstrumentID, ProjectID: cur.ProjectID, UserID: cur.UserID, StaffID: cur.StaffID,
@@ -196,7 +202,7 @@ func offerFreed(ctx context.Context, tx pgx.Tx, instrumentID string, now time.Ti
 	const q = `
 SELECT id::text FROM waitlist_entries w
 WHERE w.instrument_id = $1 AND w.status = 'waiting' AND upper(w.during) > $2
-ORDER BY w.created_at, w.id FOR UPDATE SKIP LOCKED`
+ORDER BY w.seq FOR UPDATE SKIP LOCKED`
 	rows, err := tx.Query(ctx, q, instrumentID, now)
 	if err != nil {
 		return err
