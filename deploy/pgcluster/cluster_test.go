@@ -364,3 +364,36 @@ func assertOwnedByPostgres(t *testing.T, dir string) {
 		t.Errorf("%s: uid %d mode %o; want %s's, 0700", dir, st.Uid, fi.Mode().Perm(), serverUserName)
 	}
 }
+
+// TestDeletedLinkStartsAfresh: deleting the data directory (its link, when the cluster
+// lives elsewhere) and starting again gives a fresh cluster with the new password, not
+// the orphaned old one.
+func TestDeletedLinkStartsAfresh(t *testing.T) {
+	if os.Geteuid() != 0 {
+		t.Skip("the link layout is used only when running as root")
+	}
+	ctx := context.Background()
+	parent := t.TempDir() // 0700 and root's: unreachable by the server user
+	dataDir := filepath.Join(parent, "pg")
+	c, err := Start(ctx, Options{DataDir: dataDir, Password: "first-password-123"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	real := c.RealDir
+	t.Cleanup(func() { os.RemoveAll(real) })
+	if err := c.Stop(); err != nil {
+		t.Fatal(err)
+	}
+	if err := os.Remove(dataDir); err != nil {
+		t.Fatal(err)
+	}
+	c2, err := Start(ctx, Options{DataDir: dataDir, Password: "second-password-456"})
+	if err != nil {
+		t.Fatalf("second start after deleting the link: %v", err)
+	}
+	defer c2.Stop()
+	out, err := exec.Command(filepath.Join(c2.Binaries.Dir, "psql"), c2.URL("postgres"), "-Atc", "SELECT 1").CombinedOutput()
+	if err != nil || strings.TrimSpace(string(out)) != "1" {
+		t.Fatalf("connect with the new password: %v %s", err, out)
+	}
+}

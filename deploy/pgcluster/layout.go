@@ -77,6 +77,16 @@ func place(opts Options, acct account, log io.Writer) (placement, error) {
 		}
 	}
 	pl.realDir = filepath.Join(ClusterRoot, clusterName(abs))
+	// A cluster there with no link to it is what is left after someone deleted the
+	// data directory (rm -rf .data to start afresh): its link, and the password beside
+	// it, are gone, so it is discarded too rather than reused with credentials nobody
+	// has any more.
+	if _, err := os.Stat(pl.realDir); err == nil {
+		fmt.Fprintf(log, "pgcluster: discarding %s, left behind by a deleted %s\n", pl.realDir, abs)
+		if err := os.RemoveAll(pl.realDir); err != nil {
+			return placement{}, err
+		}
+	}
 	if err := prepareDataDir(pl.realDir, acct); err != nil {
 		return placement{}, err
 	}
