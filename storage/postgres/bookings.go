@@ -325,38 +325,26 @@ func (db *DB) Booking(ctx context.Context, id string) (scheduling.Booking, error
 
 // Bookings implements scheduling.BookingStore.
 func (db *DB) Bookings(ctx context.Context, f scheduling.BookingFilter) ([]scheduling.Booking, error) {
-	var conds []string
-	var args []any
-	arg := func(v any) string { args = append(args, v); return fmt.Sprintf("$%d", len(args)) }
-	for _, c := range []struct{ col, val string }{
-		{"b.instrument_id", f.InstrumentID}, {"b.user_id", f.UserID}, {"b.project_id", f.ProjectID}, {"b.series_id", f.SeriesID},
-	} {
-		if c.val == "" {
-			continue
-		}
-		if !accounts.ValidID(c.val) {
-			return nil, beamledger.InvalidField(strings.TrimPrefix(c.col, "b."), "must be an id")
-		}
-		conds = append(conds, c.col+" = "+arg(c.val))
+	var w filter
+	if err := w.ids([2]string{"b.instrument_id", f.InstrumentID}, [2]string{"b.user_id", f.UserID},
+		[2]string{"b.project_id", f.ProjectID}, [2]string{"b.series_id", f.SeriesID}); err != nil {
+		return nil, err
 	}
 	if !f.From.IsZero() || !f.To.IsZero() {
-		var from, to any
+		var from, to any // nil: unbounded on that side
 		if !f.From.IsZero() {
 			from = f.From
 		}
 		if !f.To.IsZero() {
 			to = f.To
 		}
-		conds = append(conds, fmt.Sprintf("b.during && tstzrange(%s::timestamptz, %s::timestamptz, '[)')", arg(from), arg(to)))
+		w.where(fmt.Sprintf("b.during && tstzrange(%s::timestamptz, %s::timestamptz, '[)')", w.arg(from), w.arg(to)))
 	}
 	if !f.IncludeCancelled {
-		conds = append(conds, "b.status = 'active'")
+		w.where("b.status = 'active'")
 	}
-	q := bookingSelect
-	if len(conds) > 0 {
-		q += ` WHERE ` + strings.Join(conds, " AND ")
-	}
-	rows, err := db.pool.Query(ctx, q+` ORDER BY lower(b.during), b.id LIMIT 5000`, args...)
+	q := bookingSelect + w.sql()
+	rows, err := db.pool.Query(ctx, q+` ORDER BY lower(b.during), b.id LIMIT 5000`, w.args...)
 	if err != nil {
 		return nil, mapError(err, "booking")
 	}

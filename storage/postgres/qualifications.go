@@ -2,8 +2,6 @@ package postgres
 
 import (
 	"context"
-	"fmt"
-	"strings"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -85,26 +83,15 @@ func (db *DB) Qualification(ctx context.Context, id string) (scheduling.Qualific
 
 // Qualifications implements scheduling.QualificationStore.
 func (db *DB) Qualifications(ctx context.Context, f scheduling.QualificationFilter) ([]scheduling.Qualification, error) {
-	var conds []string
-	var args []any
-	for _, c := range []struct{ col, val string }{{"user_id", f.UserID}, {"instrument_id", f.InstrumentID}} {
-		if c.val == "" {
-			continue
-		}
-		if !accounts.ValidID(c.val) {
-			return nil, beamledger.InvalidField(strings.TrimSuffix(c.col, "_id")+"_id", "must be an id")
-		}
-		args = append(args, c.val)
-		conds = append(conds, fmt.Sprintf("%s = $%d", c.col, len(args)))
+	var w filter
+	if err := w.ids([2]string{"user_id", f.UserID}, [2]string{"instrument_id", f.InstrumentID}); err != nil {
+		return nil, err
 	}
 	if !f.IncludeRevoked {
-		conds = append(conds, "revoked_at IS NULL")
+		w.where("revoked_at IS NULL")
 	}
-	q := `SELECT ` + qualificationColumns + ` FROM qualifications`
-	if len(conds) > 0 {
-		q += ` WHERE ` + strings.Join(conds, " AND ")
-	}
-	rows, err := db.pool.Query(ctx, q+` ORDER BY granted_at DESC, id`, args...)
+	q := `SELECT ` + qualificationColumns + ` FROM qualifications` + w.sql()
+	rows, err := db.pool.Query(ctx, q+` ORDER BY granted_at DESC, id`, w.args...)
 	if err != nil {
 		return nil, mapError(err, "qualification")
 	}

@@ -2,8 +2,6 @@ package postgres
 
 import (
 	"context"
-	"fmt"
-	"strings"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -78,26 +76,15 @@ func (db *DB) WaitlistEntry(ctx context.Context, id string) (scheduling.Waitlist
 
 // WaitlistEntries implements scheduling.WaitlistStore.
 func (db *DB) WaitlistEntries(ctx context.Context, f scheduling.WaitlistFilter) ([]scheduling.WaitlistEntry, error) {
-	var conds []string
-	var args []any
-	for _, c := range []struct{ col, val string }{{"instrument_id", f.InstrumentID}, {"user_id", f.UserID}} {
-		if c.val == "" {
-			continue
-		}
-		if !accounts.ValidID(c.val) {
-			return nil, beamledger.InvalidField(c.col, "must be an id")
-		}
-		args = append(args, c.val)
-		conds = append(conds, fmt.Sprintf("%s = $%d", c.col, len(args)))
+	var w filter
+	if err := w.ids([2]string{"instrument_id", f.InstrumentID}, [2]string{"user_id", f.UserID}); err != nil {
+		return nil, err
 	}
 	if !f.IncludeClosed {
-		conds = append(conds, "status IN ('waiting', 'offered')")
+		w.where("status IN ('waiting', 'offered')")
 	}
-	q := `SELECT ` + waitlistColumns + ` FROM waitlist_entries`
-	if len(conds) > 0 {
-		q += ` WHERE ` + strings.Join(conds, " AND ")
-	}
-	rows, err := db.pool.Query(ctx, q+` ORDER BY seq LIMIT 1000`, args...)
+	q := `SELECT ` + waitlistColumns + ` FROM waitlist_entries` + w.sql()
+	rows, err := db.pool.Query(ctx, q+` ORDER BY seq LIMIT 1000`, w.args...)
 	if err != nil {
 		return nil, mapError(err, "waitlist entry")
 	}
