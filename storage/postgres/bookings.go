@@ -71,7 +71,14 @@ func (db *DB) createBookingDirect(ctx context.Context, nb scheduling.NewBooking,
 	if nb.Kind == scheduling.KindService {
 		return b, nil, false
 	}
-	bc, err := readBookingContext(ctx, db.pool, nb.InstrumentID, nb.UserID, nb.ProjectID, nb.Start, nb.End, now)
+	// One connection for both statements: a second wait in the pool's queue would
+	// double the time a busy server spends waiting for connections.
+	conn, err := db.pool.Acquire(ctx)
+	if err != nil {
+		return b, err, true
+	}
+	defer conn.Release()
+	bc, err := readBookingContext(ctx, conn, nb.InstrumentID, nb.UserID, nb.ProjectID, nb.Start, nb.End, now)
 	if err != nil {
 		return b, err, true
 	}
@@ -82,9 +89,10 @@ func (db *DB) createBookingDirect(ctx context.Context, nb scheduling.NewBooking,
 		return b, err, true
 	}
 	for attempt := 0; ; attempt++ {
-		b, err = insertBooking(ctx, db.pool, nb, now, nil)
+		b, err = insertBooking(ctx, conn, nb, now, nil)
 		if !retryable(err) || attempt == 4 {
-			return b, err, true
+			// Name the range hit while the connection is still ours.
+			return b, bookingError(ctx, conn, err, nb.InstrumentID, nb.StaffID, nb.Start, nb.End, ""), true
 		}
 	}
 }
@@ -292,6 +300,10 @@ func addEvent(ctx context.Context, tx pgx.Tx, bookingID string, at time.Time, ac
 // conflicts with (only the range: the other booking's owner is none of the caller's
 // business). It reads the conflicting booking after the failed transaction.
 func (db *DB) bookingError(ctx context.Context, err error, instrumentID, staffID string, start, end time.Time, excludeID string) error {
+	return bookingError(ctx, db.pool, err, instrumentID, staffID, start, end, excludeID)
+}
+
+func bookingError(ctx context.Context, q querier, err error, instrumentID, staffID string, start, end time.Time, excludeID string) error {
 	var pgErr *pgconn.PgError
 	if !errors.As(err, &pgErr) || pgErr.Code != exclusionViolation {
 		return mapError(err, "booking")
@@ -300,11 +312,11 @@ func (db *DB) bookingError(ctx context.Context, err error, instrumentID, staffID
 	if pgErr.ConstraintName == "bookings_staff_no_overlap" {
 		col, what, id = "staff_id", "the staff member is assisting or training elsewhere", staffID
 	}
-	q := `SELECT lower(during), upper(during) FROM bookings
+	sql := `SELECT lower(during), upper(during) FROM bookings
 WHERE ` + col + ` = $1 AND status = 'active' AND during && tstzrange($2, $3, '[)') AND id::text <> $4
 ORDER BY lower(during) LIMIT 1`
 	var iv scheduling.Interval
-	if qerr := db.pool.QueryRow(ctx, q, id, start, end, excludeID).Scan(&iv.Start, &iv.End); qerr != nil {
+	if qerr := q.QueryRow(ctx, sql, id, start, end, excludeID).Scan(&iv.Start, &iv.End); qerr != nil {
 		return beamledger.Conflict("%s for part of that time", what)
 	}
 	return &beamledger.Error{
