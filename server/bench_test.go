@@ -119,9 +119,10 @@ func runClients(b *testing.B, op func(r *rand.Rand) (created bool, err error)) {
 // booking's transaction, history. Run with `make bench`; compare creates/s and p99-ms
 // of the two sub-benchmarks.
 //
-// The HTTP path issues two statements per booking, the rules context and the insert
-// with its history row (the account check is cached for a second per process), and a
-// third on conflicts to name the range hit; the anchor issues one. Clients, server and
+// The HTTP path issues two statements per booking on one pooled connection, the rules
+// context and the insert with its history row (the account check is cached for a
+// second per process), and a third on conflicts to name the range hit; the anchor
+// issues one. Clients, server and
 // database share the machine's cores, so the gap is mostly PostgreSQL executing the
 // extra statements, and the tail is Go work queueing behind it for CPU.
 func BenchmarkBookingCreate(b *testing.B) {
