@@ -128,3 +128,18 @@ func (f FieldErrors) Err() error {
 	}
 	return Invalid(msg, f)
 }
+
+// FieldReason is the per-field reason of a single-field Invalid error (what a caller
+// folds into its own FieldErrors), else the error's message.
+func FieldReason(err error) string {
+	var e *Error
+	if errors.As(err, &e) {
+		if len(e.Fields) == 1 {
+			for _, v := range e.Fields {
+				return v
+			}
+		}
+		return e.Error()
+	}
+	return err.Error()
+}

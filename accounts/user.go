@@ -1,7 +1,6 @@
 package accounts
 
 import (
-	"errors"
 	"strings"
 	"time"
 	"unicode/utf8"
@@ -35,7 +34,7 @@ type NewUser struct {
 func (n *NewUser) Normalize(minPasswordLen int) error {
 	fe := beamledger.FieldErrors{}
 	if email, err := NormalizeEmail(n.Email); err != nil {
-		fe.Add("email", fieldReason(err))
+		fe.Add("email", beamledger.FieldReason(err))
 	} else {
 		n.Email = email
 	}
@@ -45,7 +44,7 @@ func (n *NewUser) Normalize(minPasswordLen int) error {
 	}
 	if n.ORCID != "" {
 		if id, err := ParseORCID(n.ORCID); err != nil {
-			fe.Add("orcid", fieldReason(err))
+			fe.Add("orcid", beamledger.FieldReason(err))
 		} else {
 			n.ORCID = id
 		}
@@ -54,7 +53,7 @@ func (n *NewUser) Normalize(minPasswordLen int) error {
 		fe.Add("role", "must be one of manager, staff, researcher, auditor")
 	}
 	if err := CheckPasswordPolicy(n.Password, minPasswordLen); err != nil {
-		fe.Add("password", fieldReason(err))
+		fe.Add("password", beamledger.FieldReason(err))
 	}
 	return fe.Err()
 }
@@ -79,7 +78,7 @@ func (p *UserPatch) Normalize() error {
 	}
 	if p.ORCID != nil && strings.TrimSpace(*p.ORCID) != "" {
 		if id, err := ParseORCID(*p.ORCID); err != nil {
-			fe.Add("orcid", fieldReason(err))
+			fe.Add("orcid", beamledger.FieldReason(err))
 		} else {
 			p.ORCID = &id
 		}
@@ -114,15 +113,4 @@ func checkName(s string, max int) string {
 		return "must be one line of text"
 	}
 	return ""
-}
-
-// fieldReason extracts the per-field reason from a single-field Invalid error.
-func fieldReason(err error) string {
-	var e *beamledger.Error
-	if errors.As(err, &e) && len(e.Fields) == 1 {
-		for _, v := range e.Fields {
-			return v
-		}
-	}
-	return err.Error()
 }

@@ -79,8 +79,8 @@ type Interval struct {
 	End   time.Time `json:"end"`
 }
 
-// clip returns the part of iv inside [from, to), and whether any is.
-func (iv Interval) clip(from, to time.Time) (Interval, bool) {
+// Clip returns the part of iv inside [from, to), and whether any is.
+func (iv Interval) Clip(from, to time.Time) (Interval, bool) {
 	if iv.Start.Before(from) {
 		iv.Start = from
 	}
@@ -154,7 +154,7 @@ func FairShare(p Period, at time.Time, loc *time.Location, quotas []Quota, booke
 	minutesIn := func(ivs []Interval) int {
 		var spans []Interval
 		for _, iv := range ivs {
-			if iv, ok := iv.clip(from, to); ok {
+			if iv, ok := iv.Clip(from, to); ok {
 				spans = append(spans, iv)
 			}
 		}

@@ -290,7 +290,7 @@ func timeInside(windows []ClockWindow, start, end time.Time, loc *time.Location)
 			}
 			y, m, d := day.Date()
 			span := Interval{clockInstant(y, m, d, from, loc), clockInstant(y, m, d, to, loc)}
-			if span, ok := span.clip(start, end); ok {
+			if span, ok := span.Clip(start, end); ok {
 				spans = append(spans, span)
 			}
 		}

@@ -27,35 +27,23 @@ type Usage struct {
 	Source    UsageSource `json:"source"`
 }
 
+// Span is the usage's range; an open usage runs to now.
+func (u Usage) Span(now time.Time) Interval {
+	if u.EndedAt != nil {
+		return Interval{Start: u.StartedAt, End: *u.EndedAt}
+	}
+	return Interval{Start: u.StartedAt, End: now}
+}
+
 // Overrun is how much of the usage lies outside the booked range [start, end): before
 // the start plus after the end. An open usage counts up to now.
 func (u Usage) Overrun(start, end, now time.Time) time.Duration {
-	stop := now
-	if u.EndedAt != nil {
-		stop = *u.EndedAt
-	}
-	var over time.Duration
-	if u.StartedAt.Before(start) {
-		over += minDuration(start, stop).Sub(u.StartedAt)
-	}
-	if stop.After(end) {
-		over += stop.Sub(maxInstant(end, u.StartedAt))
+	span := u.Span(now)
+	over := span.End.Sub(span.Start)
+	if inside, ok := span.Clip(start, end); ok {
+		over -= inside.End.Sub(inside.Start)
 	}
 	return over
-}
-
-func minDuration(a, b time.Time) time.Time {
-	if a.Before(b) {
-		return a
-	}
-	return b
-}
-
-func maxInstant(a, b time.Time) time.Time {
-	if a.After(b) {
-		return a
-	}
-	return b
 }
 
 // UsageReport is a booking's usage as the API shows it.

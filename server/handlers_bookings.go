@@ -67,7 +67,7 @@ func (s *Server) parseRange(ctx context.Context, startText, endText string) (sta
 		if !errors.Is(e, beamledger.ErrInvalid) {
 			return start, end, nil, e
 		}
-		fe.Add("start", fieldReasonOf(e))
+		fe.Add("start", beamledger.FieldReason(e))
 	} else if r != scheduling.ResolutionExact {
 		res["start"] = r
 	}
@@ -75,7 +75,7 @@ func (s *Server) parseRange(ctx context.Context, startText, endText string) (sta
 		if !errors.Is(e, beamledger.ErrInvalid) {
 			return start, end, nil, e
 		}
-		fe.Add("end", fieldReasonOf(e))
+		fe.Add("end", beamledger.FieldReason(e))
 	} else if r != scheduling.ResolutionExact {
 		res["end"] = r
 	}
@@ -83,17 +83,6 @@ func (s *Server) parseRange(ctx context.Context, startText, endText string) (sta
 		res = nil
 	}
 	return start, end, res, fe.Err()
-}
-
-func fieldReasonOf(err error) string {
-	var de *beamledger.Error
-	if errors.As(err, &de) {
-		for _, v := range de.Fields {
-			return v
-		}
-		return de.Message
-	}
-	return err.Error()
 }
 
 func (s *Server) handleBookingCreate(c echo.Context) error {
@@ -201,17 +190,25 @@ func (s *Server) visibleBooking(ctx context.Context, id string) (scheduling.Book
 	if err != nil {
 		return b, err
 	}
+	if !s.mayReadBooked(ctx, b.UserID, b.ProjectID, b.Kind) {
+		return scheduling.Booking{}, beamledger.NotFound("booking")
+	}
+	return b, nil
+}
+
+// mayReadBooked decides who reads a booking or series in full: those who read
+// everything, the booked user, the members of its project, and, for service time
+// (maintenance, downtime), everyone who uses the instrument.
+func (s *Server) mayReadBooked(ctx context.Context, userID, projectID string, kind scheduling.BookingKind) bool {
 	me := principal(ctx)
-	// Service time (maintenance, downtime) concerns everyone who uses the instrument.
-	if me.CanReadEverything() || b.UserID == me.UserID || b.Kind == scheduling.KindService {
-		return b, nil
+	if me.CanReadEverything() || userID == me.UserID || kind == scheduling.KindService {
+		return true
 	}
-	if b.ProjectID != "" {
-		if p, err := s.store.Project(ctx, b.ProjectID); err == nil && me.CanReadProject(p) {
-			return b, nil
-		}
+	if projectID == "" {
+		return false
 	}
-	return scheduling.Booking{}, beamledger.NotFound("booking")
+	p, err := s.store.Project(ctx, projectID)
+	return err == nil && me.CanReadProject(p)
 }
 
 // changeableBooking loads a booking the caller may move or cancel: the booked user's

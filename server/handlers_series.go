@@ -111,16 +111,10 @@ func (s *Server) visibleSeries(c echo.Context) (scheduling.Series, error) {
 	if err != nil {
 		return sr, err
 	}
-	me := principal(ctx)
-	if me.CanReadEverything() || sr.UserID == me.UserID || sr.Kind == scheduling.KindService {
-		return sr, nil
+	if !s.mayReadBooked(ctx, sr.UserID, sr.ProjectID, sr.Kind) {
+		return scheduling.Series{}, beamledger.NotFound("series")
 	}
-	if sr.ProjectID != "" {
-		if p, err := s.store.Project(ctx, sr.ProjectID); err == nil && me.CanReadProject(p) {
-			return sr, nil
-		}
-	}
-	return scheduling.Series{}, beamledger.NotFound("series")
+	return sr, nil
 }
 
 type seriesCancel struct {

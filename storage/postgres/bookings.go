@@ -264,24 +264,11 @@ WHERE project_id = $1 AND instrument_id = $2 AND status = 'active' AND id::text 
 	}
 	minutes := 0
 	for _, s := range spans {
-		from, to := maxTime(s.Start, weekStart), minTime(s.End, weekEnd)
-		minutes += scheduling.MinutesInside(bc.Rules.PrimeTime, from, to, bc.Location)
+		if in, ok := s.Clip(weekStart, weekEnd); ok {
+			minutes += scheduling.MinutesInside(bc.Rules.PrimeTime, in.Start, in.End, bc.Location)
+		}
 	}
 	return minutes, nil
-}
-
-func maxTime(a, b time.Time) time.Time {
-	if a.After(b) {
-		return a
-	}
-	return b
-}
-
-func minTime(a, b time.Time) time.Time {
-	if a.Before(b) {
-		return a
-	}
-	return b
 }
 
 func addEvent(ctx context.Context, tx pgx.Tx, bookingID string, at time.Time, actor, action, reason string, before, after *scheduling.Interval) error {

@@ -6,7 +6,6 @@ import (
 	"fmt"
 	"log/slog"
 
-	"github.com/jackc/pgx/v5/pgxpool"
 	"github.com/jackc/pgx/v5/stdlib"
 	"github.com/pressly/goose/v3"
 	"github.com/pressly/goose/v3/lock"
@@ -27,11 +26,7 @@ func (s SchemaState) UpToDate() bool { return s.Current == s.Known }
 func (s SchemaState) TooNew() bool { return s.Current > s.Known }
 
 func (db *DB) provider(log *slog.Logger) (*goose.Provider, *sql.DB, error) {
-	return newProvider(db.pool, log)
-}
-
-func newProvider(pool *pgxpool.Pool, log *slog.Logger) (*goose.Provider, *sql.DB, error) {
-	sqlDB := stdlib.OpenDBFromPool(pool)
+	sqlDB := stdlib.OpenDBFromPool(db.pool)
 	// A session advisory lock makes concurrent `migrate up` from several processes safe.
 	locker, err := lock.NewPostgresSessionLocker()
 	if err != nil {

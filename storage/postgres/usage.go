@@ -116,11 +116,8 @@ func (db *DB) UsageReport(ctx context.Context, bookingID string, now time.Time) 
 	}
 	var used, over time.Duration
 	for _, u := range r.Usages {
-		stop := now
-		if u.EndedAt != nil {
-			stop = *u.EndedAt
-		}
-		used += stop.Sub(u.StartedAt)
+		span := u.Span(now)
+		used += span.End.Sub(span.Start)
 		over += u.Overrun(b.Start, b.End, now)
 	}
 	r.UsedMinutes, r.OverrunMinutes = int(used/time.Minute), int(over/time.Minute)
