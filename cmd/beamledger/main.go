@@ -5,6 +5,7 @@
 //	beamledger migrate up|status           apply or list schema migrations
 //	beamledger user create|set-role|disable|reset-password
 //	beamledger token create|revoke         instrument-agent tokens
+//	beamledger derive < conditions.json    derived optics quantities (exit 2 on bad input)
 //	beamledger version
 //
 // Settings come from flags or BEAMLEDGER_* environment variables; secrets also from
@@ -21,6 +22,7 @@ import (
 	"os"
 	"os/signal"
 	"runtime/debug"
+	"strings"
 	"syscall"
 )
 
@@ -29,14 +31,24 @@ var version = ""
 
 func main() {
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
-	err := run(ctx, os.Args[1:], os.Stdout, os.Stderr)
+	err := runWithStdin(ctx, os.Args[1:], os.Stdin, os.Stdout, os.Stderr)
 	stop()
 	if err != nil {
 		if !errors.Is(err, flag.ErrHelp) {
 			fmt.Fprintln(os.Stderr, "beamledger:", err)
 		}
-		os.Exit(1)
+		os.Exit(exitCode(err))
 	}
+}
+
+// exitCode is 1 for a failure, or the status an *exitError carries (2 for refused
+// input), so scripts can tell the two apart.
+func exitCode(err error) int {
+	var ee *exitError
+	if errors.As(err, &ee) {
+		return ee.code
+	}
+	return 1
 }
 
 const usage = `usage: beamledger <command> [flags]
@@ -47,10 +59,19 @@ commands:
   migrate up|status                       apply or list schema migrations
   user create|set-role|disable|reset-password
   token create|revoke                     instrument-agent tokens
+  derive [-settings FILE] < conditions    derived optics quantities as JSON (exit 2 on bad input)
   version                                 print the version
 `
 
+// run is runWithStdin for the commands that read no standard input: they get an
+// empty one.
 func run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	return runWithStdin(ctx, args, strings.NewReader(""), stdout, stderr)
+}
+
+// runWithStdin dispatches one command, with the standard streams passed in so tests
+// can use buffers.
+func runWithStdin(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) error {
 	if len(args) == 0 {
 		fmt.Fprint(stderr, usage)
 		return errors.New("no command given")
@@ -67,6 +88,8 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 		return cmdUser(ctx, rest, stdout, stderr)
 	case "token":
 		return cmdToken(ctx, rest, stdout, stderr)
+	case "derive":
+		return cmdDerive(rest, stdin, stdout, stderr)
 	case "version":
 		fmt.Fprintln(stdout, "beamledger", buildVersion())
 		return nil
