@@ -215,7 +215,7 @@ func condQuantity(fe beamledger.FieldErrors, field string, raw json.RawMessage, 
 		}
 		q = Quantity{SI: si, Unit: dim.Unit(), Text: string(raw)}
 	default:
-		fe.Add(field, fmt.Sprintf("must be a %s such as %s, or a number in %s", dim, quantity.Format(1, dim), dim.Unit()))
+		fe.Add(field, fmt.Sprintf("must be a %s such as %s, or a plain number in %s", dim, dim.Example(), dim.Unit()))
 		return nil
 	}
 	if !rng.holds(q.SI) {
@@ -242,9 +242,9 @@ func condFrameCount(fe beamledger.FieldErrors, raw json.RawMessage) *int {
 // condExtra reads free string key/values, bounded so that a client cannot turn
 // conditions into a document store.
 func condExtra(fe beamledger.FieldErrors, raw json.RawMessage) map[string]string {
-	var m map[string]json.RawMessage
-	if err := json.Unmarshal(raw, &m); err != nil || m == nil {
-		fe.Add("extra", "must be an object of string values")
+	m, err := condObject(raw)
+	if err != nil {
+		fe.Add("extra", "must be an object of string values; "+err.Error())
 		return nil
 	}
 	if len(m) > maxExtraKeys {

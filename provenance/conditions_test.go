@@ -109,6 +109,14 @@ func withoutNote() string {
 	"frame_time_note": null`, "", 1)
 }
 
+func manyExtra(n int) string {
+	kv := make([]string, n)
+	for i := range kv {
+		kv[i] = `"k` + strings.Repeat("x", i) + `": "v"`
+	}
+	return strings.Join(kv, ", ")
+}
+
 func ptr(q Quantity) *Quantity { return &q }
 
 // Null counts as absent: producers write it for "not measured".
@@ -179,6 +187,9 @@ func TestParseConditionsRejects(t *testing.T) {
 		{`{"accelerating_voltage": "300 kV", "extra": {"holder": 3}}`, "extra.holder"},
 		{`{"accelerating_voltage": "300 kV", "extra": {"note": "` + strings.Repeat("x", 1001) + `"}}`, "extra.note"},
 		{`{"accelerating_voltage": "300 kV", "extra": "free text"}`, "extra"},
+		{`{"accelerating_voltage": "300 kV", "extra": {"a": "1", "a": "2"}}`, "extra"},
+		{`{"accelerating_voltage": "300 kV", "extra": {"` + strings.Repeat("k", 65) + `": "v"}}`, "extra"},
+		{`{"accelerating_voltage": "300 kV", "extra": {` + manyExtra(33) + `}}`, "extra"},
 		{`{"accelerating_voltage": "300 kV", "accelerating_voltage": "200 kV"}`, "conditions"}, // duplicate key
 		{`{"accelerating_voltage": "300 kV"} {}`, "conditions"},
 		{`[1, 2]`, "conditions"},
@@ -248,7 +259,7 @@ func TestConditionsDerive(t *testing.T) {
 	c, err := ParseConditions([]byte(`{
 		"accelerating_voltage": "300 kV", "beam_current": "50 pA", "convergence_semiangle": "25 mrad",
 		"dwell_time": "2 µs", "pixel_size": "0.1 Å", "camera_length": "80 mm",
-		"detectors": [{"name": "HAADF", "inner_radius": "2 mm", "outer_radius": "10 mm"}, {"name": "DF4"}],
+		"detectors": [{"name": "HAADF", "inner_radius": "2 mm", "outer_radius": "10 mm"}, {"name": "ADF2"}],
 		"aberrations": {"C3": "1 mm"}, "defocus": "-50 nm"}`))
 	if err != nil {
 		t.Fatal(err)
@@ -262,7 +273,7 @@ func TestConditionsDerive(t *testing.T) {
 	}
 	found := false
 	for _, w := range d.Warnings {
-		found = found || strings.Contains(w, "DF4 has no radii or angles")
+		found = found || strings.Contains(w, "ADF2 has no radii or angles")
 	}
 	if !found {
 		t.Errorf("no warning for the detector without geometry: %q", d.Warnings)

@@ -51,6 +51,10 @@ func (d Dimension) String() string {
 	return "Dimension(" + strconv.Itoa(int(d)) + ")"
 }
 
+// Example is a typical way of writing a value of the dimension, for messages that
+// tell the user what was expected.
+func (d Dimension) Example() string { return dimensionInfo[d].example }
+
 // Unit is the canonical SI unit symbol of the dimension, the unit of every value
 // Parse returns.
 func (d Dimension) Unit() string { return dimensionInfo[d].unit }
@@ -171,7 +175,7 @@ func ParseAs(text string, want Dimension) (float64, error) {
 			hint = "; A is the ampere, write Å for ångström"
 		}
 		return 0, fmt.Errorf("%w: %q is a %s, expected a %s such as %s%s",
-			ErrDimension, text, q.Dim, want, dimensionInfo[want].example, hint)
+			ErrDimension, text, q.Dim, want, want.Example(), hint)
 	}
 	return q.SI, nil
 }

@@ -3,6 +3,7 @@ package quantity
 import (
 	"errors"
 	"math"
+	"strings"
 	"testing"
 )
 
@@ -127,6 +128,29 @@ func TestParseAs(t *testing.T) {
 	}
 	if _, err := ParseAs("0.1 A", Length); err == nil || !contains(err.Error(), "Å") {
 		t.Errorf("ParseAs(0.1 A, Length) should hint at Å: %v", err)
+	}
+}
+
+func TestDimensionWords(t *testing.T) {
+	for _, c := range []struct {
+		d                   Dimension
+		name, unit, example string
+	}{
+		{Voltage, "voltage", "V", `"300 kV"`},
+		{Length, "length", "m", `"0.1 Å" or "80 mm"`},
+		{Temperature, "temperature", "K", `"293 K" or "-180 °C"`},
+		{Dimension(99), "Dimension(99)", "", ""},
+	} {
+		if c.d.String() != c.name || c.d.Unit() != c.unit || c.d.Example() != c.example {
+			t.Errorf("%d: %q %q %q", c.d, c.d.String(), c.d.Unit(), c.d.Example())
+		}
+	}
+	// Every example parses to its own dimension, so messages never suggest a bad value.
+	for d := Voltage; d <= Temperature; d++ {
+		first := strings.Split(strings.Trim(d.Example(), `"`), `"`)[0]
+		if q, err := Parse(first); err != nil || q.Dim != d {
+			t.Errorf("example %q of %v: %v, %v", first, d, q, err)
+		}
 	}
 }
 
