@@ -83,6 +83,15 @@ func (d Detector) problem(seen map[string]bool) string {
 	return ""
 }
 
+// ConditionChecks is how strictly acquisitions are held to an instrument's capabilities.
+type ConditionChecks string
+
+// Condition check modes.
+const (
+	ConditionChecksError   ConditionChecks = "error"
+	ConditionChecksWarning ConditionChecks = "warning"
+)
+
 // Instrument is a bookable microscope or other tool with its capabilities.
 type Instrument struct {
 	ID                    string         `json:"id"`
@@ -94,8 +103,16 @@ type Instrument struct {
 	AcceleratingVoltagesV []float64      `json:"accelerating_voltages_v"`
 	Corrector             Corrector      `json:"corrector"`
 	Detectors             []Detector     `json:"detectors"`
-	CreatedAt             time.Time      `json:"created_at"`
-	UpdatedAt             time.Time      `json:"updated_at"`
+	// CameraLengthMinM and CameraLengthMaxM bound the camera lengths acquisitions may
+	// report; absent bounds are not checked.
+	CameraLengthMinM *float64 `json:"camera_length_min_m,omitempty"`
+	CameraLengthMaxM *float64 `json:"camera_length_max_m,omitempty"`
+	// ConditionChecks says what happens to an acquisition whose conditions the
+	// instrument does not offer: refused ("error", the default) or accepted with a
+	// warning ("warning").
+	ConditionChecks ConditionChecks `json:"condition_checks"`
+	CreatedAt       time.Time       `json:"created_at"`
+	UpdatedAt       time.Time       `json:"updated_at"`
 }
 
 var instrumentCode = regexp.MustCompile(`^[A-Z0-9][A-Z0-9-]{1,31}$`)
@@ -131,6 +148,21 @@ func (in *Instrument) Normalize() error {
 	in.AcceleratingVoltagesV = slices.Compact(in.AcceleratingVoltagesV)
 	if utf8.RuneCountInString(in.Location) > 200 {
 		fe.Add("location", "is too long (at most 200 characters)")
+	}
+	if in.ConditionChecks == "" {
+		in.ConditionChecks = ConditionChecksError
+	}
+	if in.ConditionChecks != ConditionChecksError && in.ConditionChecks != ConditionChecksWarning {
+		fe.Add("condition_checks", "must be error or warning")
+	}
+	// Camera lengths from 1 mm to 100 m cover every projection system built.
+	for field, p := range map[string]*float64{"camera_length_min_m": in.CameraLengthMinM, "camera_length_max_m": in.CameraLengthMaxM} {
+		if p != nil && (math.IsNaN(*p) || *p < 1e-3 || *p > 100) {
+			fe.Add(field, "must be between 0.001 and 100 m")
+		}
+	}
+	if in.CameraLengthMinM != nil && in.CameraLengthMaxM != nil && *in.CameraLengthMinM > *in.CameraLengthMaxM {
+		fe.Add("camera_length_max_m", "must not be below camera_length_min_m")
 	}
 	seen := map[string]bool{}
 	for _, d := range in.Detectors {

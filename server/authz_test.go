@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"beamledger/accounts"
+	"beamledger/provenance"
 	"beamledger/scheduling"
 )
 
@@ -243,6 +244,49 @@ var routeMatrix = map[string]routeExpectation{
 	"POST /api/v1/bookings/:booking_id/check-out": {who: usageRecorders, setup: matrixCheckedIn},
 	"GET /api/v1/bookings/:booking_id/usage":      {who: access{wUnauth, wAllow, wAllow, wHidden, wAllow, wAllow}, setup: matrixCheckedIn},
 
+	// Derived quantities are computed for any signed-in user and for an agent with
+	// acquisition:write; only managers change the regime thresholds.
+	"POST /api/v1/derive": {who: access{wUnauth, wAllow, wAllow, wAllow, wAllow, wAllow}, strict: true, body: func(*world) any {
+		return map[string]any{"accelerating_voltage": "300 kV", "convergence_semiangle": "25 mrad"}
+	}},
+	"GET /api/v1/facility/optics-settings": {who: usersAndAgent},
+	"PUT /api/v1/facility/optics-settings": {who: managerOnly, strict: true, body: func(*world) any {
+		return map[string]any{"abf_inner_fraction": 0.4, "haadf_inner_multiple": 3, "haadf_inner_min_rad": 0.06}
+	}},
+	// Specimens belong to projects: the one named is the foreign project's, and a
+	// researcher registering one there finds no such project.
+	"GET /api/v1/specimens": {who: usersOnly},
+	"POST /api/v1/specimens": {who: bookers, strict: true, bodyAs: func(w *world, who string) any {
+		return map[string]any{"project_id": w.foreign.ID, "code": "S-" + who, "fluence_budget_e_per_angstrom2": 1e4}
+	}},
+	"GET /api/v1/specimens/:specimen_id": {who: bookingReaders, setup: matrixSpecimen},
+	// Tunings are recorded by staff, managers and the instrument's agent (correctors
+	// measure themselves); calibrations by staff and managers. Everyone reads both.
+	"GET /api/v1/instruments/:instrument_id/tunings": {who: usersAndAgent},
+	"POST /api/v1/instruments/:instrument_id/tunings": {who: access{wUnauth, wAllow, wAllow, wDeny, wDeny, wAllow}, strict: true, body: func(w *world) any {
+		return map[string]any{"measured_at": w.clock.Now().Add(-time.Hour), "coefficients": map[string]string{"C3": "1.2 µm"}}
+	}},
+	"GET /api/v1/tunings/:tuning_id":                      {who: usersOnly, setup: matrixTuning},
+	"GET /api/v1/instruments/:instrument_id/calibrations": {who: usersAndAgent},
+	"POST /api/v1/instruments/:instrument_id/calibrations": {who: facilityOpsOnly, strict: true, body: func(w *world) any {
+		return map[string]any{"kind": "pixel_size", "effective_from": w.clock.Now().Add(-time.Hour), "magnification": 1e6, "pixel_size": "12 pm"}
+	}},
+	// The acquisitions named are on w.other's booking in the foreign project: hidden
+	// from the researcher, readable by the auditor, recorded by staff, managers and
+	// the instrument's agent, corrected by staff and managers.
+	"GET /api/v1/acquisitions": {who: usersOnly},
+	"POST /api/v1/acquisitions": {who: access{wUnauth, wAllow, wAllow, wHidden, wDeny, wAllow}, strict: true, setup: matrixPastBooking, bodyAs: func(w *world, _ string) any {
+		return matrixAcquisitionBody(w)
+	}},
+	"GET /api/v1/acquisitions/:acquisition_id":          {who: bookingReaders, setup: matrixAcquisition},
+	"GET /api/v1/acquisitions/:acquisition_id/versions": {who: bookingReaders, setup: matrixAcquisition},
+	"POST /api/v1/acquisitions/:acquisition_id/corrections": {who: bookers, strict: true, setup: matrixAcquisition, body: func(w *world) any {
+		b := matrixAcquisitionBody(w)
+		delete(b, "booking_id")
+		b["reason"] = "beam current was 40 pA"
+		return b
+	}},
+
 	// Feed tokens are each person's own: a manager neither sees nor revokes anyone
 	// else's, and the token named here is the researcher's.
 	"GET /api/v1/me/feed-tokens":                   {who: usersOnly},
@@ -377,6 +421,54 @@ func matrixFeedToken(w *world) map[string]string {
 		w.t.Fatalf("matrix feed token: %d %s", r.StatusCode, r.Body)
 	}
 	return map[string]string{":feed_token_id": f.ID, ":feed_token": f.Token}
+}
+
+// matrixSpecimen is a specimen of the foreign project.
+func matrixSpecimen(w *world) map[string]string {
+	sp, err := w.db.CreateSpecimen(context.Background(), provenance.NewSpecimen{ProjectID: w.foreign.ID, Code: "M-1", CreatedBy: w.other.ID}, w.clock.Now())
+	if err != nil {
+		w.t.Fatal(err)
+	}
+	return map[string]string{":specimen_id": sp.ID}
+}
+
+// matrixTuning is a tuning of w.instr recorded by staff.
+func matrixTuning(w *world) map[string]string {
+	tu, err := w.db.RecordTuning(context.Background(), provenance.NewTuning{InstrumentID: w.instr.ID, MeasuredAt: w.clock.Now().Add(-time.Hour),
+		Coefficients: []provenance.Coefficient{{Name: "C3", Order: 3, MagnitudeM: 1e-6, Text: "1 µm"}}, RecordedBy: w.users[accounts.RoleStaff].ID}, w.clock.Now())
+	if err != nil {
+		w.t.Fatal(err)
+	}
+	return map[string]string{":tuning_id": tu.ID}
+}
+
+// matrixPastBooking is w.other's booking in the foreign project on w.instr, begun
+// three hours ago, for acquisitions to be recorded on.
+func matrixPastBooking(w *world) map[string]string {
+	id, _ := w.pastBooking(w.instr.ID, w.foreign.ID, w.other.ID)
+	return map[string]string{":booking_id": id}
+}
+
+// matrixAcquisitionBody records an hour of work on the matrix's past booking.
+func matrixAcquisitionBody(w *world) map[string]any {
+	now := w.clock.Now()
+	bs, err := w.db.Bookings(context.Background(), scheduling.BookingFilter{InstrumentID: w.instr.ID, From: now.Add(-2 * time.Hour), To: now})
+	if err != nil || len(bs) != 1 {
+		w.t.Fatalf("the matrix's past booking: %v %v", bs, err)
+	}
+	return map[string]any{"booking_id": bs[0].ID, "started_at": now.Add(-2 * time.Hour), "ended_at": now.Add(-time.Hour),
+		"conditions": map[string]any{"accelerating_voltage": "300 kV", "beam_current": "50 pA"}}
+}
+
+// matrixAcquisition is an acquisition on the matrix's past booking, recorded by staff.
+func matrixAcquisition(w *world) map[string]string {
+	extra := matrixPastBooking(w)
+	var a provenance.Acquisition
+	if r := w.do(http.MethodPost, "/api/v1/acquisitions", w.tokens[accounts.RoleStaff], matrixAcquisitionBody(w), &a); r.StatusCode != http.StatusCreated {
+		w.t.Fatalf("matrix acquisition: %d %s", r.StatusCode, r.Body)
+	}
+	extra[":acquisition_id"] = a.ID
+	return extra
 }
 
 // matrixPath fills a route's parameters with objects the researcher does not own;

@@ -68,14 +68,17 @@ func (s *Server) handleInstrumentGet(c echo.Context) error {
 }
 
 type instrumentInput struct {
-	Code                  string                    `json:"code"`
-	Name                  string                    `json:"name"`
-	Kind                  scheduling.InstrumentKind `json:"kind"`
-	Location              string                    `json:"location"`
-	Bookable              *bool                     `json:"bookable"`
-	AcceleratingVoltagesV []float64                 `json:"accelerating_voltages_v"`
-	Corrector             scheduling.Corrector      `json:"corrector"`
-	Detectors             []scheduling.Detector     `json:"detectors"`
+	Code                  string                     `json:"code"`
+	Name                  string                     `json:"name"`
+	Kind                  scheduling.InstrumentKind  `json:"kind"`
+	Location              string                     `json:"location"`
+	Bookable              *bool                      `json:"bookable"`
+	AcceleratingVoltagesV []float64                  `json:"accelerating_voltages_v"`
+	Corrector             scheduling.Corrector       `json:"corrector"`
+	Detectors             []scheduling.Detector      `json:"detectors"`
+	CameraLengthMinM      *float64                   `json:"camera_length_min_m"`
+	CameraLengthMaxM      *float64                   `json:"camera_length_max_m"`
+	ConditionChecks       scheduling.ConditionChecks `json:"condition_checks"`
 }
 
 func (s *Server) handleInstrumentCreate(c echo.Context) error {
@@ -86,6 +89,7 @@ func (s *Server) handleInstrumentCreate(c echo.Context) error {
 	in := scheduling.Instrument{
 		Code: req.Code, Name: req.Name, Kind: req.Kind, Location: req.Location, Bookable: req.Bookable == nil || *req.Bookable,
 		AcceleratingVoltagesV: req.AcceleratingVoltagesV, Corrector: req.Corrector, Detectors: req.Detectors,
+		CameraLengthMinM: req.CameraLengthMinM, CameraLengthMaxM: req.CameraLengthMaxM, ConditionChecks: req.ConditionChecks,
 	}
 	if err := in.Normalize(); err != nil {
 		return err

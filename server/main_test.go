@@ -287,6 +287,7 @@ func TestOpenAPIExamplesExercise(t *testing.T) {
 	exerciseQuotas(t, w)
 	exerciseWaitlist(t, w)
 	exerciseBookingRules(t, w)
+	exerciseAcquisitions(t, w)
 
 	// Every documented 2xx of every operation, and some error of each operation that
 	// documents errors, must have been seen.

@@ -60,3 +60,10 @@ func constraintSubject(name string) string {
 	}
 	return "duplicate"
 }
+
+// isConstraint reports whether err is a violation of the named constraint, so that a
+// method can word it for its own fields before mapError's generic words apply.
+func isConstraint(err error, name string) bool {
+	var pgErr *pgconn.PgError
+	return errors.As(err, &pgErr) && pgErr.ConstraintName == name
+}

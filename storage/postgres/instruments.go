@@ -12,7 +12,7 @@ import (
 
 const instrumentSelect = `
 SELECT i.id::text, i.code, i.name, i.kind, i.location, i.bookable, i.accelerating_voltages_v, i.corrector,
-       i.created_at, i.updated_at,
+       i.camera_length_min_m, i.camera_length_max_m, i.condition_checks, i.created_at, i.updated_at,
        coalesce((SELECT jsonb_agg(jsonb_strip_nulls(jsonb_build_object('name', d.name, 'kind', d.kind,
                  'inner_radius_m', d.inner_radius_m, 'outer_radius_m', d.outer_radius_m)) ORDER BY d.position)
                  FROM detectors d WHERE d.instrument_id = i.id), '[]')
@@ -20,27 +20,32 @@ FROM instruments i`
 
 func scanInstrument(row pgx.Row) (scheduling.Instrument, error) {
 	var in scheduling.Instrument
-	var kind, corrector string
+	var kind, corrector, checks string
 	err := row.Scan(&in.ID, &in.Code, &in.Name, &kind, &in.Location, &in.Bookable, &in.AcceleratingVoltagesV,
-		&corrector, &in.CreatedAt, &in.UpdatedAt, &in.Detectors)
+		&corrector, &in.CameraLengthMinM, &in.CameraLengthMaxM, &checks, &in.CreatedAt, &in.UpdatedAt, &in.Detectors)
 	in.Kind, in.Corrector = scheduling.InstrumentKind(kind), scheduling.Corrector(corrector)
+	in.ConditionChecks = scheduling.ConditionChecks(checks)
 	return in, err
 }
 
 // CreateInstrument implements scheduling.InstrumentStore.
 func (db *DB) CreateInstrument(ctx context.Context, in scheduling.Instrument) (scheduling.Instrument, error) {
 	var out scheduling.Instrument
+	if in.ConditionChecks == "" {
+		in.ConditionChecks = scheduling.ConditionChecksError
+	}
 	err := pgx.BeginFunc(ctx, db.pool, func(tx pgx.Tx) error {
 		const q = `
-INSERT INTO instruments (code, name, kind, location, bookable, accelerating_voltages_v, corrector)
-VALUES ($1, $2, $3, $4, $5, $6, $7) RETURNING id::text`
+INSERT INTO instruments (code, name, kind, location, bookable, accelerating_voltages_v, corrector,
+    camera_length_min_m, camera_length_max_m, condition_checks)
+VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10) RETURNING id::text`
 		volts := in.AcceleratingVoltagesV
 		if volts == nil {
 			volts = []float64{} // a tool without a beam, such as a plasma cleaner
 		}
 		var id string
 		if err := tx.QueryRow(ctx, q, in.Code, in.Name, string(in.Kind), in.Location, in.Bookable,
-			volts, string(in.Corrector)).Scan(&id); err != nil {
+			volts, string(in.Corrector), in.CameraLengthMinM, in.CameraLengthMaxM, string(in.ConditionChecks)).Scan(&id); err != nil {
 			return err
 		}
 		for i, d := range in.Detectors {

@@ -29,6 +29,7 @@ func TestCreateInstrumentRoundTrip(t *testing.T) {
 		Code: "ARM-300", Name: "Probe-corrected STEM", Kind: scheduling.KindSTEM, Location: "Room B.12",
 		Bookable: false, AcceleratingVoltagesV: []float64{60e3, 200e3, 300e3},
 		Corrector: scheduling.CorrectorProbeAndImage, Detectors: detectors,
+		CameraLengthMinM: ptr(0.02), CameraLengthMaxM: ptr(2.5), ConditionChecks: scheduling.ConditionChecksWarning,
 	}
 	got, err := db.CreateInstrument(ctx, want)
 	if err != nil {
