@@ -46,6 +46,9 @@ type AcquisitionContext struct {
 	Operator   OperatorRef
 	// Specimen, when named, with FluenceUsedEPerA2 summing every other acquisition.
 	Specimen *Specimen
+	// FluenceBeforeEPerA2 sums the specimen's other acquisitions that started before
+	// this one: the dose the specimen had taken when this one began.
+	FluenceBeforeEPerA2 float64
 	// Tuning in force at the start, for the acquisition's voltage; nil when none.
 	Tuning *Tuning
 	// Calibrations in force at the start: per kind and subject the newest not corrected.
@@ -108,7 +111,7 @@ func Record(ac AcquisitionContext, in AcquisitionInput) (Draft, error) {
 		return Draft{}, err
 	}
 	fluence := fluenceOf(derivedJSON)
-	warnings = append(warnings, budgetWarnings(ac.Specimen, fluence)...)
+	warnings = append(warnings, budgetWarnings(ac.Specimen, ac.FluenceBeforeEPerA2, fluence)...)
 
 	d := Draft{AcquisitionVersion: AcquisitionVersion{
 		OperatorID: ac.Operator.ID, StartedAt: in.StartedAt.UTC(), EndedAt: in.EndedAt.UTC(),
@@ -239,7 +242,7 @@ func fillDetectors(raw json.RawMessage, ac AcquisitionContext) (json.RawMessage,
 		}
 		det := ac.Instrument.Detectors[idx]
 		if det.InnerRadiusM == nil || det.OuterRadiusM == nil {
-			return raw, nil, beamledger.InvalidField(field, name+" has no recorded geometry; give its inner and outer radius or angle")
+			continue // a spectrometer or camera: named, with no angles to derive
 		}
 		d["inner_radius"], d["outer_radius"] = text(*det.InnerRadiusM, "mm"), text(*det.OuterRadiusM, "mm")
 		notes = append(notes, Applied{Field: field, Source: "instrument",
@@ -297,9 +300,11 @@ func checkAgainstInstrument(c Conditions, in scheduling.Instrument) ([]string, e
 	return nil, beamledger.RuleViolation("instrument_capability", "the conditions do not match what "+in.Code+" offers", fields)
 }
 
-// budgetWarnings words a fluence budget passed by this acquisition, or one that cannot
-// be tracked because the fluence could not be computed.
-func budgetWarnings(sp *Specimen, fluence *float64) []string {
+// budgetWarnings words a fluence budget passed by this acquisition (the dose taken
+// before it began plus its own), or one that cannot be tracked because the fluence
+// could not be computed. Acquisitions are weighed in the order they happened, so a
+// correction of an early one does not inherit a warning a later one earned.
+func budgetWarnings(sp *Specimen, before float64, fluence *float64) []string {
 	if sp == nil || sp.FluenceBudgetEPerA2 == nil {
 		return nil
 	}
@@ -308,7 +313,7 @@ func budgetWarnings(sp *Specimen, fluence *float64) []string {
 		return []string{fmt.Sprintf("specimen %s has a fluence budget of %s e⁻/Å², but this acquisition's fluence cannot be computed (give beam_current with dwell_time and pixel_size, or with exposure_time and illuminated_diameter)",
 			sp.Code, eA2(budget))}
 	}
-	total := sp.FluenceUsedEPerA2 + *fluence
+	total := before + *fluence
 	if total <= budget {
 		return nil
 	}

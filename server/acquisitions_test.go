@@ -168,6 +168,11 @@ func TestAcquisitionRecordedWithDerivedQuantities(t *testing.T) {
 	if c.Version != 2 || !near(c.Derived.FluenceEPerAngstrom2, 2*62415.09, 1e-6) || c.Reason != "dwell was 4 µs" {
 		t.Errorf("corrected: version %d fluence %v reason %q", c.Version, c.Derived.FluenceEPerAngstrom2, c.Reason)
 	}
+	// The first acquisition began on a fresh specimen: its 124 830 e⁻/Å² alone passes the
+	// budget of 100 000, whatever came after it.
+	if len(c.Warnings) != 1 || !strings.Contains(c.Warnings[0], "cumulative fluence 124830") {
+		t.Errorf("corrected warnings = %v", c.Warnings)
+	}
 	w.expect(http.StatusConflict, http.MethodPost, "/api/v1/acquisitions/"+a.ID+"/corrections", researcher, body, nil)
 	var hist struct{ Items []acquisitionView }
 	w.expect(http.StatusOK, http.MethodGet, "/api/v1/acquisitions/"+a.ID+"/versions", w.tokens[accounts.RoleAuditor], nil, &hist)

@@ -69,6 +69,9 @@ func cmdDemo(ctx context.Context, args []string, stdout, stderr io.Writer) (err 
 	if err := demo.LoadWeek(ctx, db, db, time.Now()); err != nil {
 		return fmt.Errorf("load demo week: %w", err)
 	}
+	if err := demo.LoadAcquisitions(ctx, db, db, db, time.Now()); err != nil {
+		return fmt.Errorf("load demo acquisitions: %w", err)
+	}
 	log.Info("starting beamledger demo", slog.String("version", buildVersion()), slog.Any("config", cfg))
 	return server.Run(ctx, cfg, db, log, func(addr string) { printDemoBanner(stdout, addr, accts) })
 }

@@ -141,9 +141,39 @@ func TestDemoServesReadyAndLogin(t *testing.T) {
 		}
 	}
 	// 11 single bookings plus the series' first two Fridays inside the window (the
-	// window reaches 8 days past now, so one or two of them).
-	if n := len(slots.Items); n < 12 || n > 13 {
-		t.Errorf("demo week has %d bookings, want the 11 demo bookings and the series once", n)
+	// window reaches 8 days past now, so one or two of them), and last Thursday's
+	// acquisition session when it falls inside the window's 8 days back.
+	if n := len(slots.Items); n < 12 || n > 14 {
+		t.Errorf("demo week has %d bookings, want the 11 demo bookings, the series and the session once", n)
+	}
+
+	// Last week's session on the corrected STEM: three acquisitions, the first
+	// corrected, the last past the specimen's fluence budget.
+	auditor := login(t, d2.url, "auditor@demo.example", first["auditor@demo.example"])
+	var acqs struct {
+		Items []struct {
+			Version        int      `json:"version"`
+			TuningID       *string  `json:"tuning_id"`
+			CalibrationIDs []string `json:"calibration_ids"`
+			Warnings       []string `json:"warnings"`
+			Derived        struct {
+				WavelengthPm float64 `json:"wavelength_pm"`
+			} `json:"derived"`
+		} `json:"items"`
+	}
+	getJSON(t, d2.url+"/api/v1/acquisitions", auditor, &acqs)
+	versions, warned := 0, 0
+	for _, a := range acqs.Items {
+		versions += a.Version
+		if len(a.Warnings) > 0 {
+			warned++
+		}
+		if a.TuningID == nil || len(a.CalibrationIDs) != 4 || a.Derived.WavelengthPm == 0 {
+			t.Errorf("demo acquisition lacks its tuning, calibrations or derived quantities: %+v", a)
+		}
+	}
+	if len(acqs.Items) != 3 || versions != 4 || warned != 1 {
+		t.Errorf("demo acquisitions: %d, versions summing to %d, %d with warnings; want 3, 4 (one corrected) and 1", len(acqs.Items), versions, warned)
 	}
 }
 

@@ -4,6 +4,7 @@ import (
 	"context"
 	"encoding/json"
 	"errors"
+	"time"
 
 	"github.com/google/uuid"
 	"github.com/jackc/pgx/v5"
@@ -159,7 +160,7 @@ func acquisitionContext(ctx context.Context, tx pgx.Tx, bookingID, correcting st
 		return ac, err
 	}
 	if in.SpecimenID != "" {
-		if ac.Specimen, err = lockedSpecimen(ctx, tx, in.SpecimenID, correcting); err != nil {
+		if ac.Specimen, ac.FluenceBeforeEPerA2, err = lockedSpecimen(ctx, tx, in.SpecimenID, correcting, in.StartedAt); err != nil {
 			return ac, err
 		}
 	}
@@ -212,20 +213,24 @@ FROM users u WHERE u.id = $1`
 }
 
 // lockedSpecimen reads a specimen under an update lock (which fires no trigger), so
-// that acquisitions on one specimen weigh its fluence budget one after another.
-func lockedSpecimen(ctx context.Context, tx pgx.Tx, id, correcting string) (*provenance.Specimen, error) {
+// that acquisitions on one specimen weigh its fluence budget one after another, and
+// the fluence of its acquisitions that started before this one began.
+func lockedSpecimen(ctx context.Context, tx pgx.Tx, id, correcting string, start time.Time) (*provenance.Specimen, float64, error) {
 	if _, err := tx.Exec(ctx, `SELECT 1 FROM specimens WHERE id = $1 FOR UPDATE`, id); err != nil {
-		return nil, err
+		return nil, 0, err
 	}
 	var exclude any
 	if correcting != "" {
 		exclude = correcting
 	}
-	sp, err := scanSpecimen(tx.QueryRow(ctx, specimenSelectExcluding("$2::uuid")+` WHERE s.id = $1`, id, exclude))
+	var sp provenance.Specimen
+	var before float64
+	err := tx.QueryRow(ctx, specimenSelectFor("$2::uuid", "$3")+` WHERE s.id = $1`, id, exclude, start).Scan(&sp.ID, &sp.ProjectID,
+		&sp.Code, &sp.Description, &sp.FluenceBudgetEPerA2, &sp.FluenceUsedEPerA2, &sp.Acquisitions, &sp.CreatedBy, &sp.CreatedAt, &before)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return nil, beamledger.InvalidField("specimen_id", "no such specimen")
+		return nil, 0, beamledger.InvalidField("specimen_id", "no such specimen")
 	}
-	return &sp, err
+	return &sp, before, err
 }
 
 // Acquisition implements provenance.AcquisitionStore.

@@ -15,17 +15,20 @@ var _ provenance.SpecimenStore = (*DB)(nil)
 
 // specimenSelect reads specimens with the fluence used on them: the newest version of
 // each acquisition that names the specimen, counted once.
-var specimenSelect = specimenSelectExcluding("NULL::uuid")
+var specimenSelect = specimenSelectFor("NULL::uuid", "NULL::timestamptz")
 
-// specimenSelectExcluding is specimenSelect leaving out one acquisition (the one being
-// corrected, whose new version replaces its old fluence), given as a placeholder.
-func specimenSelectExcluding(acquisition string) string {
+// specimenSelectFor is specimenSelect leaving out one acquisition (the one being
+// recorded or corrected, whose new version replaces its old fluence), with one more
+// column: the fluence of the acquisitions that started before an instant. Both are
+// given as placeholders.
+func specimenSelectFor(acquisition, before string) string {
 	return `
 SELECT s.id::text, s.project_id::text, s.code, s.description, s.fluence_budget_e_per_a2,
-       coalesce(u.used, 0), coalesce(u.n, 0), s.created_by::text, s.created_at
+       coalesce(u.used, 0), coalesce(u.n, 0), s.created_by::text, s.created_at, coalesce(u.before, 0)
 FROM specimens s
 LEFT JOIN LATERAL (
-    SELECT sum(v.fluence_e_per_a2) AS used, count(*) AS n
+    SELECT sum(v.fluence_e_per_a2) AS used, count(*) AS n,
+           sum(v.fluence_e_per_a2) FILTER (WHERE v.started_at < ` + before + `) AS before
     FROM acquisition_versions v
     WHERE v.specimen_id = s.id AND v.acquisition_id IS DISTINCT FROM ` + acquisition + `
       AND v.version = (SELECT max(l.version) FROM acquisition_versions l WHERE l.acquisition_id = v.acquisition_id)
@@ -34,8 +37,9 @@ LEFT JOIN LATERAL (
 
 func scanSpecimen(row pgx.Row) (provenance.Specimen, error) {
 	var s provenance.Specimen
+	var before float64
 	err := row.Scan(&s.ID, &s.ProjectID, &s.Code, &s.Description, &s.FluenceBudgetEPerA2,
-		&s.FluenceUsedEPerA2, &s.Acquisitions, &s.CreatedBy, &s.CreatedAt)
+		&s.FluenceUsedEPerA2, &s.Acquisitions, &s.CreatedBy, &s.CreatedAt, &before)
 	return s, err
 }
 
@@ -46,7 +50,7 @@ WITH s AS (
     INSERT INTO specimens (project_id, code, description, fluence_budget_e_per_a2, created_by, created_at)
     VALUES ($1, $2, $3, $4, $5, $6) RETURNING *
 )
-SELECT id::text, project_id::text, code, description, fluence_budget_e_per_a2, 0::float8, 0, created_by::text, created_at FROM s`
+SELECT id::text, project_id::text, code, description, fluence_budget_e_per_a2, 0::float8, 0, created_by::text, created_at, 0::float8 FROM s`
 	sp, err := scanSpecimen(db.pool.QueryRow(ctx, q, n.ProjectID, n.Code, n.Description, n.FluenceBudgetEPerA2, n.CreatedBy, now))
 	if isConstraint(err, "specimens_project_id_code_key") {
 		return sp, beamledger.Conflict("the project already has a specimen coded %s", n.Code)
