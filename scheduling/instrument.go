@@ -92,6 +92,39 @@ const (
 	ConditionChecksWarning ConditionChecks = "warning"
 )
 
+// ConditionLimits are what acquisitions on an instrument are held to beyond its
+// voltages and detectors, and how strictly; staff set them.
+type ConditionLimits struct {
+	CameraLengthMinM *float64        `json:"camera_length_min_m"`
+	CameraLengthMaxM *float64        `json:"camera_length_max_m"`
+	ConditionChecks  ConditionChecks `json:"condition_checks"`
+}
+
+// Normalize fills the default mode and checks the limits.
+func (l *ConditionLimits) Normalize() error {
+	fe := beamledger.FieldErrors{}
+	l.check(fe)
+	return fe.Err()
+}
+
+func (l *ConditionLimits) check(fe beamledger.FieldErrors) {
+	if l.ConditionChecks == "" {
+		l.ConditionChecks = ConditionChecksError
+	}
+	if l.ConditionChecks != ConditionChecksError && l.ConditionChecks != ConditionChecksWarning {
+		fe.Add("condition_checks", "must be error or warning")
+	}
+	// Camera lengths from 1 mm to 100 m cover every projection system built.
+	for field, p := range map[string]*float64{"camera_length_min_m": l.CameraLengthMinM, "camera_length_max_m": l.CameraLengthMaxM} {
+		if p != nil && (math.IsNaN(*p) || *p < 1e-3 || *p > 100) {
+			fe.Add(field, "must be between 0.001 and 100 m")
+		}
+	}
+	if l.CameraLengthMinM != nil && l.CameraLengthMaxM != nil && *l.CameraLengthMinM > *l.CameraLengthMaxM {
+		fe.Add("camera_length_max_m", "must not be below camera_length_min_m")
+	}
+}
+
 // Instrument is a bookable microscope or other tool with its capabilities.
 type Instrument struct {
 	ID                    string         `json:"id"`
@@ -149,21 +182,9 @@ func (in *Instrument) Normalize() error {
 	if utf8.RuneCountInString(in.Location) > 200 {
 		fe.Add("location", "is too long (at most 200 characters)")
 	}
-	if in.ConditionChecks == "" {
-		in.ConditionChecks = ConditionChecksError
-	}
-	if in.ConditionChecks != ConditionChecksError && in.ConditionChecks != ConditionChecksWarning {
-		fe.Add("condition_checks", "must be error or warning")
-	}
-	// Camera lengths from 1 mm to 100 m cover every projection system built.
-	for field, p := range map[string]*float64{"camera_length_min_m": in.CameraLengthMinM, "camera_length_max_m": in.CameraLengthMaxM} {
-		if p != nil && (math.IsNaN(*p) || *p < 1e-3 || *p > 100) {
-			fe.Add(field, "must be between 0.001 and 100 m")
-		}
-	}
-	if in.CameraLengthMinM != nil && in.CameraLengthMaxM != nil && *in.CameraLengthMinM > *in.CameraLengthMaxM {
-		fe.Add("camera_length_max_m", "must not be below camera_length_min_m")
-	}
+	limits := ConditionLimits{CameraLengthMinM: in.CameraLengthMinM, CameraLengthMaxM: in.CameraLengthMaxM, ConditionChecks: in.ConditionChecks}
+	limits.check(fe)
+	in.ConditionChecks = limits.ConditionChecks
 	seen := map[string]bool{}
 	for _, d := range in.Detectors {
 		if reason := d.problem(seen); reason != "" {
@@ -181,6 +202,9 @@ type InstrumentStore interface {
 	CreateInstrument(ctx context.Context, in Instrument) (Instrument, error)
 	// Instrument returns one instrument. ErrNotFound when there is none.
 	Instrument(ctx context.Context, id string) (Instrument, error)
+	// SetConditionLimits replaces an instrument's condition limits and returns the
+	// instrument. ErrNotFound when there is none.
+	SetConditionLimits(ctx context.Context, id string, l ConditionLimits) (Instrument, error)
 	// InstrumentByCode returns one instrument by its code. ErrNotFound when none.
 	InstrumentByCode(ctx context.Context, code string) (Instrument, error)
 	// Instruments lists instruments ordered by code.

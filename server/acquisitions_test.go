@@ -270,6 +270,14 @@ func TestAcquisitionRefusals(t *testing.T) {
 
 	// Where staff set the instrument's checks to warnings, the same mismatch is
 	// accepted and says so.
+	w.expect(http.StatusOK, http.MethodPut, "/api/v1/instruments/"+f.inst.ID+"/condition-limits", w.tokens[accounts.RoleStaff],
+		map[string]any{"camera_length_min_m": 0.02, "camera_length_max_m": 2.5, "condition_checks": "warning"}, nil)
+	var warned provenance.Acquisition
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/acquisitions", researcher, map[string]any{"booking_id": f.booking,
+		"started_at": f.start.Add(time.Hour), "ended_at": f.start.Add(2 * time.Hour), "conditions": map[string]any{"accelerating_voltage": "300 kV", "camera_length": "3 m"}}, &warned)
+	if len(warned.Warnings) != 1 || !strings.Contains(warned.Warnings[0], "camera_length") {
+		t.Errorf("camera length outside the range, as a warning: %v", warned.Warnings)
+	}
 	lenient, err := w.db.CreateInstrument(context.Background(), scheduling.Instrument{Code: "TEM-L", Name: "Lenient TEM", Kind: scheduling.KindTEM,
 		Corrector: scheduling.CorrectorNone, Bookable: true, AcceleratingVoltagesV: []float64{200e3}, ConditionChecks: scheduling.ConditionChecksWarning})
 	if err != nil {
@@ -319,6 +327,14 @@ func exerciseAcquisitions(t *testing.T, w *world) {
 	f := newAcqFixture(w)
 	inst := "/api/v1/instruments/" + f.inst.ID
 
+	var limited scheduling.Instrument
+	w.expect(http.StatusOK, http.MethodPut, inst+"/condition-limits", staff, map[string]any{"camera_length_min_m": 0.02, "camera_length_max_m": 2.5}, &limited)
+	if limited.ConditionChecks != scheduling.ConditionChecksError || *limited.CameraLengthMaxM != 2.5 {
+		t.Errorf("limits set: %+v", limited)
+	}
+	if r := w.expect(http.StatusBadRequest, http.MethodPut, inst+"/condition-limits", staff, map[string]any{"camera_length_min_m": 3, "camera_length_max_m": 2.5}, nil); !fieldNamed(r, "camera_length_max_m") {
+		t.Errorf("inverted range: %s", r.Body)
+	}
 	w.expect(http.StatusOK, http.MethodPost, "/api/v1/derive", researcher, map[string]any{"accelerating_voltage": "300 kV"}, nil)
 	w.expect(http.StatusBadRequest, http.MethodPost, "/api/v1/derive", researcher, map[string]any{"accelerating_voltage": "300 kA"}, nil)
 	w.expect(http.StatusOK, http.MethodGet, "/api/v1/facility/optics-settings", auditor, nil, nil)

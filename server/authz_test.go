@@ -127,6 +127,9 @@ var routeMatrix = map[string]routeExpectation{
 		return map[string]any{"code": "TEM-2", "name": "Second TEM", "kind": "tem", "accelerating_voltages_v": []float64{200e3}}
 	}},
 	"GET /api/v1/instruments/:instrument_id":              {who: usersAndAgent},
+	"PUT /api/v1/instruments/:instrument_id/condition-limits": {who: facilityOpsOnly, strict: true, body: func(*world) any {
+		return map[string]any{"camera_length_min_m": 0.02, "camera_length_max_m": 2.5, "condition_checks": "warning"}
+	}},
 	"GET /api/v1/instruments/:instrument_id/agent-tokens": {who: access{wUnauth, wAllow, wAllow, wDeny, wDeny, wDeny}},
 	"POST /api/v1/instruments/:instrument_id/agent-tokens": {who: managerOnly, body: func(*world) any {
 		return map[string]any{"name": "second-pc", "scopes": []string{"instrument:read"}}

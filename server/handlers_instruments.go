@@ -144,3 +144,21 @@ func (s *Server) handleAgentTokenRevoke(c echo.Context) error {
 	}
 	return c.JSON(http.StatusOK, t)
 }
+
+// handleConditionLimitsSet replaces the limits acquisitions on the instrument are held
+// to, and whether a condition outside them is refused or accepted with a warning.
+// Acquisitions already recorded keep what they were checked against.
+func (s *Server) handleConditionLimitsSet(c echo.Context) error {
+	var l scheduling.ConditionLimits
+	if err := bind(c, &l); err != nil {
+		return err
+	}
+	if err := l.Normalize(); err != nil {
+		return err
+	}
+	in, err := s.store.SetConditionLimits(c.Request().Context(), c.Param("instrument_id"), l)
+	if err != nil {
+		return err
+	}
+	return c.JSON(http.StatusOK, in)
+}

@@ -70,6 +70,24 @@ func (db *DB) Instrument(ctx context.Context, id string) (scheduling.Instrument,
 	return in, mapError(err, "instrument")
 }
 
+// SetConditionLimits implements scheduling.InstrumentStore.
+func (db *DB) SetConditionLimits(ctx context.Context, id string, l scheduling.ConditionLimits) (scheduling.Instrument, error) {
+	if !accounts.ValidID(id) {
+		return scheduling.Instrument{}, beamledger.NotFound("instrument")
+	}
+	const q = `
+UPDATE instruments SET camera_length_min_m = $2, camera_length_max_m = $3, condition_checks = $4, updated_at = now()
+WHERE id = $1`
+	tag, err := db.pool.Exec(ctx, q, id, l.CameraLengthMinM, l.CameraLengthMaxM, string(l.ConditionChecks))
+	if err == nil && tag.RowsAffected() == 0 {
+		return scheduling.Instrument{}, beamledger.NotFound("instrument")
+	}
+	if err != nil {
+		return scheduling.Instrument{}, mapError(err, "instrument")
+	}
+	return db.Instrument(ctx, id)
+}
+
 // InstrumentByCode implements scheduling.InstrumentStore.
 func (db *DB) InstrumentByCode(ctx context.Context, code string) (scheduling.Instrument, error) {
 	in, err := scanInstrument(db.pool.QueryRow(ctx, instrumentSelect+` WHERE i.code = $1`, code))
