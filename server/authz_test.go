@@ -126,7 +126,7 @@ var routeMatrix = map[string]routeExpectation{
 	"POST /api/v1/instruments": {who: managerOnly, body: func(*world) any {
 		return map[string]any{"code": "TEM-2", "name": "Second TEM", "kind": "tem", "accelerating_voltages_v": []float64{200e3}}
 	}},
-	"GET /api/v1/instruments/:instrument_id":              {who: usersAndAgent},
+	"GET /api/v1/instruments/:instrument_id": {who: usersAndAgent},
 	"PUT /api/v1/instruments/:instrument_id/condition-limits": {who: facilityOpsOnly, strict: true, body: func(*world) any {
 		return map[string]any{"camera_length_min_m": 0.02, "camera_length_max_m": 2.5, "condition_checks": "warning"}
 	}},
