@@ -7,10 +7,14 @@
 //	go run ./deploy/testenv [-v] -- CMD ARGS...
 //
 // It starts a throwaway PostgreSQL cluster on a free 127.0.0.1 port (installing
-// the server with apt-get first when it is missing and testenv runs as root),
-// runs CMD with BEAMLEDGER_TEST_DATABASE_URL pointing at it, stops the cluster
-// whatever happens, and exits with CMD's exit status. When
-// BEAMLEDGER_TEST_DATABASE_URL is already set, that database is used as is,
+// the server with apt-get first when it is missing and testenv runs as root)
+// and a throwaway S3-compatible server (versitygw, built with `go install`
+// into .cache/bin on first use, which takes a few minutes), runs CMD with
+// BEAMLEDGER_TEST_DATABASE_URL and BEAMLEDGER_TEST_S3_ENDPOINT,
+// BEAMLEDGER_TEST_S3_ACCESS_KEY, BEAMLEDGER_TEST_S3_SECRET_KEY and
+// BEAMLEDGER_TEST_S3_REGION pointing at them, stops both whatever happens,
+// and exits with CMD's exit status. When BEAMLEDGER_TEST_DATABASE_URL, or
+// BEAMLEDGER_TEST_S3_ENDPOINT, is already set, that service is used as is,
 // which lets CI provide its own. SIGINT and SIGTERM are passed on to CMD, so
 // an interrupted test run still tears the services down.
 package main
@@ -28,10 +32,20 @@ import (
 	"syscall"
 
 	"beamledger/deploy/pgcluster"
+	"beamledger/deploy/s3server"
 )
 
 // envDatabaseURL is the variable the storage and HTTP tests read.
 const envDatabaseURL = "BEAMLEDGER_TEST_DATABASE_URL"
+
+// The variables the object store tests read. Tests make their own buckets,
+// so none is named here.
+const (
+	envS3Endpoint  = "BEAMLEDGER_TEST_S3_ENDPOINT"
+	envS3AccessKey = "BEAMLEDGER_TEST_S3_ACCESS_KEY"
+	envS3SecretKey = "BEAMLEDGER_TEST_S3_SECRET_KEY"
+	envS3Region    = "BEAMLEDGER_TEST_S3_REGION"
+)
 
 // service is one thing the tests need running. Services start in list
 // order and stop in reverse, so a later one may depend on an earlier one
@@ -94,6 +108,11 @@ func plannedServices(logs io.Writer) []service {
 		fmt.Fprintf(os.Stderr, "testenv: using the database in %s from the environment\n", envDatabaseURL)
 	} else {
 		services = append(services, &postgresService{log: logs})
+	}
+	if endpoint := os.Getenv(envS3Endpoint); endpoint != "" {
+		fmt.Fprintf(os.Stderr, "testenv: using the S3 server in %s from the environment\n", envS3Endpoint)
+	} else {
+		services = append(services, &s3Service{log: logs})
 	}
 	return services
 }
@@ -226,4 +245,41 @@ func (p *postgresService) Stop() error {
 		return nil
 	}
 	return p.cluster.Stop()
+}
+
+// s3Service is a throwaway versitygw on 127.0.0.1 with generated keys.
+type s3Service struct {
+	log    io.Writer
+	server *s3server.Server
+}
+
+func (s *s3Service) Name() string { return "S3 server" }
+
+func (s *s3Service) Start(ctx context.Context) ([]string, error) {
+	// Build progress goes to stderr like the PostgreSQL install's: the first
+	// build takes minutes and should not look like a hang.
+	bin, err := s3server.EnsureBinary(ctx, "", os.Stderr)
+	if err != nil {
+		return nil, err
+	}
+	srv, err := s3server.Start(ctx, s3server.Options{Binary: bin, Log: s.log})
+	if err != nil {
+		return nil, err
+	}
+	s.server = srv
+	fmt.Fprintf(os.Stderr, "testenv: versitygw %s on %s (data in %s, removed on exit)\n",
+		s3server.Version, srv.Endpoint, srv.Dir)
+	return []string{
+		envS3Endpoint + "=" + srv.Endpoint,
+		envS3AccessKey + "=" + srv.AccessKey,
+		envS3SecretKey + "=" + srv.SecretKey,
+		envS3Region + "=" + srv.Region,
+	}, nil
+}
+
+func (s *s3Service) Stop() error {
+	if s.server == nil {
+		return nil
+	}
+	return s.server.Stop()
 }

@@ -1,0 +1,131 @@
+package objects
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"strings"
+
+	"github.com/minio/minio-go/v7"
+
+	"beamledger"
+)
+
+// CreateMultipart begins an upload. S3 takes an object's content type and
+// retention when an upload begins, but the interface takes them at
+// completion: see CompleteMultipart.
+func (s *S3) CreateMultipart(ctx context.Context, key string) (string, error) {
+	if err := checkKey("key", key); err != nil {
+		return "", err
+	}
+	id, err := s.core.NewMultipartUpload(ctx, s.bucket, key, minio.PutObjectOptions{})
+	if err != nil {
+		return "", mapS3Error(err, "object "+key)
+	}
+	return id, nil
+}
+
+// PutPart uploads one part, streaming it from r.
+func (s *S3) PutPart(ctx context.Context, key, uploadID string, n int, r io.Reader, size int64) (Part, error) {
+	if err := checkKey("key", key); err != nil {
+		return Part{}, err
+	}
+	if n < 1 || n > maxPartNumber {
+		return Part{}, beamledger.InvalidField("part", fmt.Sprintf("number must be 1 to %d", maxPartNumber))
+	}
+	if size < 0 {
+		return Part{}, beamledger.InvalidField("size", "is negative; a part's size must be known")
+	}
+	if uploadID == "" {
+		return Part{}, beamledger.NotFound("upload")
+	}
+	p, err := s.core.PutObjectPart(ctx, s.bucket, key, uploadID, n, newSizedReader(r, size), size, minio.PutObjectPartOptions{})
+	if err != nil {
+		return Part{}, mapS3Error(err, "upload "+uploadID)
+	}
+	return Part{Number: p.PartNumber, ETag: strings.Trim(p.ETag, `"`), Size: size}, nil
+}
+
+// CompleteMultipart joins the parts. The content type in opts is not stored
+// (S3 would have needed it when the upload began); RetainUntil is applied
+// after completion with PutObjectRetention, so the object is briefly
+// unprotected, and an error then is returned though the object exists.
+func (s *S3) CompleteMultipart(ctx context.Context, key, uploadID string, parts []Part, opts PutOptions) (Info, error) {
+	if err := checkKey("key", key); err != nil {
+		return Info{}, err
+	}
+	if len(parts) == 0 {
+		return Info{}, beamledger.InvalidField("parts", "none given")
+	}
+	if uploadID == "" {
+		return Info{}, beamledger.NotFound("upload")
+	}
+	complete := make([]minio.CompletePart, len(parts))
+	for i, p := range parts {
+		complete[i] = minio.CompletePart{PartNumber: p.Number, ETag: p.ETag}
+	}
+	up, err := s.core.CompleteMultipartUpload(ctx, s.bucket, key, uploadID, complete, minio.PutObjectOptions{})
+	if minio.ToErrorResponse(err).Code == "InvalidPart" && !s.uploadExists(ctx, key, uploadID) {
+		// versitygw checks the ETags' form before the upload id, so a
+		// malformed ETag to an aborted upload says InvalidPart; the upload
+		// being gone is the truer answer, and the one Disk gives.
+		return Info{}, beamledger.NotFound("upload")
+	}
+	if err != nil {
+		return Info{}, mapS3Error(err, "upload "+uploadID)
+	}
+	if mode, until := s.retention(opts.RetainUntil); mode != "" {
+		err := s.client.PutObjectRetention(ctx, s.bucket, key, minio.PutObjectRetentionOptions{
+			Mode: &mode, RetainUntilDate: &until, VersionID: up.VersionID,
+		})
+		if err != nil {
+			return Info{}, fmt.Errorf("objects: %s stored but not protected: %w", key, mapS3Error(err, "object "+key))
+		}
+	}
+	return s.stat(ctx, key)
+}
+
+// uploadExists reports whether the upload is still pending; an error other
+// than NoSuchUpload counts as "exists", leaving the original error to speak.
+func (s *S3) uploadExists(ctx context.Context, key, uploadID string) bool {
+	_, err := s.core.ListObjectParts(ctx, s.bucket, key, uploadID, 0, 1)
+	return minio.ToErrorResponse(err).Code != "NoSuchUpload"
+}
+
+// AbortMultipart aborts an upload; one already gone is not an error.
+func (s *S3) AbortMultipart(ctx context.Context, key, uploadID string) error {
+	if err := checkKey("key", key); err != nil {
+		return err
+	}
+	if uploadID == "" {
+		return nil
+	}
+	err := mapS3Error(s.core.AbortMultipartUpload(ctx, s.bucket, key, uploadID), "upload "+uploadID)
+	if errors.Is(err, beamledger.ErrNotFound) {
+		return nil
+	}
+	return err
+}
+
+// ListMultipart pages through ListMultipartUploads.
+func (s *S3) ListMultipart(ctx context.Context, prefix string) ([]PendingUpload, error) {
+	if err := checkPrefix(prefix); err != nil {
+		return nil, err
+	}
+	var out []PendingUpload
+	var keyMarker, idMarker string
+	for {
+		res, err := s.core.ListMultipartUploads(ctx, s.bucket, prefix, keyMarker, idMarker, "", 1000)
+		if err != nil {
+			return nil, mapS3Error(err, "bucket "+s.bucket)
+		}
+		for _, u := range res.Uploads {
+			out = append(out, PendingUpload{Key: u.Key, UploadID: u.UploadID, Initiated: u.Initiated})
+		}
+		if !res.IsTruncated {
+			return out, nil
+		}
+		keyMarker, idMarker = res.NextKeyMarker, res.NextUploadIDMarker
+	}
+}
