@@ -2,6 +2,7 @@ package server
 
 import (
 	"context"
+	"encoding/json"
 	"fmt"
 	"net/http"
 	"strings"
@@ -304,5 +305,45 @@ func TestBookingAcrossAutumnChangeIsAnHourLonger(t *testing.T) {
 	// [computed] CEST (UTC+2) to CET (UTC+1): 16:00Z to 07:00Z is 15 h elapsed.
 	if got := b.End.Sub(b.Start); got != 15*time.Hour {
 		t.Fatalf("elapsed %s, want 15h (wall clock shows 14 h)", got)
+	}
+}
+
+// TestBookingOverlapFoundBeforeInsert: an overlap seen when the booking's context is
+// read is answered as the insert would answer it (409 naming the range, after the
+// rules), cancelled bookings do not count, and no refused attempt leaves a row or a
+// history event behind.
+func TestBookingOverlapFoundBeforeInsert(t *testing.T) {
+	w := newWorld(t)
+	researcher := w.tokens[accounts.RoleResearcher]
+	w.qualify(w.users[accounts.RoleResearcher].ID, scheduling.LevelIndependent)
+	start := w.nextTuesday(9, 0)
+	var a bookingAnswer
+	if r := w.do(http.MethodPost, "/api/v1/bookings", researcher, w.bookingBody(start, start.Add(3*time.Hour), scheduling.KindIndependent), &a); r.StatusCode != 201 {
+		t.Fatalf("create: %d %s", r.StatusCode, r.Body)
+	}
+	// A broken rule wins over the overlap, as before: 422 naming the rule.
+	r := w.do(http.MethodPost, "/api/v1/bookings", researcher, w.bookingBody(start.Add(time.Hour+7*time.Minute), start.Add(4*time.Hour), scheduling.KindIndependent), nil)
+	if r.StatusCode != 422 || !contains(r.Body, `"rule":"slot"`) {
+		t.Fatalf("off-slot overlap: %d %s", r.StatusCode, r.Body)
+	}
+	// A well-formed overlap: 409 with the taken range in the message and in fields.start.
+	taken := "[" + start.UTC().Format(time.RFC3339) + ", " + start.Add(3*time.Hour).UTC().Format(time.RFC3339) + ")"
+	r = w.do(http.MethodPost, "/api/v1/bookings", researcher, w.bookingBody(start.Add(time.Hour), start.Add(5*time.Hour), scheduling.KindIndependent), nil)
+	var e errorBody
+	_ = json.Unmarshal(r.Body, &e)
+	wantMsg := "the instrument is booked from " + start.UTC().Format(time.RFC3339) + " to " + start.Add(3*time.Hour).UTC().Format(time.RFC3339)
+	if r.StatusCode != 409 || e.Error.Code != "conflict" || e.Error.Message != wantMsg || e.Error.Fields["start"] != "overlaps "+taken {
+		t.Fatalf("overlap: %d %s", r.StatusCode, r.Body)
+	}
+	bs, err := w.db.Bookings(context.Background(), scheduling.BookingFilter{InstrumentID: w.instr.ID, IncludeCancelled: true})
+	if err != nil || len(bs) != 1 {
+		t.Fatalf("bookings after refusals: %d, %v", len(bs), err)
+	}
+	// Once the first booking is cancelled its range is free.
+	if r := w.do(http.MethodPost, "/api/v1/bookings/"+a.ID+"/cancel", researcher, map[string]string{"reason": "plans changed"}, nil); r.StatusCode != 200 {
+		t.Fatalf("cancel: %d %s", r.StatusCode, r.Body)
+	}
+	if r := w.do(http.MethodPost, "/api/v1/bookings", researcher, w.bookingBody(start.Add(time.Hour), start.Add(5*time.Hour), scheduling.KindIndependent), nil); r.StatusCode != 201 {
+		t.Fatalf("over a cancelled booking: %d %s", r.StatusCode, r.Body)
 	}
 }

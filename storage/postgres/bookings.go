@@ -49,7 +49,7 @@ func (db *DB) CreateBooking(ctx context.Context, nb scheduling.NewBooking, now t
 	if !done {
 		err = db.retryTx(ctx, func(tx pgx.Tx) error {
 			var err error
-			out, err = createBooking(ctx, tx, nb, now, check)
+			out, err = db.createBooking(ctx, tx, nb, now, check)
 			return err
 		})
 	}
@@ -63,8 +63,13 @@ func (db *DB) CreateBooking(ctx context.Context, nb scheduling.NewBooking, now t
 // the context is read in one statement, the rules are checked, and the booking with
 // its history row is written in a second, which the exclusion constraints guard as
 // always. A read committed transaction would give the rules no stronger view, since
-// it locks nothing it reads. Service bookings (which displace others) and bookings
-// under a prime-time allowance (which take a lock) report done=false and go through
+// it locks nothing it reads. The context read also finds an active booking the range
+// already overlaps, so that a booking which passes the rules but hits a taken range is
+// answered from that one statement, without a failed insert (which PostgreSQL pays
+// for in an aborted write and pgx in a re-prepared statement) and without a further
+// read to name the range; a booking made between the two statements still meets the
+// exclusion constraint. Service bookings (which displace others) and bookings under a
+// prime-time allowance (which take a lock) report done=false and go through
 // createBooking in a transaction.
 func (db *DB) createBookingDirect(ctx context.Context, nb scheduling.NewBooking, now time.Time,
 	check func(scheduling.BookingContext) error) (b scheduling.Booking, err error, done bool) {
@@ -78,7 +83,7 @@ func (db *DB) createBookingDirect(ctx context.Context, nb scheduling.NewBooking,
 		return b, err, true
 	}
 	defer conn.Release()
-	bc, err := readBookingContext(ctx, conn, nb.InstrumentID, nb.UserID, nb.ProjectID, nb.Start, nb.End, now)
+	bc, taken, err := db.readBookingContext(ctx, conn, nb, now, "")
 	if err != nil {
 		return b, err, true
 	}
@@ -87,6 +92,9 @@ func (db *DB) createBookingDirect(ctx context.Context, nb scheduling.NewBooking,
 	}
 	if err := check(bc); err != nil {
 		return b, err, true
+	}
+	if taken != nil {
+		return b, taken, true
 	}
 	for attempt := 0; ; attempt++ {
 		b, err = insertBooking(ctx, conn, nb, now, nil)
@@ -98,8 +106,8 @@ func (db *DB) createBookingDirect(ctx context.Context, nb scheduling.NewBooking,
 }
 
 // createBooking does CreateBooking's work inside tx (series use it per instance).
-func createBooking(ctx context.Context, tx pgx.Tx, nb scheduling.NewBooking, now time.Time, check func(scheduling.BookingContext) error) (scheduling.Booking, error) {
-	bc, err := bookingContext(ctx, tx, nb.InstrumentID, nb.UserID, nb.ProjectID, nb.Start, nb.End, now, "")
+func (db *DB) createBooking(ctx context.Context, tx pgx.Tx, nb scheduling.NewBooking, now time.Time, check func(scheduling.BookingContext) error) (scheduling.Booking, error) {
+	bc, err := db.bookingContext(ctx, tx, nb, now, "")
 	if err != nil {
 		return scheduling.Booking{}, err
 	}
@@ -180,64 +188,95 @@ type querier interface {
 	Exec(ctx context.Context, sql string, args ...any) (pgconn.CommandTag, error)
 }
 
-// bookingContext reads what the rules need for a booking of userID/projectID on the
-// instrument starting at start, leaving out booking excludeID (being moved), and,
-// when a prime-time allowance applies, takes the project's lock for it.
-func bookingContext(ctx context.Context, tx pgx.Tx, instrumentID, userID, projectID string, start, end, now time.Time, excludeID string) (scheduling.BookingContext, error) {
-	bc, err := readBookingContext(ctx, tx, instrumentID, userID, projectID, start, end, now)
-	if err != nil || projectID == "" || bc.Rules.PrimeAllowanceMinutesPerWeek == 0 {
+// bookingContext reads what the rules need for booking nb, leaving out booking
+// excludeID (being moved), and, when a prime-time allowance applies, takes the
+// project's lock for it.
+func (db *DB) bookingContext(ctx context.Context, tx pgx.Tx, nb scheduling.NewBooking, now time.Time, excludeID string) (scheduling.BookingContext, error) {
+	bc, _, err := db.readBookingContext(ctx, tx, nb, now, excludeID)
+	if err != nil || nb.ProjectID == "" || bc.Rules.PrimeAllowanceMinutesPerWeek == 0 {
 		return bc, err
 	}
-	bc.PrimeUsedMinutes, err = primeUsed(ctx, tx, bc, instrumentID, projectID, start, excludeID)
+	bc.PrimeUsedMinutes, err = primeUsed(ctx, tx, bc, nb.InstrumentID, nb.ProjectID, nb.Start, excludeID)
 	return bc, err
 }
 
 // readBookingContext reads, in one statement, the facility's zone and rules, the
-// instrument's override, flag and name, membership and the booked user's current
-// qualification. It leaves PrimeUsedMinutes at zero.
-func readBookingContext(ctx context.Context, db querier, instrumentID, userID, projectID string, start, end, now time.Time) (scheduling.BookingContext, error) {
-	var bc scheduling.BookingContext
+// instrument's override, flag and name, membership, the booked user's current
+// qualification, and the first active booking other than excludeID that the range
+// overlaps on the instrument or, failing that, for the staff member: taken is then the
+// Conflict naming it, as bookingError words it. It leaves PrimeUsedMinutes at zero.
+func (db *DB) readBookingContext(ctx context.Context, q querier, nb scheduling.NewBooking, now time.Time, excludeID string) (bc scheduling.BookingContext, taken error, err error) {
 	var zone string
 	var facilityRules, instrumentRules []byte
-	// One round trip for the facility, the instrument, membership and the booked user's
-	// current qualification (NULL columns when there is none).
-	const q = `
+	// One round trip for the facility, the instrument, membership, the booked user's
+	// current qualification (NULL columns when there is none) and the overlaps (NULL
+	// when there are none). The overlap reads use the exclusion constraints' indexes.
+	const sql = `
 SELECT f.time_zone, f.booking_rules, i.rules_override, i.bookable, i.name,
        EXISTS (SELECT 1 FROM project_members m WHERE m.project_id = nullif($3, '')::uuid AND m.user_id = $2),
        q.id::text, q.level, q.granted_by::text, q.granted_at, q.reason, q.expires_after_idle_days, q.last_used_at,
        (SELECT max(o.offer_expires_at) FROM waitlist_entries o WHERE o.instrument_id = i.id AND o.status = 'offered'
-           AND o.offer_expires_at > $6 AND o.user_id <> $2 AND o.during && tstzrange($4, $5, '[)'))
+           AND o.offer_expires_at > $6 AND o.user_id <> $2 AND o.during && tstzrange($4, $5, '[)')),
+       ib.lo, ib.hi, sb.lo, sb.hi
 FROM facility f CROSS JOIN instruments i
 LEFT JOIN qualifications q ON q.user_id = $2 AND q.instrument_id = i.id AND q.revoked_at IS NULL
+LEFT JOIN LATERAL (SELECT lower(b.during), upper(b.during) FROM bookings b
+    WHERE b.instrument_id = i.id AND b.status = 'active' AND b.during && tstzrange($4, $5, '[)') AND b.id::text <> $8
+    ORDER BY lower(b.during) LIMIT 1) ib (lo, hi) ON true
+LEFT JOIN LATERAL (SELECT lower(b.during), upper(b.during) FROM bookings b
+    WHERE b.staff_id = nullif($7, '')::uuid AND b.status = 'active' AND b.during && tstzrange($4, $5, '[)') AND b.id::text <> $8
+    ORDER BY lower(b.during) LIMIT 1) sb (lo, hi) ON true
 WHERE f.id = 1 AND i.id = $1`
 	var qID, qLevel, qBy, qReason *string
-	var qAt, qUsed *time.Time
+	var qAt, qUsed, ibStart, ibEnd, sbStart, sbEnd *time.Time
 	var qIdle *int
-	err := db.QueryRow(ctx, q, instrumentID, userID, projectID, start, end, now).Scan(&zone, &facilityRules, &instrumentRules, &bc.Bookable,
-		&bc.InstrumentName, &bc.Member, &qID, &qLevel, &qBy, &qAt, &qReason, &qIdle, &qUsed, &bc.HeldUntil)
+	err = q.QueryRow(ctx, sql, nb.InstrumentID, nb.UserID, nb.ProjectID, nb.Start, nb.End, now, nb.StaffID, excludeID).Scan(
+		&zone, &facilityRules, &instrumentRules, &bc.Bookable, &bc.InstrumentName, &bc.Member,
+		&qID, &qLevel, &qBy, &qAt, &qReason, &qIdle, &qUsed, &bc.HeldUntil, &ibStart, &ibEnd, &sbStart, &sbEnd)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return bc, beamledger.NotFound("instrument (or the facility is not set up)")
+		return bc, nil, beamledger.NotFound("instrument (or the facility is not set up)")
 	}
 	if err != nil {
-		return bc, err
+		return bc, nil, err
 	}
-	if bc.Location, err = time.LoadLocation(zone); err != nil {
-		return bc, fmt.Errorf("facility time zone %q: %w", zone, err)
+	if bc.Location, err = db.location(zone); err != nil {
+		return bc, nil, fmt.Errorf("facility time zone %q: %w", zone, err)
 	}
 	var fo, io scheduling.RulesOverride
 	if err := json.Unmarshal(facilityRules, &fo); err != nil {
-		return bc, fmt.Errorf("facility booking rules: %w", err)
+		return bc, nil, fmt.Errorf("facility booking rules: %w", err)
 	}
 	if err := json.Unmarshal(instrumentRules, &io); err != nil {
-		return bc, fmt.Errorf("instrument booking rules: %w", err)
+		return bc, nil, fmt.Errorf("instrument booking rules: %w", err)
 	}
 	bc.Rules = scheduling.DefaultRules().With(fo).With(io)
 	if qID != nil {
-		bc.Qualification = &scheduling.Qualification{ID: *qID, UserID: userID, InstrumentID: instrumentID,
+		bc.Qualification = &scheduling.Qualification{ID: *qID, UserID: nb.UserID, InstrumentID: nb.InstrumentID,
 			Level: scheduling.QualificationLevel(*qLevel), GrantedBy: *qBy, GrantedAt: *qAt, Reason: *qReason,
 			ExpiresAfterIdleDays: qIdle, LastUsedAt: qUsed}
 	}
-	return bc, nil
+	switch {
+	case ibStart != nil && ibEnd != nil:
+		taken = overlapConflict(instrumentTaken, scheduling.Interval{Start: *ibStart, End: *ibEnd})
+	case sbStart != nil && sbEnd != nil:
+		taken = overlapConflict(staffTaken, scheduling.Interval{Start: *sbStart, End: *sbEnd})
+	}
+	return bc, taken, nil
+}
+
+// location returns the named zone, loaded once per process: time.LoadLocation reads
+// and parses the zone file on every call, and a zone's rules do not change under a
+// running process. The zones are the facility's, a handful at most.
+func (db *DB) location(name string) (*time.Location, error) {
+	if loc, ok := db.zones.Load(name); ok {
+		return loc.(*time.Location), nil
+	}
+	loc, err := time.LoadLocation(name)
+	if err != nil {
+		return nil, err
+	}
+	db.zones.Store(name, loc)
+	return loc, nil
 }
 
 // primeUsed sums the project's prime-time minutes booked on the instrument in the ISO
@@ -295,9 +334,9 @@ func bookingError(ctx context.Context, q querier, err error, instrumentID, staff
 	if !errors.As(err, &pgErr) || pgErr.Code != exclusionViolation {
 		return mapError(err, "booking")
 	}
-	col, what, id := "instrument_id", "the instrument is booked", instrumentID
+	col, what, id := "instrument_id", instrumentTaken, instrumentID
 	if pgErr.ConstraintName == "bookings_staff_no_overlap" {
-		col, what, id = "staff_id", "the staff member is assisting or training elsewhere", staffID
+		col, what, id = "staff_id", staffTaken, staffID
 	}
 	sql := `SELECT lower(during), upper(during) FROM bookings
 WHERE ` + col + ` = $1 AND status = 'active' AND during && tstzrange($2, $3, '[)') AND id::text <> $4
@@ -306,10 +345,22 @@ ORDER BY lower(during) LIMIT 1`
 	if qerr := q.QueryRow(ctx, sql, id, start, end, excludeID).Scan(&iv.Start, &iv.End); qerr != nil {
 		return beamledger.Conflict("%s for part of that time", what)
 	}
+	return overlapConflict(what, iv)
+}
+
+// What a Conflict says was hit: the instrument's time or the staff member's.
+const (
+	instrumentTaken = "the instrument is booked"
+	staffTaken      = "the staff member is assisting or training elsewhere"
+)
+
+// overlapConflict is the Conflict for a range overlapping the active booking iv.
+func overlapConflict(what string, iv scheduling.Interval) error {
+	start, end := iv.Start.UTC().Format(time.RFC3339), iv.End.UTC().Format(time.RFC3339)
 	return &beamledger.Error{
 		Kind:    beamledger.ErrConflict,
-		Message: fmt.Sprintf("%s from %s to %s", what, iv.Start.UTC().Format(time.RFC3339), iv.End.UTC().Format(time.RFC3339)),
-		Fields:  map[string]string{"start": "overlaps [" + iv.Start.UTC().Format(time.RFC3339) + ", " + iv.End.UTC().Format(time.RFC3339) + ")"},
+		Message: what + " from " + start + " to " + end,
+		Fields:  map[string]string{"start": "overlaps [" + start + ", " + end + ")"},
 	}
 }
 
@@ -366,7 +417,9 @@ func (db *DB) MoveBooking(ctx context.Context, id string, start, end time.Time, 
 		if cur.Status != scheduling.StatusActive {
 			return beamledger.Conflict("the booking is cancelled; make a new one")
 		}
-		bc, err := bookingContext(ctx, tx, cur.InstrumentID, cur.UserID, cur.ProjectID, start, end, now, id)
+		moved := scheduling.NewBooking{InstrumentID: cur.InstrumentID, UserID: cur.UserID, ProjectID: cur.ProjectID, StaffID: cur.StaffID,
+			Start: start, End: end}
+		bc, err := db.bookingContext(ctx, tx, moved, now, id)
 		if err != nil {
 			return err
 		}

@@ -3,6 +3,7 @@ package postgres
 import (
 	"context"
 	"fmt"
+	"sync"
 	"time"
 
 	"github.com/jackc/pgx/v5/pgxpool"
@@ -16,6 +17,8 @@ type DB struct {
 	pool *pgxpool.Pool
 	// offerWindow is how long a waitlist offer stays open (see SetOfferWindow).
 	offerWindow time.Duration
+	// zones holds the time zones loaded so far, by name (see location).
+	zones sync.Map
 }
 
 var (

@@ -48,7 +48,7 @@ VALUES ($1, nullif($2, '')::uuid, $3, $4, $5, $6, $7, $8, $9) RETURNING ` + seri
 		for _, occ := range ns.Occurrences {
 			nb := t
 			nb.Start, nb.End, nb.SeriesID = occ.Start, occ.End, res.Series.ID
-			b, conflict, err := bookOccurrence(ctx, tx, nb, now, func(bc scheduling.BookingContext) error { return check(occ, bc) })
+			b, conflict, err := db.bookOccurrence(ctx, tx, nb, now, func(bc scheduling.BookingContext) error { return check(occ, bc) })
 			if err != nil {
 				return err
 			}
@@ -74,13 +74,13 @@ var errSeriesRefused = errors.New("series refused")
 
 // bookOccurrence books one instance under a savepoint, turning an overlap or a broken
 // rule into a SeriesConflict instead of failing the whole transaction.
-func bookOccurrence(ctx context.Context, tx pgx.Tx, nb scheduling.NewBooking, now time.Time,
+func (db *DB) bookOccurrence(ctx context.Context, tx pgx.Tx, nb scheduling.NewBooking, now time.Time,
 	check func(scheduling.BookingContext) error) (scheduling.Booking, *scheduling.SeriesConflict, error) {
 	sp, err := tx.Begin(ctx)
 	if err != nil {
 		return scheduling.Booking{}, nil, err
 	}
-	b, err := createBooking(ctx, sp, nb, now, check)
+	b, err := db.createBooking(ctx, sp, nb, now, check)
 	if err == nil {
 		return b, nil, sp.Commit(ctx)
 	}

@@ -139,7 +139,7 @@ func (db *DB) AcceptOffer(ctx context.Context, id, actor string, now time.Time, 
 		}
 		nb := scheduling.NewBooking{InstrumentID: cur.InstrumentID, ProjectID: cur.ProjectID, UserID: cur.UserID, StaffID: cur.StaffID,
 			Kind: cur.Kind, Start: cur.Start, End: cur.End, Actor: actor, Note: "booked from the waitlist"}
-		if b, err = createBooking(ctx, tx, nb, now, check); err != nil {
+		if b, err = db.createBooking(ctx, tx, nb, now, check); err != nil {
 			return err
 		}
 		const q = `UPDATE waitlist_entries SET status = 'booked', booking_id = $2, updated_at = $3 WHERE id = $1 RETURNING ` + waitlistColumns
