@@ -34,7 +34,14 @@ type tokenSigner struct {
 	audience string
 	ttl      time.Duration
 	parser   *jwt.Parser
+	// now is the clock the parser checks times against.
+	now func() time.Time
+	// verified remembers tokens already verified, until they expire.
+	verified *verifiedTokens
 }
+
+// tokenLeeway is the clock skew allowed between servers when checking exp, nbf and iat.
+const tokenLeeway = 30 * time.Second
 
 func newTokenSigner(c Config, now func() time.Time) *tokenSigner {
 	s := &tokenSigner{
@@ -44,6 +51,8 @@ func newTokenSigner(c Config, now func() time.Time) *tokenSigner {
 		issuer:   c.Issuer,
 		audience: c.Audience,
 		ttl:      c.AccessTTL,
+		now:      now,
+		verified: newVerifiedTokens(),
 	}
 	s.verify[s.kid] = c.SigningKey.Public().(ed25519.PublicKey)
 	for _, k := range c.VerifyKeys {
@@ -56,7 +65,7 @@ func newTokenSigner(c Config, now func() time.Time) *tokenSigner {
 		jwt.WithAudience(c.Audience),
 		jwt.WithExpirationRequired(),
 		jwt.WithIssuedAt(),
-		jwt.WithLeeway(30*time.Second),
+		jwt.WithLeeway(tokenLeeway),
 		jwt.WithTimeFunc(now),
 	)
 	return s
@@ -92,9 +101,25 @@ func (s *tokenSigner) issue(userID string, tokenVersion int64, now time.Time) (s
 
 var errTokenType = errors.New("token is not an access token")
 
-// parse verifies a token and returns its claims. kid is only a lookup key into the
-// configured keys: jku, x5u and jwk headers are never followed (RFC 8725 §3.10).
+// parse verifies a token and returns its claims, which the caller must not change. kid
+// is only a lookup key into the configured keys: jku, x5u and jwk headers are never
+// followed (RFC 8725 §3.10). A token verified before is answered from s.verified
+// while a full verification would still pass.
 func (s *tokenSigner) parse(raw string) (*accessClaims, error) {
+	now := s.now()
+	if claims, ok := s.verified.get(raw, now); ok {
+		return claims, nil
+	}
+	claims, err := s.verifyFull(raw)
+	if err != nil {
+		return nil, err
+	}
+	s.verified.put(raw, claims, tokenLeeway, now)
+	return claims, nil
+}
+
+// verifyFull checks a token in full.
+func (s *tokenSigner) verifyFull(raw string) (*accessClaims, error) {
 	var claims accessClaims
 	_, err := s.parser.ParseWithClaims(raw, &claims, func(t *jwt.Token) (any, error) {
 		if typ, _ := t.Header["typ"].(string); typ != accessTokenType {
