@@ -27,6 +27,8 @@ var (
 	ErrTooLarge     = errors.New("too_large")
 	ErrRateLimited  = errors.New("rate_limited")
 	ErrUnavailable  = errors.New("unavailable")
+	// ErrRangeNotSatisfiable is a byte range that lies outside the file asked for.
+	ErrRangeNotSatisfiable = errors.New("range_not_satisfiable")
 )
 
 // Error is a domain error with a message that may be shown to the caller as is.

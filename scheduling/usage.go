@@ -3,6 +3,8 @@ package scheduling
 import (
 	"context"
 	"time"
+
+	"beamledger"
 )
 
 // UsageSource says who recorded a usage.
@@ -25,6 +27,23 @@ type Usage struct {
 	StartedBy string      `json:"started_by"`
 	EndedBy   string      `json:"ended_by,omitempty"`
 	Source    UsageSource `json:"source"`
+}
+
+// EarlyCheckIn is how long before its booked start work may be checked in: time to
+// load a specimen or let a holder settle, kept and counted as overrun.
+const EarlyCheckIn = 2 * time.Hour
+
+// CheckInWindow says whether work on a booking of [start, end) may be checked in at
+// at: from EarlyCheckIn before the start until the end. Later than that the time was
+// not used as booked (and a no-show may already be recorded); earlier, the check-in
+// belongs to another booking.
+func CheckInWindow(start, end, at time.Time) error {
+	if at.Before(start.Add(-EarlyCheckIn)) || !at.Before(end) {
+		return beamledger.RuleViolation("check_in_window",
+			"work on this booking is checked in from 2 h before its start ("+start.UTC().Format(time.RFC3339)+") until its end ("+end.UTC().Format(time.RFC3339)+")",
+			map[string]string{"at": "is outside the booking's check-in window"})
+	}
+	return nil
 }
 
 // Span is the usage's range; an open usage runs to now.

@@ -3,6 +3,8 @@ package scheduling
 import (
 	"testing"
 	"time"
+
+	"beamledger"
 )
 
 func TestUsageOverrun(t *testing.T) {
@@ -25,6 +27,30 @@ func TestUsageOverrun(t *testing.T) {
 	} {
 		if got := c.u.Overrun(start, end, now); got != c.want {
 			t.Errorf("%s: overrun %s, want %s", c.name, got, c.want)
+		}
+	}
+}
+
+func TestCheckInWindow(t *testing.T) {
+	start := time.Date(2026, 12, 7, 9, 0, 0, 0, time.UTC)
+	end := start.Add(3 * time.Hour)
+	for _, c := range []struct {
+		at time.Time
+		ok bool
+	}{
+		{start.Add(-2 * time.Hour), true}, // the earliest: setting up
+		{start.Add(-2*time.Hour - time.Second), false},
+		{start, true},
+		{end.Add(-time.Second), true},
+		{end, false}, // the booking is over: [start, end) is half-open
+		{start.AddDate(0, 0, -7), false},
+	} {
+		err := CheckInWindow(start, end, c.at)
+		if (err == nil) != c.ok {
+			t.Errorf("check-in at %s: %v, want allowed %v", c.at.Format(time.RFC3339), err, c.ok)
+		}
+		if err != nil && beamledger.FieldReason(err) == "" {
+			t.Errorf("refusal names no field: %v", err)
 		}
 	}
 }

@@ -290,6 +290,24 @@ var routeMatrix = map[string]routeExpectation{
 		return b
 	}},
 
+	// Data files: the file named is in the foreign project, on w.other's acquisition:
+	// hidden from the researcher, readable by the auditor. Staff, managers and the
+	// instrument's agent add files to the acquisition (the same bytes again answer
+	// 200 with the record already there); the auditor adds none.
+	"POST /api/v1/files": {who: access{wUnauth, wAllow, wAllow, wHidden, wDeny, wAllow}, strict: true, setup: matrixAcquisition,
+		query: func(w *world) string { return "acquisition_id=" + matrixAcquisitionID(w) + "&name=frame.json" },
+		body:  func(*world) any { return map[string]int{"frame": 1} }},
+	"GET /api/v1/files":                  {who: usersOnly},
+	"GET /api/v1/files/:file_id":         {who: bookingReaders, setup: matrixFile},
+	"GET /api/v1/files/:file_id/content": {who: bookingReaders, setup: matrixFile},
+	"GET /api/v1/files/:file_id/lineage": {who: bookingReaders, setup: matrixFile},
+	// The second allowed caller (staff, after the manager) finds the output's step
+	// recorded already: 409, past the access check.
+	"POST /api/v1/derivations": {who: bookers, setup: matrixFile, body: func(w *world) any {
+		return map[string]any{"output_file_id": matrixProcessedFile(w), "input_file_ids": []string{matrixFileID(w)},
+			"software": "drift-align", "software_version": "2.3.1", "performed_at": w.clock.Now()}
+	}},
+
 	// Feed tokens are each person's own: a manager neither sees nor revokes anyone
 	// else's, and the token named here is the researcher's.
 	"GET /api/v1/me/feed-tokens":                   {who: usersOnly},
@@ -472,6 +490,45 @@ func matrixAcquisition(w *world) map[string]string {
 	}
 	extra[":acquisition_id"] = a.ID
 	return extra
+}
+
+// matrixAcquisitionID is the one acquisition matrixAcquisition made.
+func matrixAcquisitionID(w *world) string {
+	as, err := w.db.Acquisitions(context.Background(), provenance.AcquisitionFilter{ProjectID: w.foreign.ID})
+	if err != nil || len(as) != 1 {
+		w.t.Fatalf("the matrix acquisition: %v %v", as, err)
+	}
+	return as[0].ID
+}
+
+// matrixFile is a data file on the matrix's acquisition, uploaded by staff.
+func matrixFile(w *world) map[string]string {
+	extra := matrixAcquisition(w)
+	var f provenance.DataFile
+	if r := w.upload("/api/v1/files?acquisition_id="+extra[":acquisition_id"]+"&name=frame.raw", w.tokens[accounts.RoleStaff], []byte("matrix frame"), nil, &f); r.StatusCode != http.StatusCreated {
+		w.t.Fatalf("matrix file: %d %s", r.StatusCode, r.Body)
+	}
+	extra[":file_id"] = f.ID
+	return extra
+}
+
+// matrixFileID is the data file matrixFile made.
+func matrixFileID(w *world) string {
+	fs, err := w.db.DataFiles(context.Background(), provenance.FileFilter{AcquisitionID: matrixAcquisitionID(w)})
+	if err != nil || len(fs) != 1 {
+		w.t.Fatalf("the matrix file: %v %v", fs, err)
+	}
+	return fs[0].ID
+}
+
+// matrixProcessedFile is a processed file of the foreign project, made once by staff.
+func matrixProcessedFile(w *world) string {
+	var f provenance.DataFile
+	r := w.upload("/api/v1/files?project_id="+w.foreign.ID+"&name=aligned.tif", w.tokens[accounts.RoleStaff], []byte("aligned"), nil, &f)
+	if r.StatusCode/100 != 2 {
+		w.t.Fatalf("matrix processed file: %d %s", r.StatusCode, r.Body)
+	}
+	return f.ID
 }
 
 // matrixPath fills a route's parameters with objects the researcher does not own;

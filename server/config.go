@@ -39,6 +39,11 @@ type Config struct {
 	ObjectStore string
 	ObjectDir   string
 	S3          S3Config
+	// MaxFileBytes bounds one data file; large four-dimensional scans reach hundreds of GB.
+	MaxFileBytes int64
+	// ObjectRetention, when set and the store supports object locking, protects each
+	// data file's object in governance mode for this long after its upload.
+	ObjectRetention time.Duration
 
 	MaxBodyBytes      int64
 	ReadHeaderTimeout time.Duration
@@ -76,6 +81,10 @@ type S3Config struct {
 	SecretKey string
 	UseTLS    bool
 	PathStyle bool
+	// CreateBucket creates the bucket on first use when it is missing; ObjectLock
+	// creates it with object locking, which retention needs.
+	CreateBucket bool
+	ObjectLock   bool
 }
 
 // Defaults returns the configuration used when nothing is set.
@@ -88,6 +97,7 @@ func Defaults() Config {
 		RefreshTTL:        30 * 24 * time.Hour,
 		ObjectStore:       "disk",
 		ObjectDir:         ".data/objects",
+		MaxFileBytes:      2 << 40,
 		MaxBodyBytes:      1 << 20,
 		ReadHeaderTimeout: 10 * time.Second,
 		ReadTimeout:       60 * time.Second,
@@ -144,6 +154,12 @@ func (c Config) Validate() error {
 		}
 	default:
 		bad("object store %q must be disk or s3", c.ObjectStore)
+	}
+	if c.MaxFileBytes < 1<<20 {
+		bad("max file size must be at least 1 MiB")
+	}
+	if c.ObjectRetention < 0 || c.ObjectRetention > 100*365*24*time.Hour {
+		bad("object retention %s must be between 0 and 100 years", c.ObjectRetention)
 	}
 	if c.MaxBodyBytes < 1024 {
 		bad("max body size must be at least 1 KiB")
@@ -264,6 +280,8 @@ func (c Config) LogValue() slog.Value {
 		slog.Duration("refresh_ttl", c.RefreshTTL),
 		slog.String("object_store", c.ObjectStore),
 		slog.String("object_dir", c.ObjectDir),
+		slog.Int64("max_file_bytes", c.MaxFileBytes),
+		slog.Duration("object_retention", c.ObjectRetention),
 		slog.String("s3_endpoint", c.S3.Endpoint),
 		slog.String("s3_bucket", c.S3.Bucket),
 		slog.String("s3_access_key", redactSecret(c.S3.AccessKey)),

@@ -40,6 +40,7 @@ var errorStatus = []struct {
 	{beamledger.ErrTooLarge, http.StatusRequestEntityTooLarge, "too_large"},
 	{beamledger.ErrRateLimited, http.StatusTooManyRequests, "rate_limited"},
 	{beamledger.ErrUnavailable, http.StatusServiceUnavailable, "unavailable"},
+	{beamledger.ErrRangeNotSatisfiable, http.StatusRequestedRangeNotSatisfiable, "range_not_satisfiable"},
 }
 
 // echoStatusCodes words echo's own errors (no route, wrong method, body too large).

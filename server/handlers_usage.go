@@ -81,6 +81,12 @@ func (s *Server) recordUsage(c echo.Context, in bool) error {
 	actor := principal(ctx).ID()
 	var u scheduling.Usage
 	if in {
+		// A cancelled booking is refused as a conflict by the store, window or not.
+		if b.Status == scheduling.StatusActive {
+			if err := scheduling.CheckInWindow(b.Start, b.End, at); err != nil {
+				return err
+			}
+		}
 		u, err = s.store.CheckIn(ctx, b.ID, at, actor, source)
 	} else {
 		u, err = s.store.CheckOut(ctx, b.ID, at, actor)

@@ -33,10 +33,14 @@ func (s *Server) handleWaitlistJoin(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	if !me.FacilityWide() {
-		if _, err := s.visibleProject(ctx, nb.ProjectID); err != nil {
-			return err
-		}
+	// Refused here rather than when the offer is accepted: a booking for someone
+	// outside the project could never be made from it.
+	p, err := s.visibleProject(ctx, nb.ProjectID)
+	if err != nil {
+		return err
+	}
+	if !p.HasMember(nb.UserID) {
+		return beamledger.InvalidField("user_id", "is not a member of the project")
 	}
 	e, err := s.store.JoinWaitlist(ctx, scheduling.WaitlistEntry{InstrumentID: nb.InstrumentID, ProjectID: nb.ProjectID, UserID: nb.UserID,
 		Kind: nb.Kind, StaffID: nb.StaffID, Start: start, End: end}, s.now())

@@ -93,10 +93,14 @@ func securityHeaders(next echo.HandlerFunc) echo.HandlerFunc {
 }
 
 // limitBody caps request bodies so a client cannot make the server read without end.
-func limitBody(n int64) echo.MiddlewareFunc {
+func limitBody(n int64, routes map[string]int64) echo.MiddlewareFunc {
 	return func(next echo.HandlerFunc) echo.HandlerFunc {
 		return func(c echo.Context) error {
 			req := c.Request()
+			n := n
+			if m, ok := routes[req.Method+" "+c.Path()]; ok {
+				n = m
+			}
 			if req.ContentLength > n {
 				return &beamledger.Error{Kind: beamledger.ErrTooLarge, Message: fmt.Sprintf("request body is larger than %d bytes", n)}
 			}

@@ -104,6 +104,14 @@ func (s *Server) routes() error {
 	add(http.MethodGet, v1+"/acquisitions/:acquisition_id/versions", users(everyone...), s.handleAcquisitionVersions)
 	add(http.MethodPost, v1+"/acquisitions/:acquisition_id/corrections", users(bookers...), s.handleAcquisitionCorrect)
 
+	// Data files: bytes in the object store under their SHA-256, records here.
+	add(http.MethodPost, v1+"/files", usersOrAgent(accounts.ScopeFileWrite, bookers...), s.handleFileUpload)
+	add(http.MethodGet, v1+"/files", users(everyone...), s.handleFileList)
+	add(http.MethodGet, v1+"/files/:file_id", users(everyone...), s.handleFileGet)
+	add(http.MethodGet, v1+"/files/:file_id/content", users(everyone...), s.handleFileContent)
+	add(http.MethodGet, v1+"/files/:file_id/lineage", users(everyone...), s.handleLineage)
+	add(http.MethodPost, v1+"/derivations", users(bookers...), s.handleDerivationCreate)
+
 	add(http.MethodGet, v1+"/me/feed-tokens", users(everyone...), s.handleFeedTokenList)
 	add(http.MethodPost, v1+"/me/feed-tokens", users(everyone...), s.handleFeedTokenCreate)
 	add(http.MethodDelete, v1+"/me/feed-tokens/:feed_token_id", users(everyone...), s.handleFeedTokenRevoke)

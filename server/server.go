@@ -12,6 +12,7 @@ import (
 	"github.com/labstack/echo/v4"
 
 	"beamledger/accounts"
+	"beamledger/storage/objects"
 	"beamledger/storage/postgres"
 	"beamledger/web"
 )
@@ -29,6 +30,8 @@ type Server struct {
 	// openapi is the API description as JSON, converted once at start.
 	openapi []byte
 	now     func() time.Time
+	// objects keeps data files' bytes.
+	objects objects.Store
 	// rules records the access rule of every registered route, for the route matrix.
 	rules map[string]rule
 }
@@ -48,6 +51,10 @@ func New(cfg Config, store *postgres.DB, log *slog.Logger, now func() time.Time)
 		now:    now,
 		rules:  map[string]rule{},
 	}
+	var err error
+	if s.objects, err = openObjects(cfg); err != nil {
+		return nil, err
+	}
 	pages, err := web.NewPages()
 	if err != nil {
 		return nil, err
@@ -64,7 +71,10 @@ func New(cfg Config, store *postgres.DB, log *slog.Logger, now func() time.Time)
 	} else {
 		e.IPExtractor = echo.ExtractIPDirect()
 	}
-	e.Use(withRequestID, s.logRequests, s.recoverPanics, securityHeaders, limitBody(cfg.MaxBodyBytes))
+	e.Use(withRequestID, s.logRequests, s.recoverPanics, securityHeaders, limitBody(cfg.MaxBodyBytes, map[string]int64{
+		// Data files stream to the object store; JSON bodies stay small.
+		http.MethodPost + " /api/v1/files": cfg.MaxFileBytes,
+	}))
 	s.echo = e
 	if err := s.routes(); err != nil {
 		return nil, err
@@ -160,4 +170,17 @@ func (s *Server) markNoShows(ctx context.Context, every time.Duration) {
 			}
 		}
 	}
+}
+
+// openObjects opens the configured object store. Nothing is contacted yet: an S3
+// bucket is checked (and created, when allowed) on first use.
+func openObjects(cfg Config) (objects.Store, error) {
+	if cfg.ObjectStore == "s3" {
+		ctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
+		defer cancel()
+		return objects.NewS3(ctx, objects.S3Config{Endpoint: cfg.S3.Endpoint, Region: cfg.S3.Region, Bucket: cfg.S3.Bucket,
+			AccessKey: cfg.S3.AccessKey, SecretKey: cfg.S3.SecretKey, UseTLS: cfg.S3.UseTLS, PathStyle: cfg.S3.PathStyle,
+			CreateBucket: cfg.S3.CreateBucket, ObjectLock: cfg.S3.ObjectLock})
+	}
+	return objects.NewDisk(cfg.ObjectDir)
 }

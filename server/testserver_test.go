@@ -78,6 +78,7 @@ func newWorldPool(t testing.TB, maxConns int32) *world {
 	t.Helper()
 	db := pgtest.OpenPool(t, maxConns)
 	cfg, key := testConfig("postgres://unused")
+	cfg.ObjectDir = t.TempDir()
 	// A low-cost hash keeps the suite fast; the production parameters are tested in accounts.
 	w := &world{t: t, db: db, key: key, clock: &testClock{now: time.Now().UTC().Truncate(time.Second)},
 		users: map[accounts.Role]accounts.User{}, tokens: map[accounts.Role]string{}}

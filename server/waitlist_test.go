@@ -28,6 +28,12 @@ func TestWaitlistOfferAcceptAndLapse(t *testing.T) {
 	// A later, overlapping request by the researcher queues behind it.
 	wait2 := w.bookingBody(start.Add(90*time.Minute), start.Add(150*time.Minute), scheduling.KindIndependent)
 	w.do(http.MethodPost, "/api/v1/waitlist", researcher, wait2, &second)
+	// Staff cannot queue someone for a project they are not in: no booking could come of it.
+	stranger := map[string]any{"instrument_id": w.instr.ID, "project_id": w.own.ID, "user_id": w.other.ID, "kind": "independent",
+		"start": start.Add(time.Hour).Format(time.RFC3339), "end": start.Add(2 * time.Hour).Format(time.RFC3339)}
+	if r := w.do(http.MethodPost, "/api/v1/waitlist", w.tokens[accounts.RoleStaff], stranger, nil); r.StatusCode != 400 || !fieldNamed(r, "user_id") {
+		t.Fatalf("staff waitlisting a non-member: %d %s", r.StatusCode, r.Body)
+	}
 	// Waiting for a free range is refused: book it.
 	free := map[string]any{"instrument_id": w.instr.ID, "project_id": w.foreign.ID, "kind": "independent",
 		"start": start.Add(5 * time.Hour).Format(time.RFC3339), "end": start.Add(6 * time.Hour).Format(time.RFC3339)}
