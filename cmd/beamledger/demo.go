@@ -1,6 +1,7 @@
 package main
 
 import (
+	"bytes"
 	"context"
 	"crypto/ed25519"
 	"crypto/rand"
@@ -20,7 +21,9 @@ import (
 	"beamledger/accounts"
 	"beamledger/demo"
 	"beamledger/deploy/pgcluster"
+	"beamledger/provenance"
 	"beamledger/server"
+	"beamledger/storage/objects"
 	"beamledger/storage/postgres"
 )
 
@@ -71,6 +74,17 @@ func cmdDemo(ctx context.Context, args []string, stdout, stderr io.Writer) (err 
 	}
 	if err := demo.LoadAcquisitions(ctx, db, db, db, time.Now()); err != nil {
 		return fmt.Errorf("load demo acquisitions: %w", err)
+	}
+	objs, err := server.OpenObjects(cfg)
+	if err != nil {
+		return err
+	}
+	put := func(ctx context.Context, digest string, data []byte) (string, error) {
+		_, err := objs.Put(ctx, provenance.ObjectKey(digest), bytes.NewReader(data), int64(len(data)), objects.PutOptions{})
+		return objs.Name(), err
+	}
+	if err := demo.LoadFiles(ctx, db, db, db, put, time.Now()); err != nil {
+		return fmt.Errorf("load demo data files: %w", err)
 	}
 	log.Info("starting beamledger demo", slog.String("version", buildVersion()), slog.Any("config", cfg))
 	return server.Run(ctx, cfg, db, log, func(addr string) { printDemoBanner(stdout, addr, accts) })

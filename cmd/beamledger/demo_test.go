@@ -2,9 +2,13 @@ package main
 
 import (
 	"bufio"
+	"bytes"
 	"context"
+	"crypto/sha256"
+	"encoding/hex"
 	"encoding/json"
 	"fmt"
+	"image/png"
 	"io"
 	"net/http"
 	"os"
@@ -174,6 +178,44 @@ func TestDemoServesReadyAndLogin(t *testing.T) {
 	}
 	if len(acqs.Items) != 3 || versions != 4 || warned != 1 {
 		t.Errorf("demo acquisitions: %d, versions summing to %d, %d with warnings; want 3, 4 (one corrected) and 1", len(acqs.Items), versions, warned)
+	}
+
+	// Their data files, stored on local disk, and the processed files derived from them.
+	var files struct {
+		Items []struct {
+			ID, SHA256, FileName, MediaType string
+			AcquisitionID                   *string `json:"acquisition_id"`
+		} `json:"items"`
+	}
+	getJSON(t, d2.url+"/api/v1/files", auditor, &files)
+	if len(files.Items) != 4 {
+		t.Fatalf("demo files: %d, want the survey, the 4D scan and two processed files once", len(files.Items))
+	}
+	for _, f := range files.Items {
+		if f.MediaType != "image/png" {
+			continue
+		}
+		req, _ := http.NewRequest(http.MethodGet, d2.url+"/api/v1/files/"+f.ID+"/content", nil)
+		req.Header.Set("Authorization", "Bearer "+auditor)
+		res, err := http.DefaultClient.Do(req)
+		if err != nil {
+			t.Fatal(err)
+		}
+		body, _ := io.ReadAll(res.Body)
+		res.Body.Close()
+		sum := sha256.Sum256(body)
+		if _, err := png.Decode(bytes.NewReader(body)); err != nil || hex.EncodeToString(sum[:]) != f.SHA256 || res.Header.Get("ETag") != `"`+f.SHA256+`"` {
+			t.Errorf("%s: not a PNG with its recorded digest (%v)", f.FileName, err)
+		}
+		if f.AcquisitionID == nil {
+			var lin struct {
+				Derivations []struct{ Software string } `json:"derivations"`
+			}
+			getJSON(t, d2.url+"/api/v1/files/"+f.ID+"/lineage", auditor, &lin)
+			if len(lin.Derivations) != 1 {
+				t.Errorf("%s: lineage %+v, want the step that made it", f.FileName, lin.Derivations)
+			}
+		}
 	}
 }
 
