@@ -95,4 +95,6 @@ func TestScrub(t *testing.T) {
 	}
 }
 
-func scrubSince(t time.Time) postgres.ScrubSelection { return postgres.ScrubSelection{NotCheckedSince: &t} }
+func scrubSince(t time.Time) postgres.ScrubSelection {
+	return postgres.ScrubSelection{NotCheckedSince: &t}
+}
