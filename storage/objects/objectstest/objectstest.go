@@ -6,8 +6,10 @@ package objectstest
 import (
 	"context"
 	"crypto/rand"
+	"io"
 	"os"
 	"strings"
+	"sync"
 	"testing"
 
 	"beamledger/storage/objects"
@@ -48,7 +50,13 @@ func Config(t testing.TB) objects.S3Config {
 // NewS3 opens a store on a fresh bucket and empties it after the test.
 func NewS3(t testing.TB) *objects.S3 {
 	t.Helper()
-	s, err := objects.NewS3(context.Background(), Config(t))
+	return Open(t, Config(t))
+}
+
+// Open opens a store on the bucket cfg names (creating it) and empties it after the test.
+func Open(t testing.TB, cfg objects.S3Config) *objects.S3 {
+	t.Helper()
+	s, err := objects.NewS3(context.Background(), cfg)
 	if err != nil {
 		t.Fatalf("NewS3: %v", err)
 	}
@@ -65,4 +73,42 @@ func NewS3(t testing.TB) *objects.S3 {
 		}
 	})
 	return s
+}
+
+// BenchObjectBytes is the size of the data-file benchmarks' object: 2 GiB.
+const BenchObjectBytes = 2 << 30
+
+// Pattern hands out n bytes of a repeating random 1 MiB block: incompressible and
+// cheap to produce, so that a benchmark measures the store, not its source, and
+// needs no memory of the object's size.
+type Pattern struct {
+	block []byte
+	off   int
+	left  int64
+}
+
+// NewPattern makes a pattern of n bytes starting shift bytes into the block; every
+// pattern of one process repeats the same block, so patterns of one length and
+// shift hold the same bytes and different shifts give different bytes.
+func NewPattern(n int64, shift int) *Pattern {
+	b := patternBlock()
+	return &Pattern{block: b, left: n, off: shift % len(b)}
+}
+
+// patternBlock is the block every Pattern of the process repeats.
+var patternBlock = sync.OnceValue(func() []byte {
+	b := make([]byte, 1<<20)
+	_, _ = rand.Read(b)
+	return b
+})
+
+// Read implements io.Reader.
+func (p *Pattern) Read(buf []byte) (int, error) {
+	if p.left == 0 {
+		return 0, io.EOF
+	}
+	n := copy(buf[:min(int64(len(buf)), p.left)], p.block[p.off:])
+	p.off = (p.off + n) % len(p.block)
+	p.left -= int64(n)
+	return n, nil
 }
