@@ -56,6 +56,12 @@ type routeExpectation struct {
 	// strict asks a 2xx of every allowed principal, writes included: the setup
 	// leaves every allowed call able to succeed.
 	strict bool
+	// paramsAs, when set, gives path parameters for the principal named, over the
+	// setup's: a fresh object for each caller of a route that uses it up.
+	paramsAs func(w *world, who string) map[string]string
+	// tus, when set, sends the request as a tus client does (Tus-Resumable, the
+	// headers and raw body given) in place of a JSON body.
+	tus func(w *world) (http.Header, []byte)
 }
 
 var (
@@ -65,6 +71,8 @@ var (
 	// usersAndAgent is usersOrAgent(instrument:read, everyone...).
 	usersAndAgent = access{wUnauth, wAllow, wAllow, wAllow, wAllow, wAllow}
 	managerOnly   = access{wUnauth, wAllow, wDeny, wDeny, wDeny, wDeny}
+	// uploadWriters is who reaches staff's resumable upload.
+	uploadWriters = access{wUnauth, wAllow, wAllow, wHidden, wDeny, wHidden}
 )
 
 // routeMatrix holds the expected access of every route, with path parameters naming
@@ -308,6 +316,22 @@ var routeMatrix = map[string]routeExpectation{
 			"software": "drift-align", "software_version": "2.3.1", "performed_at": w.clock.Now()}
 	}},
 
+	// Resumable uploads: begun by those who may add files (as POST /api/v1/files),
+	// then the creator's (here staff's) and managers'. The researcher and the agent
+	// do not see staff's upload; the auditor adds no files. OPTIONS is open.
+	"OPTIONS /api/v1/uploads": {who: openToAll, strict: true, tus: func(*world) (http.Header, []byte) { return nil, nil }},
+	"POST /api/v1/uploads": {who: access{wUnauth, wAllow, wAllow, wHidden, wDeny, wAllow}, strict: true, setup: matrixAcquisition,
+		tus: func(w *world) (http.Header, []byte) {
+			return http.Header{"Upload-Length": {"12"}, "Upload-Metadata": {tusMetadata("filename", "frame.raw", "acquisition_id", matrixAcquisitionID(w))}}, nil
+		}},
+	"HEAD /api/v1/uploads/:upload_id": {who: uploadWriters, strict: true, setup: matrixUpload, tus: func(*world) (http.Header, []byte) { return nil, nil }},
+	// The manager sends the first bytes; staff, second, is at the wrong offset (409).
+	"PATCH /api/v1/uploads/:upload_id": {who: uploadWriters, setup: matrixUpload, tus: func(*world) (http.Header, []byte) {
+		return http.Header{"Upload-Offset": {"0"}}, []byte("fram")
+	}},
+	"DELETE /api/v1/uploads/:upload_id": {who: uploadWriters, strict: true, setup: matrixUpload, tus: func(*world) (http.Header, []byte) { return nil, nil },
+		paramsAs: func(w *world, _ string) map[string]string { return matrixUpload(w) }},
+
 	// Feed tokens are each person's own: a manager neither sees nor revokes anyone
 	// else's, and the token named here is the researcher's.
 	"GET /api/v1/me/feed-tokens":                   {who: usersOnly},
@@ -531,6 +555,22 @@ func matrixProcessedFile(w *world) string {
 	return f.ID
 }
 
+// matrixUpload is a resumable upload of 12 bytes begun by staff on the matrix's
+// acquisition (made on first use).
+func matrixUpload(w *world) map[string]string {
+	as, err := w.db.Acquisitions(context.Background(), provenance.AcquisitionFilter{ProjectID: w.foreign.ID})
+	if err != nil {
+		w.t.Fatal(err)
+	}
+	extra := map[string]string{}
+	if len(as) == 0 {
+		extra = matrixAcquisition(w)
+	}
+	path, _ := w.createUpload(w.tokens[accounts.RoleStaff], 12, "filename", "frame.raw", "acquisition_id", matrixAcquisitionID(w))
+	extra[":upload_id"] = strings.TrimPrefix(path, "/api/v1/uploads/")
+	return extra
+}
+
 // matrixPath fills a route's parameters with objects the researcher does not own;
 // extra gives the ones a route's setup made.
 func matrixPath(t *testing.T, w *world, route string, extra map[string]string) string {
@@ -572,6 +612,9 @@ func (w *world) matrixToken(principal int) string {
 func checkOutcome(t *testing.T, method string, o outcome, strict bool, res response) {
 	t.Helper()
 	code := res.errorCode()
+	if method == http.MethodHead { // no body: the status alone speaks
+		code = map[int]string{401: "unauthorized", 403: "forbidden", 404: "not_found"}[res.StatusCode]
+	}
 	switch o {
 	case wAllow:
 		bad := res.StatusCode == 401 || res.StatusCode == 403 || res.StatusCode == 404 || res.StatusCode >= 500
@@ -656,7 +699,22 @@ func TestRouteRoleMatrix(t *testing.T) {
 					case exp.body != nil:
 						body = exp.body(w)
 					}
-					res := w.do(method, path, w.matrixToken(i), body, nil)
+					callPath := path
+					if exp.paramsAs != nil {
+						params := maps.Clone(extra)
+						if params == nil {
+							params = map[string]string{}
+						}
+						maps.Copy(params, exp.paramsAs(w, matrixPrincipals[i]))
+						callPath = matrixPath(t, w, route, params)
+					}
+					var res response
+					if exp.tus != nil {
+						header, raw := exp.tus(w)
+						res = w.tus(method, callPath, w.matrixToken(i), header, raw)
+					} else {
+						res = w.do(method, callPath, w.matrixToken(i), body, nil)
+					}
 					checkOutcome(t, method, exp.who[i], exp.strict, res)
 				})
 			}

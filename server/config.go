@@ -44,6 +44,9 @@ type Config struct {
 	// ObjectRetention, when set and the store supports object locking, protects each
 	// data file's object in governance mode for this long after its upload.
 	ObjectRetention time.Duration
+	// UploadExpiry is how long a resumable upload may sit idle before the cleanup
+	// discards its parts and its pending record.
+	UploadExpiry time.Duration
 
 	MaxBodyBytes      int64
 	ReadHeaderTimeout time.Duration
@@ -98,6 +101,7 @@ func Defaults() Config {
 		ObjectStore:       "disk",
 		ObjectDir:         ".data/objects",
 		MaxFileBytes:      2 << 40,
+		UploadExpiry:      24 * time.Hour,
 		MaxBodyBytes:      1 << 20,
 		ReadHeaderTimeout: 10 * time.Second,
 		ReadTimeout:       60 * time.Second,
@@ -160,6 +164,9 @@ func (c Config) Validate() error {
 	}
 	if c.ObjectRetention < 0 || c.ObjectRetention > 100*365*24*time.Hour {
 		bad("object retention %s must be between 0 and 100 years", c.ObjectRetention)
+	}
+	if c.UploadExpiry < time.Second {
+		bad("upload expiry %s must be at least 1s", c.UploadExpiry)
 	}
 	if c.MaxBodyBytes < 1024 {
 		bad("max body size must be at least 1 KiB")
@@ -282,6 +289,7 @@ func (c Config) LogValue() slog.Value {
 		slog.String("object_dir", c.ObjectDir),
 		slog.Int64("max_file_bytes", c.MaxFileBytes),
 		slog.Duration("object_retention", c.ObjectRetention),
+		slog.Duration("upload_expiry", c.UploadExpiry),
 		slog.String("s3_endpoint", c.S3.Endpoint),
 		slog.String("s3_bucket", c.S3.Bucket),
 		slog.String("s3_access_key", redactSecret(c.S3.AccessKey)),

@@ -112,6 +112,20 @@ func (s *Server) routes() error {
 	add(http.MethodGet, v1+"/files/:file_id/lineage", users(everyone...), s.handleLineage)
 	add(http.MethodPost, v1+"/derivations", users(bookers...), s.handleDerivationCreate)
 
+	// Resumable uploads (tus 1.0): the same writers as POST /files; an upload is its
+	// creator's, or staff's and managers'. OPTIONS is how a client discovers the
+	// protocol, before it has a token.
+	tus := func(method, path string, r rule, h echo.HandlerFunc) {
+		s.rules[method+" "+path] = r
+		s.echo.Add(method, path, h, tusResumable, s.authorize(r))
+	}
+	fileWriters := usersOrAgent(accounts.ScopeFileWrite, bookers...)
+	tus(http.MethodOptions, v1+"/uploads", open(), s.handleUploadOptions)
+	tus(http.MethodPost, v1+"/uploads", fileWriters, s.handleUploadCreate)
+	tus(http.MethodHead, v1+"/uploads/:upload_id", fileWriters, s.handleUploadHead)
+	tus(http.MethodPatch, v1+"/uploads/:upload_id", fileWriters, s.handleUploadPatch)
+	tus(http.MethodDelete, v1+"/uploads/:upload_id", fileWriters, s.handleUploadDelete)
+
 	add(http.MethodGet, v1+"/me/feed-tokens", users(everyone...), s.handleFeedTokenList)
 	add(http.MethodPost, v1+"/me/feed-tokens", users(everyone...), s.handleFeedTokenCreate)
 	add(http.MethodDelete, v1+"/me/feed-tokens/:feed_token_id", users(everyone...), s.handleFeedTokenRevoke)

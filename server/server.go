@@ -34,6 +34,9 @@ type Server struct {
 	objects objects.Store
 	// rules records the access rule of every registered route, for the route matrix.
 	rules map[string]rule
+	// uploads sizes resumable uploads' segments and parts; the zero value is the
+	// production sizing, and tests shrink it to reach many parts with little data.
+	uploads uploadGeometry
 }
 
 // New builds a server. now is the clock (time.Now outside tests).
@@ -73,7 +76,8 @@ func New(cfg Config, store *postgres.DB, log *slog.Logger, now func() time.Time)
 	}
 	e.Use(withRequestID, s.logRequests, s.recoverPanics, securityHeaders, limitBody(cfg.MaxBodyBytes, map[string]int64{
 		// Data files stream to the object store; JSON bodies stay small.
-		http.MethodPost + " /api/v1/files": cfg.MaxFileBytes,
+		http.MethodPost + " /api/v1/files":               cfg.MaxFileBytes,
+		http.MethodPatch + " /api/v1/uploads/:upload_id": cfg.MaxFileBytes,
 	}))
 	s.echo = e
 	if err := s.routes(); err != nil {
@@ -101,6 +105,7 @@ func (s *Server) Serve(ctx context.Context, ln net.Listener) error {
 	errc := make(chan error, 1)
 	go func() { errc <- hs.Serve(ln) }()
 	go s.markNoShows(ctx, time.Minute)
+	go s.cleanupEvery(ctx)
 	select {
 	case err := <-errc:
 		return err

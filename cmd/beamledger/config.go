@@ -101,6 +101,7 @@ func serverFlags(fs *flag.FlagSet, cfg *server.Config) func() error {
 	e.boolean(&cfg.S3.ObjectLock, "s3-object-lock", "BEAMLEDGER_S3_OBJECT_LOCK", "create the bucket with object locking (needed for retention)")
 	e.integer(&cfg.MaxFileBytes, "max-file-bytes", "BEAMLEDGER_MAX_FILE_BYTES", "largest data file accepted")
 	e.duration(&cfg.ObjectRetention, "object-retention", "BEAMLEDGER_OBJECT_RETENTION", "governance-mode retention of each data file's object (0: none)")
+	e.duration(&cfg.UploadExpiry, "upload-expiry", "BEAMLEDGER_UPLOAD_EXPIRY", "how long an unfinished resumable upload may sit idle before it is discarded")
 	e.integer(&cfg.MaxBodyBytes, "max-body-bytes", "BEAMLEDGER_MAX_BODY_BYTES", "largest JSON request body")
 	e.duration(&cfg.AuthCacheTTL, "auth-cache-ttl", "BEAMLEDGER_AUTH_CACHE_TTL", "how long a process reuses a user's account state (0: every request)")
 	e.boolean(&cfg.TrustProxyHeaders, "trust-proxy-headers", "BEAMLEDGER_TRUST_PROXY_HEADERS", "take client addresses from X-Forwarded-For")
