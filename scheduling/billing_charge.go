@@ -1,0 +1,351 @@
+package scheduling
+
+import (
+	"fmt"
+	"slices"
+	"time"
+
+	"beamledger"
+	"beamledger/accounts"
+)
+
+// ChargeComponent is what part of a booking (or of a statement) a line prices.
+type ChargeComponent string
+
+// Charge components. The first four come from bookings; the last two only appear on
+// statements.
+const (
+	ComponentInstrumentTime   ChargeComponent = "instrument_time"
+	ComponentStaffTime        ChargeComponent = "staff_time"
+	ComponentLateCancellation ChargeComponent = "late_cancellation"
+	ComponentNoShow           ChargeComponent = "no_show"
+	ComponentAdjustment       ChargeComponent = "adjustment"
+	ComponentMonthlyCap       ChargeComponent = "monthly_cap"
+)
+
+// ChargeRule names the policy rule that produced a line's minutes or amount, so a
+// project can check each line against the published policy. The names are stable:
+// statements and CSV exports carry them.
+type ChargeRule string
+
+// Charge rules.
+const (
+	ChargeRuleBooked  = ChargeRule(BasisBooked)  // the booked range was charged
+	ChargeRuleUsed    = ChargeRule(BasisUsed)    // the usage was charged
+	ChargeRuleGreater = ChargeRule(BasisGreater) // the longer of booked and used
+	// ChargeRuleMinimum: the charged time was raised to the policy's minimum.
+	ChargeRuleMinimum          ChargeRule = "minimum_charge"
+	ChargeRuleLateCancellation ChargeRule = "late_cancellation"
+	ChargeRuleNoShow           ChargeRule = "no_show"
+	// ChargeRuleUnattendedCap: the amount was lowered so the booking's instrument
+	// charge does not pass the unattended cap; minutes still show the time.
+	ChargeRuleUnattendedCap ChargeRule = "unattended_cap"
+	ChargeRuleMonthlyCap    ChargeRule = "monthly_cap"        // statement line lowering the month to the cap
+	ChargeRuleAdjustment    ChargeRule = "manager_adjustment" // a manager's credit or debit
+)
+
+// ChargeLine is one priced component of a booking over the part of it one rate schedule
+// prices. AmountMinor = round_half_up(Minutes × HourlyRateMinor ÷ 60), the package's one
+// rounding rule (see billing_money.go), except where Rule is unattended_cap.
+type ChargeLine struct {
+	BookingID       string          `json:"booking_id"`
+	Component       ChargeComponent `json:"component"`
+	Rule            ChargeRule      `json:"rule"`
+	From            time.Time       `json:"from"` // the span this line's minutes were measured on
+	To              time.Time       `json:"to"`
+	Minutes         int             `json:"minutes"`
+	ScheduleID      string          `json:"schedule_id"`
+	Currency        string          `json:"currency"`
+	HourlyRateMinor int64           `json:"hourly_rate_minor"`
+	AmountMinor     int64           `json:"amount_minor"`
+}
+
+// ChargeInput is everything known about one booking when it is priced.
+type ChargeInput struct {
+	Booking   Booking            // kind, range, status, cancellation instant, instrument
+	RateClass accounts.RateClass // the project's
+	Usages    []Usage
+	// RebookedMinutes is how much of a cancelled booking's range others booked since.
+	RebookedMinutes int
+	// NoShow is set when the booking was recorded as a no-show. A no-show with usage
+	// (someone turned up after the grace) is charged as a booking that went ahead.
+	NoShow bool
+	// DisplacedByService is set when a service booking cancelled this one.
+	DisplacedByService bool
+	Now                time.Time // an open usage runs to now
+}
+
+// errRateRange is what pricing answers for a rate that RateSchedule.Validate refuses.
+func errRateRange() error {
+	return beamledger.InvalidField("classes", "an hourly rate is outside 0 to 10^10 minor units")
+}
+
+// chargePlan is which time of a booking is charged, as what and under which rule,
+// before it is priced.
+type chargePlan struct {
+	component ChargeComponent
+	rule      ChargeRule
+	spans     []Interval // the time measured, in order, not overlapping
+	minutes   int        // the time charged after increment and minimum
+}
+
+// ComputeCharges prices one booking under policy p (which the caller has validated):
+// one line per component and rate schedule in force, instrument time before staff
+// time, in time order. Time is always elapsed time between instants, so a night across
+// a change of clocks is charged as long as it lasted. Service bookings, early
+// cancellations and uncharged rules give no lines.
+//
+// The charged minutes are laid from the start of the measured time: what the increment
+// or the minimum adds runs on past its end, and what rebooking by others removes comes
+// off its end. A rate change inside that time splits it at the change instant, each
+// piece priced by the schedule in force over it. Under greater_of_booked_and_used both
+// are priced and the dearer is charged; with one rate in force that is the longer time,
+// and across a rate change it keeps longer work from ever costing less.
+//
+// Errors: ErrInvalid for a malformed input; RuleViolation "rate_schedule_in_force"
+// when no schedule covers the charged time, "rate_class_in_schedule" when the schedule
+// has no rates for the project's class.
+func ComputeCharges(in ChargeInput, schedules []RateSchedule, p BillingPolicy) ([]ChargeLine, error) {
+	if err := in.validate(); err != nil {
+		return nil, err
+	}
+	var best []ChargeLine
+	bestAmount, bestMinutes := int64(-1), 0
+	for _, plan := range p.plans(in) {
+		lines, err := p.price(in, plan, schedules)
+		if err != nil {
+			return nil, err
+		}
+		if amount := sumLines(lines); amount > bestAmount || (amount == bestAmount && plan.minutes > bestMinutes) {
+			best, bestAmount, bestMinutes = lines, amount, plan.minutes
+		}
+	}
+	return best, nil
+}
+
+// price turns a plan into lines: instrument time, capped for unattended bookings, then
+// staff time for the kinds that add it.
+func (p BillingPolicy) price(in ChargeInput, plan chargePlan, schedules []RateSchedule) ([]ChargeLine, error) {
+	lines, staffRates, err := priceInstrument(in, plan, schedules)
+	if err != nil {
+		return nil, err
+	}
+	var staff []ChargeLine
+	if plan.component == ComponentInstrumentTime && slices.Contains(p.StaffTimeKinds, in.Booking.Kind) {
+		for i, l := range lines {
+			var ok bool
+			l.Component, l.HourlyRateMinor = ComponentStaffTime, staffRates[i]
+			if l.AmountMinor, ok = lineAmountMinor(l.Minutes, l.HourlyRateMinor); !ok {
+				return nil, errRateRange()
+			}
+			staff = append(staff, l)
+		}
+	}
+	if in.Booking.Kind == KindUnattended && p.UnattendedCapMinor > 0 {
+		capLines(lines, p.UnattendedCapMinor)
+	}
+	return append(lines, staff...), nil
+}
+
+// validate checks what pricing relies on.
+func (in ChargeInput) validate() error {
+	fe := beamledger.FieldErrors{}
+	b := in.Booking
+	if !b.Kind.Valid() {
+		fe.Add("kind", "must be one of independent, assisted, training, unattended, service")
+	}
+	if !b.Start.Before(b.End) {
+		fe.Add("end", "must be after start")
+	}
+	if b.Status == StatusCancelled && b.CancelledAt == nil {
+		fe.Add("cancelled_at", "is required for a cancelled booking")
+	}
+	if !in.RateClass.Valid() {
+		fe.Add("rate_class", "must be one of internal, external_academic, commercial")
+	}
+	if in.RebookedMinutes < 0 {
+		fe.Add("rebooked_minutes", "must not be negative")
+	}
+	for i, u := range in.Usages {
+		if span := u.Span(in.Now); span.End.Before(span.Start) {
+			fe.Add(fmt.Sprintf("usages[%d].ended_at", i), "must not be before started_at")
+		}
+	}
+	return fe.Err()
+}
+
+// plans decides what of the booking may be charged: none, one plan, or for the
+// greater-of basis the booked and the used plan, of which ComputeCharges charges the
+// dearer.
+func (p BillingPolicy) plans(in ChargeInput) []chargePlan {
+	b := in.Booking
+	booked := []Interval{{Start: b.Start, End: b.End}}
+	switch {
+	case b.Kind == KindService:
+		return nil
+	case b.Status == StatusCancelled:
+		if in.DisplacedByService && p.Displaced == DisplacedNoCharge {
+			return nil
+		}
+		window := time.Duration(p.CancellationWindowMinutes) * time.Minute
+		if b.Start.Sub(*b.CancelledAt) >= window || p.LateCancellation == LateCancelNoCharge {
+			return nil
+		}
+		d := b.Duration()
+		if p.LateCancellation == LateCancelBookedLessRebooked {
+			d = max(d-time.Duration(in.RebookedMinutes)*time.Minute, 0)
+		}
+		return nonEmpty(chargePlan{ComponentLateCancellation, ChargeRuleLateCancellation, booked, p.billedMinutes(d)})
+	}
+	used := mergeSpans(in.Usages, in.Now)
+	if in.NoShow && len(used) == 0 {
+		if p.NoShow != NoShowBooked {
+			return nil
+		}
+		return nonEmpty(chargePlan{ComponentNoShow, ChargeRuleNoShow, booked, p.billedMinutes(b.Duration())})
+	}
+	went := func(spans []Interval) chargePlan {
+		plan := chargePlan{ComponentInstrumentTime, ChargeRule(p.Basis), spans, p.billedMinutes(spansLength(spans))}
+		if plan.minutes > 0 && plan.minutes < p.MinimumMinutes {
+			plan.minutes, plan.rule = p.MinimumMinutes, ChargeRuleMinimum
+		}
+		return plan
+	}
+	switch p.Basis {
+	case BasisBooked:
+		return nonEmpty(went(booked))
+	case BasisUsed:
+		return nonEmpty(went(used))
+	}
+	return nonEmpty(went(booked), went(used))
+}
+
+// nonEmpty keeps the plans that charge some time.
+func nonEmpty(plans ...chargePlan) []chargePlan {
+	return slices.DeleteFunc(plans, func(pl chargePlan) bool { return pl.minutes <= 0 })
+}
+
+// priceInstrument lays the plan's minutes over its spans, splits them at rate changes
+// and prices each schedule's minutes at the booking kind's instrument rate. staffRates
+// holds, beside each line, the staff rate of the same schedule and class.
+func priceInstrument(in ChargeInput, plan chargePlan, schedules []RateSchedule) (lines []ChargeLine, staffRates []int64, err error) {
+	b := in.Booking
+	var groups []SchedulePiece // one per schedule, from its first to its last piece
+	var ends []time.Duration   // charged time up to the end of each group
+	var run time.Duration
+	for _, span := range fitSpans(plan.spans, time.Duration(plan.minutes)*time.Minute) {
+		pieces, err := SchedulePieces(schedules, b.InstrumentID, span.Start, span.End)
+		if err != nil {
+			return nil, nil, err
+		}
+		for _, pc := range pieces {
+			run += pc.End.Sub(pc.Start)
+			if n := len(groups); n > 0 && groups[n-1].Schedule.EffectiveFrom.Equal(pc.Schedule.EffectiveFrom) {
+				groups[n-1].End, ends[n-1] = pc.End, run
+				continue
+			}
+			groups, ends = append(groups, pc), append(ends, run)
+		}
+	}
+	done := 0 // whole minutes charged to earlier groups
+	for i, g := range groups {
+		upTo := int(ends[i] / time.Minute) // the total is whole minutes, so the last group ends on it
+		minutes := upTo - done
+		done = upTo
+		if minutes == 0 {
+			continue
+		}
+		rates, ok := g.Schedule.Rates(in.RateClass)
+		if !ok {
+			return nil, nil, beamledger.RuleViolation("rate_class_in_schedule",
+				fmt.Sprintf("rate schedule %q has no rates for the %s class", g.Schedule.ID, in.RateClass), nil)
+		}
+		rate, _ := rates.InstrumentHourlyMinor(b.Kind)
+		amount, ok := lineAmountMinor(minutes, rate)
+		if !ok {
+			return nil, nil, errRateRange()
+		}
+		staffRates = append(staffRates, rates.StaffHourlyMinor)
+		lines = append(lines, ChargeLine{
+			BookingID: b.ID, Component: plan.component, Rule: plan.rule,
+			From: g.Start, To: g.End, Minutes: minutes,
+			ScheduleID: g.Schedule.ID, Currency: g.Schedule.Currency,
+			HourlyRateMinor: rate, AmountMinor: amount,
+		})
+	}
+	return lines, staffRates, nil
+}
+
+// fitSpans returns spans that hold exactly d of time from the first one's start: the
+// last span runs on past its end when d is longer, and spans are cut from the end when
+// it is shorter. Laying charged time this way means more measured time only ever adds
+// time at the end, so a charge cannot fall as work goes on.
+func fitSpans(spans []Interval, d time.Duration) []Interval {
+	out := make([]Interval, 0, len(spans))
+	for i, s := range spans {
+		if d <= 0 {
+			break
+		}
+		if l := s.End.Sub(s.Start); l > d || i == len(spans)-1 {
+			s.End = s.Start.Add(d)
+		}
+		d -= s.End.Sub(s.Start)
+		out = append(out, s)
+	}
+	return out
+}
+
+// capLines lowers amounts so that the lines sum to at most capMinor: lines are charged
+// in time order until the cap is reached, the line that reaches it is cut to what is
+// left and later lines charge nothing. Each line it lowers names the cap as its rule,
+// and keeps its minutes, so the statement still shows the time used.
+func capLines(lines []ChargeLine, capMinor int64) {
+	left := capMinor
+	for i := range lines {
+		if lines[i].AmountMinor > left {
+			lines[i].AmountMinor, lines[i].Rule = left, ChargeRuleUnattendedCap
+		}
+		left -= lines[i].AmountMinor
+	}
+}
+
+// sumLines is the lines' total. Amounts are bounded by the rate bound, so it cannot wrap.
+func sumLines(lines []ChargeLine) int64 {
+	var s int64
+	for _, l := range lines {
+		s += l.AmountMinor
+	}
+	return s
+}
+
+// mergeSpans is the union of the usages' non-empty spans (open ones run to now), in
+// time order with overlaps merged, so time worked twice over is charged once.
+func mergeSpans(usages []Usage, now time.Time) []Interval {
+	var spans []Interval
+	for _, u := range usages {
+		if s := u.Span(now); s.Start.Before(s.End) {
+			spans = append(spans, s)
+		}
+	}
+	slices.SortFunc(spans, compareInterval)
+	var out []Interval
+	for _, s := range spans {
+		if n := len(out); n > 0 && !s.Start.After(out[n-1].End) {
+			if s.End.After(out[n-1].End) {
+				out[n-1].End = s.End
+			}
+			continue
+		}
+		out = append(out, s)
+	}
+	return out
+}
+
+// spansLength is the elapsed time of spans that do not overlap.
+func spansLength(spans []Interval) time.Duration {
+	var d time.Duration
+	for _, s := range spans {
+		d += s.End.Sub(s.Start)
+	}
+	return d
+}
