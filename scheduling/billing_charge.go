@@ -98,7 +98,8 @@ type chargePlan struct {
 // The charged minutes are laid from the start of the measured time: what the increment
 // or the minimum adds runs on past its end, and what rebooking by others removes comes
 // off its end. A rate change inside that time splits it at the change instant, each
-// piece priced by the schedule in force over it. Under greater_of_booked_and_used both
+// piece priced by the schedule in force over it. Each line's amount is
+// round_half_up(minutes × hourly rate ÷ 60) in minor units, rounded once per line. Under greater_of_booked_and_used both
 // are priced and the dearer is charged; with one rate in force that is the longer time,
 // and across a rate change it keeps longer work from ever costing less.
 //
@@ -167,7 +168,9 @@ func (in ChargeInput) validate() error {
 		fe.Add("rebooked_minutes", "must not be negative")
 	}
 	for i, u := range in.Usages {
-		if span := u.Span(in.Now); span.End.Before(span.Start) {
+		if u.EndedAt == nil && in.Now.IsZero() {
+			fe.Add("now", "is required while a usage is open: it runs to now")
+		} else if span := u.Span(in.Now); span.End.Before(span.Start) {
 			fe.Add(fmt.Sprintf("usages[%d].ended_at", i), "must not be before started_at")
 		}
 	}

@@ -10,10 +10,11 @@ import (
 // held in int64 fields whose names end in Minor. Binary floating point never touches
 // it: a rate times a duration is exact in 128 bits and rounded once.
 //
-// The rounding rule, the only one money sees: an amount that is not a whole number of
-// minor units is rounded half up (toward +∞) to the minor unit, once per charge line,
-// so a line's amount = round_half_up(minutes × hourly rate ÷ 60). Splits across funding
-// accounts never round: they apportion whole minor units (see SplitAmount).
+// The one rounding rule for money: an amount that is not a whole number of minor units
+// is rounded half up (toward +∞) to the minor unit, once per charge line, so a line's
+// amount = round_half_up(minutes × hourly rate ÷ 60); CalculateRates rounds its exact
+// results the same way. Splits across funding accounts never round: they apportion
+// whole minor units (see SplitAmount).
 
 // maxHourlyRateMinor bounds a rate: 10^10 minor units (a hundred million in major units)
 // an hour is already a unit slip, and the bound keeps a month of lines far from int64's

@@ -352,6 +352,8 @@ func TestComputeChargesErrors(t *testing.T) {
 			[]RateSchedule{refSchedule()}, beamledger.ErrInvalid, "", "cancelled_at"},
 		{"backwards range", ChargeInput{Booking: booking("e", KindIndependent, start, start), RateClass: accounts.RateInternal}, nil, beamledger.ErrInvalid, "", "end"},
 		{"negative rebooked", ChargeInput{Booking: b, RateClass: accounts.RateInternal, RebookedMinutes: -1}, nil, beamledger.ErrInvalid, "", "rebooked_minutes"},
+		{"open usage without now", ChargeInput{Booking: b, RateClass: accounts.RateInternal, Usages: []Usage{{StartedAt: start}}}, nil, beamledger.ErrInvalid, "", "now"},
+		{"usage ends before it starts", ChargeInput{Booking: b, RateClass: accounts.RateInternal, Usages: []Usage{used(start, start.Add(-time.Minute))}}, nil, beamledger.ErrInvalid, "", "usages[0].ended_at"},
 		{"twin schedules", ChargeInput{Booking: b, RateClass: accounts.RateInternal}, []RateSchedule{refSchedule(), refSchedule()}, beamledger.ErrInvalid, "", "effective_from"},
 	} {
 		_, err := ComputeCharges(c.in, c.schedules, refPolicy())
