@@ -98,12 +98,14 @@ func (w *uploadWriter) receive(ctx context.Context, body io.Reader) error {
 		if limit == 0 {
 			break
 		}
-		if int64(cap(w.buf)) < limit {
-			w.buf = append(make([]byte, 0, limit), w.buf...)
-		}
 		var bodyErr error
 		for int64(len(w.buf)) < limit && bodyErr == nil {
-			n, err := body.Read(w.buf[len(w.buf):limit])
+			if len(w.buf) == cap(w.buf) {
+				// Only a body of unknown or understated length gets here: grow
+				// by doubling, never past one segment.
+				w.buf = slices.Grow(w.buf, int(min(limit, int64(2*cap(w.buf)+64<<10)))-len(w.buf))
+			}
+			n, err := body.Read(w.buf[len(w.buf):min(int64(cap(w.buf)), limit)])
 			w.buf, bodyErr = w.buf[:len(w.buf)+n], err
 		}
 		if bodyErr != nil {

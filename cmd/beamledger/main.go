@@ -6,6 +6,8 @@
 //	beamledger user create|set-role|disable|reset-password
 //	beamledger token create|revoke         instrument-agent tokens
 //	beamledger derive < conditions.json    derived optics quantities (exit 2 on bad input)
+//	beamledger upload -server URL -acquisition ID PATH...   resumable upload of data files
+//	beamledger scrub                       check stored objects against their SHA-256
 //	beamledger version
 //
 // Settings come from flags or BEAMLEDGER_* environment variables; secrets also from
@@ -60,6 +62,9 @@ commands:
   user create|set-role|disable|reset-password
   token create|revoke                     instrument-agent tokens
   derive [-settings FILE] < conditions    derived optics quantities as JSON (exit 2 on bad input)
+  upload -server URL (-acquisition ID | -project ID) FILE-OR-FOLDER...
+                                          resumable upload of data files (token in $BEAMLEDGER_TOKEN)
+  scrub                                   re-read stored objects and check their SHA-256
   version                                 print the version
 `
 
@@ -90,6 +95,10 @@ func runWithStdin(ctx context.Context, args []string, stdin io.Reader, stdout, s
 		return cmdToken(ctx, rest, stdout, stderr)
 	case "derive":
 		return cmdDerive(rest, stdin, stdout, stderr)
+	case "upload":
+		return cmdUpload(ctx, rest, stdout, stderr)
+	case "scrub":
+		return cmdScrub(ctx, rest, stdout, stderr)
 	case "version":
 		fmt.Fprintln(stdout, "beamledger", buildVersion())
 		return nil

@@ -1,0 +1,386 @@
+package main
+
+import (
+	"context"
+	"crypto/sha256"
+	"encoding/base64"
+	"encoding/hex"
+	"encoding/json"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"io/fs"
+	"net/http"
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"sync"
+	"time"
+)
+
+// uploadOptions is what `beamledger upload` runs with.
+type uploadOptions struct {
+	server, token        string
+	acquisition, project string
+	mediaType            string
+	statePath            string
+	chunkBytes           int64
+	retries              int           // consecutive failures before a file is given up
+	backoff              time.Duration // the first wait; it doubles up to a minute
+	client               *http.Client
+	progressEvery        time.Duration // how often plain (non-terminal) progress lines appear
+	terminal             bool
+}
+
+// cmdUpload sends files (or folders' files) to the server as resumable uploads,
+// the way an instrument computer hands over what it recorded: each file is hashed
+// first, so its digest is declared and checked, then sent in chunks; a network
+// failure is waited out and the upload resumed from the offset the server holds,
+// and the upload's address is kept in a state file, so running the command again
+// after a crash resumes too. Prints "<sha256>  <record id>  <path>" per file.
+func cmdUpload(ctx context.Context, args []string, stdout, stderr io.Writer) error {
+	fs := flag.NewFlagSet("upload", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	o := uploadOptions{retries: 8, backoff: time.Second, progressEvery: 10 * time.Second, client: &http.Client{}}
+	fs.StringVar(&o.server, "server", os.Getenv("BEAMLEDGER_SERVER"), "server URL, such as https://beamledger.example ($BEAMLEDGER_SERVER)")
+	fs.StringVar(&o.token, "token", "", "access or agent token (better: $BEAMLEDGER_TOKEN or $BEAMLEDGER_TOKEN_FILE, which other users cannot read in the process list)")
+	fs.StringVar(&o.acquisition, "acquisition", "", "the acquisition the files were recorded in")
+	fs.StringVar(&o.project, "project", "", "for processed files: their project")
+	fs.StringVar(&o.mediaType, "media-type", "", "media type of every file (default application/octet-stream)")
+	fs.StringVar(&o.statePath, "state", "", "state file of unfinished uploads (default $XDG_CACHE_HOME/beamledger/uploads.json)")
+	chunk := fs.Int64("chunk-bytes", 64<<20, "bytes sent per request")
+	fs.Usage = func() {
+		fmt.Fprintln(stderr, "usage: beamledger upload -server URL (-acquisition ID | -project ID) [flags] FILE-OR-FOLDER...")
+		fs.PrintDefaults()
+	}
+	if err := fs.Parse(args); err != nil {
+		return err
+	}
+	o.chunkBytes = *chunk
+	if o.token == "" {
+		t, err := secret("BEAMLEDGER_TOKEN")
+		if err != nil {
+			return err
+		}
+		o.token = t
+	}
+	switch {
+	case o.server == "" || o.token == "":
+		return &exitError{2, errors.New("give -server and a token ($BEAMLEDGER_TOKEN or $BEAMLEDGER_TOKEN_FILE)")}
+	case (o.acquisition == "") == (o.project == ""):
+		return &exitError{2, errors.New("give -acquisition ID for recorded data or -project ID for processed files")}
+	case fs.NArg() == 0:
+		return &exitError{2, errors.New("name at least one file or folder")}
+	case o.chunkBytes < 1:
+		return &exitError{2, errors.New("-chunk-bytes must be positive")}
+	}
+	if o.statePath == "" {
+		dir, err := os.UserCacheDir()
+		if err != nil {
+			return fmt.Errorf("no cache folder for the upload state (give -state): %w", err)
+		}
+		o.statePath = filepath.Join(dir, "beamledger", "uploads.json")
+	}
+	if f, ok := stderr.(*os.File); ok {
+		if st, err := f.Stat(); err == nil && st.Mode()&os.ModeCharDevice != 0 {
+			o.terminal = true
+		}
+	}
+	return runUploads(ctx, o, fs.Args(), stdout, stderr)
+}
+
+// runUploads uploads every file under paths, going on after a failed file, and
+// fails if any did.
+func runUploads(ctx context.Context, o uploadOptions, paths []string, stdout, stderr io.Writer) error {
+	files, err := filesUnder(paths)
+	if err != nil {
+		return err
+	}
+	state := &uploadState{path: o.statePath}
+	failed := 0
+	for _, path := range files {
+		if err := ctx.Err(); err != nil {
+			return err
+		}
+		sum, id, err := uploadOne(ctx, o, state, path, stderr)
+		if err != nil {
+			failed++
+			fmt.Fprintf(stderr, "beamledger upload: %s: %v\n", path, err)
+			continue
+		}
+		fmt.Fprintf(stdout, "%s  %s  %s\n", sum, id, path)
+	}
+	if failed > 0 {
+		return fmt.Errorf("%d of %d files failed", failed, len(files))
+	}
+	return nil
+}
+
+// filesUnder lists the regular files named or under the folders named, in order.
+func filesUnder(paths []string) ([]string, error) {
+	var out []string
+	for _, p := range paths {
+		err := filepath.WalkDir(p, func(path string, d fs.DirEntry, err error) error {
+			if err != nil {
+				return err
+			}
+			if d.Type().IsRegular() {
+				out = append(out, path)
+			}
+			return nil
+		})
+		if err != nil {
+			return nil, err
+		}
+	}
+	return out, nil
+}
+
+// uploadOne hashes, creates (or finds again) and sends one file.
+func uploadOne(ctx context.Context, o uploadOptions, state *uploadState, path string, stderr io.Writer) (sum, id string, err error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return "", "", err
+	}
+	defer f.Close()
+	st, err := f.Stat()
+	if err != nil {
+		return "", "", err
+	}
+	bar := newProgress(stderr, filepath.Base(path), st.Size(), o)
+	h := sha256.New()
+	if _, err := io.Copy(h, io.TeeReader(f, bar.counter("hashing"))); err != nil {
+		return "", "", err
+	}
+	sum = hex.EncodeToString(h.Sum(nil))
+	abs, _ := filepath.Abs(path)
+	key := strings.Join([]string{o.server, abs, strconv.FormatInt(st.Size(), 10), strconv.FormatInt(st.ModTime().UnixNano(), 10), sum}, "|")
+	c := &tusClient{o: o, file: f, size: st.Size(), bar: bar}
+	loc := state.get(key)
+	offset := int64(-1)
+	if loc != "" {
+		if offset, err = c.head(ctx, loc); err != nil {
+			offset = -1 // gone (expired, or ended elsewhere): begin again
+		}
+	}
+	if offset < 0 {
+		if loc, err = c.create(ctx, filepath.Base(path), sum); err != nil {
+			return sum, "", err
+		}
+		offset = 0
+		state.put(key, loc)
+	}
+	id, err = c.send(ctx, loc, offset)
+	bar.done(err)
+	if err == nil || errors.Is(err, errUploadGone) {
+		state.put(key, "")
+	}
+	return sum, id, err
+}
+
+// errUploadGone is an upload the server no longer knows, or refused for good.
+var errUploadGone = errors.New("the server discarded the upload")
+
+// tusClient speaks tus 1.0.0 for one file.
+type tusClient struct {
+	o    uploadOptions
+	file *os.File
+	size int64
+	bar  *progress
+}
+
+func (c *tusClient) request(ctx context.Context, method, target string, body io.Reader, header map[string]string) (*http.Response, error) {
+	// Locations are paths on the server (tus allows absolute URLs too).
+	u := target
+	if !strings.Contains(target, "://") {
+		u = strings.TrimSuffix(c.o.server, "/") + target
+	}
+	var size int64 = -1
+	if sb, ok := body.(sizedBody); ok {
+		body, size = sb.r, sb.n
+	}
+	req, err := http.NewRequestWithContext(ctx, method, u, body)
+	if err != nil {
+		return nil, err
+	}
+	if size >= 0 {
+		req.ContentLength = size // tus servers want to know what is coming
+	}
+	req.Header.Set("Tus-Resumable", "1.0.0")
+	req.Header.Set("Authorization", "Bearer "+c.o.token)
+	for k, v := range header {
+		req.Header.Set(k, v)
+	}
+	return c.o.client.Do(req)
+}
+
+// sizedBody is a request body of known length.
+type sizedBody struct {
+	r io.Reader
+	n int64
+}
+
+func (b sizedBody) Read(p []byte) (int, error) { return b.r.Read(p) }
+
+// create begins the upload and returns its location.
+func (c *tusClient) create(ctx context.Context, name, sum string) (string, error) {
+	meta := []string{"filename " + b64(name), "sha256 " + b64(sum)}
+	if c.o.acquisition != "" {
+		meta = append(meta, "acquisition_id "+b64(c.o.acquisition))
+	} else {
+		meta = append(meta, "project_id "+b64(c.o.project))
+	}
+	if c.o.mediaType != "" {
+		meta = append(meta, "media_type "+b64(c.o.mediaType))
+	}
+	res, err := c.request(ctx, http.MethodPost, "/api/v1/uploads", nil, map[string]string{
+		"Upload-Length": strconv.FormatInt(c.size, 10), "Upload-Metadata": strings.Join(meta, ",")})
+	if err != nil {
+		return "", err
+	}
+	defer res.Body.Close()
+	if res.StatusCode != http.StatusCreated {
+		return "", answerError(res)
+	}
+	return res.Header.Get("Location"), nil
+}
+
+// head asks for the offset the server holds.
+func (c *tusClient) head(ctx context.Context, loc string) (int64, error) {
+	res, err := c.request(ctx, http.MethodHead, loc, nil, nil)
+	if err != nil {
+		return 0, err
+	}
+	res.Body.Close()
+	if res.StatusCode == http.StatusNotFound {
+		return 0, errUploadGone
+	}
+	if res.StatusCode != http.StatusOK {
+		return 0, fmt.Errorf("HEAD: %s", res.Status)
+	}
+	return strconv.ParseInt(res.Header.Get("Upload-Offset"), 10, 64)
+}
+
+// send PATCHes chunks from offset to the end, resuming after failures from the
+// offset the server reports, and returns the stored file's record id.
+func (c *tusClient) send(ctx context.Context, loc string, offset int64) (string, error) {
+	failures := 0
+	for {
+		id, next, err := c.patch(ctx, loc, offset)
+		switch {
+		case err == nil && id != "":
+			return id, nil
+		case err == nil:
+			offset, failures = next, 0
+			continue
+		case errors.Is(err, errUploadGone), ctx.Err() != nil:
+			return "", err
+		}
+		failures++
+		if failures > c.o.retries {
+			return "", err
+		}
+		wait := min(c.o.backoff<<(failures-1), time.Minute)
+		c.bar.note(fmt.Sprintf("%v; resuming in %s", err, wait.Round(time.Millisecond)))
+		select {
+		case <-ctx.Done():
+			return "", ctx.Err()
+		case <-time.After(wait):
+		}
+		if got, herr := c.head(ctx, loc); herr == nil {
+			offset = got
+		} else if errors.Is(herr, errUploadGone) {
+			return "", herr
+		}
+	}
+}
+
+// patch sends one chunk at offset. It returns the record id once the file is
+// complete, else the new offset.
+func (c *tusClient) patch(ctx context.Context, loc string, offset int64) (id string, next int64, err error) {
+	n := min(c.o.chunkBytes, c.size-offset)
+	c.bar.set(offset)
+	var body io.Reader = http.NoBody
+	if n > 0 {
+		body = io.TeeReader(io.NewSectionReader(c.file, offset, n), c.bar.counter("uploading"))
+	}
+	res, err := c.request(ctx, http.MethodPatch, loc, sizedBody{body, n}, map[string]string{
+		"Content-Type": "application/offset+octet-stream", "Upload-Offset": strconv.FormatInt(offset, 10)})
+	if err != nil {
+		return "", 0, err
+	}
+	defer res.Body.Close()
+	switch {
+	case res.StatusCode == http.StatusNoContent:
+		next, err = strconv.ParseInt(res.Header.Get("Upload-Offset"), 10, 64)
+		if err == nil && next == c.size {
+			if id = res.Header.Get("Data-File-Id"); id == "" {
+				err = errors.New("the server finished the upload without naming its record")
+			}
+		}
+		return id, next, err
+	case res.StatusCode == http.StatusConflict, res.StatusCode >= 500:
+		return "", 0, answerError(res) // retried: HEAD says where to go on
+	case res.StatusCode == http.StatusNotFound:
+		return "", 0, errUploadGone
+	}
+	return "", 0, fmt.Errorf("%w: %v", errUploadGone, answerError(res))
+}
+
+// answerError words a refusal with the server's message.
+func answerError(res *http.Response) error {
+	var body struct {
+		Error struct{ Message string } `json:"error"`
+	}
+	b, _ := io.ReadAll(io.LimitReader(res.Body, 64<<10))
+	if json.Unmarshal(b, &body) == nil && body.Error.Message != "" {
+		return fmt.Errorf("%s: %s", res.Status, body.Error.Message)
+	}
+	return errors.New(res.Status)
+}
+
+func b64(s string) string { return base64.StdEncoding.EncodeToString([]byte(s)) }
+
+// uploadState remembers the location of each unfinished upload, keyed by server,
+// path, size, modification time and digest, so that a changed file starts afresh.
+type uploadState struct {
+	path string
+	mu   sync.Mutex
+}
+
+func (s *uploadState) load() map[string]string {
+	m := map[string]string{}
+	if b, err := os.ReadFile(s.path); err == nil {
+		_ = json.Unmarshal(b, &m) // a damaged state only costs a fresh start
+	}
+	return m
+}
+
+func (s *uploadState) get(key string) string {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.load()[key]
+}
+
+// put records loc for key ("" forgets it), writing the file whole and renaming it
+// into place so a crash never leaves it half written.
+func (s *uploadState) put(key, loc string) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	m := s.load()
+	if loc == "" {
+		delete(m, key)
+	} else {
+		m[key] = loc
+	}
+	b, _ := json.MarshalIndent(m, "", "  ")
+	if err := os.MkdirAll(filepath.Dir(s.path), 0o700); err != nil {
+		return
+	}
+	tmp := s.path + ".tmp"
+	if os.WriteFile(tmp, b, 0o600) == nil {
+		_ = os.Rename(tmp, s.path)
+	}
+}

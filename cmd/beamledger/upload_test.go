@@ -1,0 +1,305 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"crypto/ed25519"
+	"crypto/sha256"
+	"encoding/hex"
+	"encoding/json"
+	"io"
+	"log/slog"
+	"net"
+	"net/http"
+	"net/http/httptest"
+	"os"
+	"path/filepath"
+	"strings"
+	"sync"
+	"testing"
+	"time"
+
+	"beamledger/accounts"
+	"beamledger/server"
+	"beamledger/storage/postgres"
+	"beamledger/storage/postgres/pgtest"
+)
+
+const uploadTestPassword = "a long test passphrase for uploads"
+
+// uploadFacility is a server in this process over a fresh database, with one
+// researcher and their project.
+type uploadFacility struct {
+	url, token, projectID string
+	db                    *postgres.DB
+}
+
+func newUploadFacility(t *testing.T) *uploadFacility {
+	t.Helper()
+	db := pgtest.Open(t)
+	_, key, err := ed25519.GenerateKey(nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg := server.Defaults()
+	cfg.DatabaseURL, cfg.SigningKey, cfg.ObjectDir = "postgres://unused", key, t.TempDir()
+	srv, err := server.New(cfg, db, slog.New(slog.NewTextHandler(io.Discard, nil)), time.Now)
+	if err != nil {
+		t.Fatal(err)
+	}
+	hs := httptest.NewServer(srv.Handler())
+	t.Cleanup(hs.Close)
+	f := &uploadFacility{url: hs.URL, db: db}
+	f.projectID, f.token = researcherWithProject(t, db, hs.URL)
+	return f
+}
+
+// researcherWithProject makes a researcher with a project of their own and signs
+// them in at base.
+func researcherWithProject(t *testing.T, db *postgres.DB, base string) (projectID, token string) {
+	t.Helper()
+	ctx := context.Background()
+	hash, err := accounts.NewPasswordHasher(accounts.DefaultPasswordParams(), 1).Hash(ctx, uploadTestPassword)
+	if err != nil {
+		t.Fatal(err)
+	}
+	u, err := db.CreateUser(ctx, accounts.NewUser{Email: "ri@test.example", DisplayName: "Ri", Role: accounts.RoleResearcher}, hash)
+	if err != nil {
+		t.Fatal(err)
+	}
+	p, err := db.CreateProject(ctx, accounts.NewProject{Code: "UP-1", Title: "Uploads", PrincipalInvestigatorID: u.ID, RateClass: accounts.RateClass("internal")})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return p.ID, login(t, base, "ri@test.example", uploadTestPassword)
+}
+
+// fileRecord is the server's record of a data file.
+type fileRecord struct {
+	ID        string `json:"id"`
+	SHA256    string `json:"sha256"`
+	SizeBytes int64  `json:"size_bytes"`
+	Status    string `json:"status"`
+	FileName  string `json:"file_name"`
+}
+
+func (f *uploadFacility) record(t *testing.T, id string) fileRecord {
+	t.Helper()
+	var r fileRecord
+	getJSON(t, f.url+"/api/v1/files/"+id, f.token, &r)
+	return r
+}
+
+func (f *uploadFacility) options(t *testing.T, base string) uploadOptions {
+	return uploadOptions{server: base, token: f.token, project: f.projectID, statePath: filepath.Join(t.TempDir(), "uploads.json"),
+		chunkBytes: 4 << 20, retries: 5, backoff: 10 * time.Millisecond, progressEvery: time.Hour, client: &http.Client{}}
+}
+
+func testPattern(n int) []byte {
+	b := make([]byte, n)
+	for i := range b {
+		b[i] = byte(i*13 + i>>9)
+	}
+	return b
+}
+
+func hexSum(b []byte) string {
+	s := sha256.Sum256(b)
+	return hex.EncodeToString(s[:])
+}
+
+// TestUploadCommandFolder uploads a folder of two files through the command line
+// and checks the lines printed against the records stored.
+func TestUploadCommandFolder(t *testing.T) {
+	f := newUploadFacility(t)
+	dir := t.TempDir()
+	big := testPattern(11<<20 + 5)
+	files := map[string][]byte{filepath.Join(dir, "abc.txt"): []byte("abc"), filepath.Join(dir, "scans", "frame-0001.raw"): big}
+	for p, b := range files {
+		if err := os.MkdirAll(filepath.Dir(p), 0o755); err != nil {
+			t.Fatal(err)
+		}
+		if err := os.WriteFile(p, b, 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	t.Setenv("BEAMLEDGER_TOKEN", f.token)
+	var out, errOut bytes.Buffer
+	err := run(context.Background(), []string{"upload", "-server", f.url, "-project", f.projectID, "-chunk-bytes", "3000000",
+		"-state", filepath.Join(t.TempDir(), "state.json"), dir}, &out, &errOut)
+	if err != nil {
+		t.Fatalf("upload: %v\n%s", err, errOut.String())
+	}
+	lines := strings.Split(strings.TrimSpace(out.String()), "\n")
+	if len(lines) != 2 {
+		t.Fatalf("printed %q", out.String())
+	}
+	for _, line := range lines {
+		fields := strings.Split(line, "  ")
+		if len(fields) != 3 {
+			t.Fatalf("line %q", line)
+		}
+		want := files[fields[2]]
+		rec := f.record(t, fields[1])
+		// [published: FIPS 180-4 examples] "abc" → ba7816bf…; the other is checked against Go's own.
+		if fields[0] != hexSum(want) || rec.SHA256 != fields[0] || rec.Status != "stored" || rec.SizeBytes != int64(len(want)) || rec.FileName != filepath.Base(fields[2]) {
+			t.Errorf("line %q: record %+v", line, rec)
+		}
+	}
+	if !strings.Contains(out.String(), "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad  ") {
+		t.Errorf("abc.txt's digest is not the published one: %s", out.String())
+	}
+	if !strings.Contains(errOut.String(), "MiB/s") || !strings.Contains(errOut.String(), "left") {
+		t.Errorf("no progress with rate and time left on stderr: %q", errOut.String())
+	}
+}
+
+// cutProxy passes TCP connections to target and cuts the client's side once the
+// bytes sent upstream pass cutAt (negative: never), the way a network failure
+// would. With once set it cuts one time and then passes everything.
+type cutProxy struct {
+	ln     net.Listener
+	target string
+	mu     sync.Mutex
+	sent   int64
+	cutAt  int64
+	once   bool
+	cuts   int
+}
+
+func newCutProxy(t *testing.T, target string, cutAt int64, once bool) *cutProxy {
+	t.Helper()
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := &cutProxy{ln: ln, target: strings.TrimPrefix(target, "http://"), cutAt: cutAt, once: once}
+	t.Cleanup(func() { ln.Close() })
+	go p.serve()
+	return p
+}
+
+func (p *cutProxy) url() string { return "http://" + p.ln.Addr().String() }
+
+func (p *cutProxy) serve() {
+	for {
+		c, err := p.ln.Accept()
+		if err != nil {
+			return
+		}
+		go p.pass(c)
+	}
+}
+
+func (p *cutProxy) pass(c net.Conn) {
+	up, err := net.Dial("tcp", p.target)
+	if err != nil {
+		c.Close()
+		return
+	}
+	defer c.Close()
+	defer up.Close()
+	go func() { _, _ = io.Copy(c, up); c.Close() }()
+	buf := make([]byte, 32<<10)
+	for {
+		n, err := c.Read(buf)
+		if n > 0 {
+			p.mu.Lock()
+			cut := p.cutAt >= 0 && p.sent+int64(n) > p.cutAt
+			keep := int64(n)
+			if cut {
+				keep = max(0, p.cutAt-p.sent)
+				p.cuts++
+				if p.once {
+					p.cutAt = -1
+				} else {
+					p.cutAt = p.sent + keep // every later byte is cut too
+				}
+			}
+			p.sent += keep
+			p.mu.Unlock()
+			if _, werr := up.Write(buf[:keep]); werr != nil || cut {
+				return
+			}
+		}
+		if err != nil {
+			return
+		}
+	}
+}
+
+func (p *cutProxy) setCut(at int64, once bool) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	p.cutAt, p.once = at, once
+}
+
+// TestUploadCommandResumes: a connection cut part-way is waited out and the upload
+// resumed from the server's offset; and a run that gave up resumes, on the next
+// run, the same upload instead of beginning again.
+func TestUploadCommandResumes(t *testing.T) {
+	f := newUploadFacility(t)
+	data := testPattern(10<<20 + 77)
+	path := filepath.Join(t.TempDir(), "stack.tif")
+	if err := os.WriteFile(path, data, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	proxy := newCutProxy(t, f.url, 6<<20, true)
+	o := f.options(t, proxy.url())
+	var out, errOut bytes.Buffer
+	if err := runUploads(context.Background(), o, []string{path}, &out, &errOut); err != nil {
+		t.Fatalf("upload through a cut: %v\n%s", err, errOut.String())
+	}
+	id := strings.Fields(out.String())[1]
+	if rec := f.record(t, id); rec.SHA256 != hexSum(data) || proxy.cuts != 1 || !strings.Contains(errOut.String(), "resuming") {
+		t.Errorf("record %+v after %d cuts; stderr %q", rec, proxy.cuts, errOut.String())
+	}
+
+	// A run that gives up at the first failure (as a crash would end it) ...
+	other := testPattern(9 << 20)
+	other[0] = 1
+	path2 := filepath.Join(t.TempDir(), "second.tif")
+	if err := os.WriteFile(path2, other, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	proxy.cutFromNow(5 << 20)
+	o.retries = 0
+	out.Reset()
+	if err := runUploads(context.Background(), o, []string{path2}, &out, &errOut); err == nil {
+		t.Fatal("the run through a dead network succeeded")
+	}
+	var state map[string]string
+	b, _ := os.ReadFile(o.statePath)
+	if err := json.Unmarshal(b, &state); err != nil || len(state) != 1 {
+		t.Fatalf("state after the failed run: %s %v", b, err)
+	}
+	var pending struct {
+		Items []fileRecord `json:"items"`
+	}
+	getJSON(t, f.url+"/api/v1/files?project_id="+f.projectID, f.token, &pending)
+	var pendingID string
+	for _, r := range pending.Items {
+		if r.Status == "pending" {
+			pendingID = r.ID
+		}
+	}
+	// ... and the next run picks the same upload up: the record is the pending one.
+	proxy.setCut(-1, false)
+	o.retries = 5
+	if err := runUploads(context.Background(), o, []string{path2}, &out, &errOut); err != nil {
+		t.Fatalf("second run: %v\n%s", err, errOut.String())
+	}
+	if got := strings.Fields(out.String()); len(got) != 3 || got[1] != pendingID || pendingID == "" || got[0] != hexSum(other) {
+		t.Errorf("second run printed %q; the pending record was %s", out.String(), pendingID)
+	}
+	if b, _ := os.ReadFile(o.statePath); strings.Contains(string(b), "uploads/") {
+		t.Errorf("state still names the finished upload: %s", b)
+	}
+}
+
+// cutFromNow cuts every connection once n more bytes have gone upstream.
+func (p *cutProxy) cutFromNow(n int64) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	p.cutAt, p.once = p.sent+n, false
+}
