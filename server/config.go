@@ -17,6 +17,7 @@ import (
 	"time"
 
 	"beamledger/accounts"
+	"beamledger/provenance"
 )
 
 // Config is everything the server needs, filled once from flags and BEAMLEDGER_*
@@ -70,6 +71,17 @@ type Config struct {
 	// behind a proxy that sets it.
 	TrustProxyHeaders bool
 
+	// LedgerKey signs the ledger's checkpoints (Ed25519). Run refuses to start
+	// without it; it should not be the JWT key, whose rotation would then orphan
+	// every checkpoint's signature.
+	LedgerKey ed25519.PrivateKey
+	// LedgerOrigin names the ledger in its checkpoints and is the signing key's name:
+	// a schema-less URL unique to the facility, e.g. "ledger.facility.example.org".
+	LedgerOrigin string
+	// LedgerSealInterval is how often each process seals committed ledger events,
+	// which bounds how long an event stays unsealed.
+	LedgerSealInterval time.Duration
+
 	// Demo marks the embedded demo: weaker password rule, demo accounts printed.
 	Demo     bool
 	LogLevel slog.Level
@@ -93,27 +105,29 @@ type S3Config struct {
 // Defaults returns the configuration used when nothing is set.
 func Defaults() Config {
 	return Config{
-		ListenAddr:        "127.0.0.1:8080",
-		Issuer:            "beamledger",
-		Audience:          "beamledger-api",
-		AccessTTL:         15 * time.Minute,
-		RefreshTTL:        30 * 24 * time.Hour,
-		ObjectStore:       "disk",
-		ObjectDir:         ".data/objects",
-		MaxFileBytes:      2 << 40,
-		UploadExpiry:      24 * time.Hour,
-		MaxBodyBytes:      1 << 20,
-		ReadHeaderTimeout: 10 * time.Second,
-		ReadTimeout:       60 * time.Second,
-		WriteTimeout:      60 * time.Second,
-		IdleTimeout:       120 * time.Second,
-		ShutdownTimeout:   20 * time.Second,
-		HashConcurrency:   2,
-		AuthCacheTTL:      time.Second,
-		MinPasswordLength: accounts.MinPasswordLength,
-		LoginPerAccount:   accounts.ThrottleRule{MaxFailures: 10, Window: 15 * time.Minute},
-		LoginPerAddress:   accounts.ThrottleRule{MaxFailures: 50, Window: 15 * time.Minute},
-		LogLevel:          slog.LevelInfo,
+		ListenAddr:         "127.0.0.1:8080",
+		Issuer:             "beamledger",
+		Audience:           "beamledger-api",
+		AccessTTL:          15 * time.Minute,
+		RefreshTTL:         30 * 24 * time.Hour,
+		ObjectStore:        "disk",
+		ObjectDir:          ".data/objects",
+		MaxFileBytes:       2 << 40,
+		UploadExpiry:       24 * time.Hour,
+		MaxBodyBytes:       1 << 20,
+		ReadHeaderTimeout:  10 * time.Second,
+		ReadTimeout:        60 * time.Second,
+		WriteTimeout:       60 * time.Second,
+		IdleTimeout:        120 * time.Second,
+		ShutdownTimeout:    20 * time.Second,
+		HashConcurrency:    2,
+		AuthCacheTTL:       time.Second,
+		LedgerOrigin:       "beamledger.localhost/ledger",
+		LedgerSealInterval: 500 * time.Millisecond,
+		MinPasswordLength:  accounts.MinPasswordLength,
+		LoginPerAccount:    accounts.ThrottleRule{MaxFailures: 10, Window: 15 * time.Minute},
+		LoginPerAddress:    accounts.ThrottleRule{MaxFailures: 50, Window: 15 * time.Minute},
+		LogLevel:           slog.LevelInfo,
 	}
 }
 
@@ -173,6 +187,19 @@ func (c Config) Validate() error {
 	}
 	if c.AuthCacheTTL < 0 || c.AuthCacheTTL > 10*time.Second {
 		bad("account-state cache %s must be between 0 and 10s", c.AuthCacheTTL)
+	}
+	if len(c.LedgerKey) > 0 {
+		if err := checkSigningKey(c.LedgerKey); err != nil {
+			bad("BEAMLEDGER_LEDGER_KEY: %v", err)
+		} else if bytes.Equal(c.LedgerKey, c.SigningKey) {
+			bad("BEAMLEDGER_LEDGER_KEY must not be the JWT signing key")
+		}
+	}
+	if err := provenance.CheckOrigin(c.LedgerOrigin); err != nil {
+		bad("BEAMLEDGER_LEDGER_ORIGIN: %v", err)
+	}
+	if c.LedgerSealInterval < 10*time.Millisecond || c.LedgerSealInterval > time.Minute {
+		bad("ledger seal interval %s must be between 10ms and 1m", c.LedgerSealInterval)
 	}
 	if c.HashConcurrency < 1 {
 		bad("hash concurrency must be at least 1")
@@ -298,6 +325,9 @@ func (c Config) LogValue() slog.Value {
 		slog.Int("hash_concurrency", c.HashConcurrency),
 		slog.Duration("auth_cache_ttl", c.AuthCacheTTL),
 		slog.Bool("trust_proxy_headers", c.TrustProxyHeaders),
+		slog.String("ledger_origin", c.LedgerOrigin),
+		slog.String("ledger_key_id", signingKID(c.LedgerKey)),
+		slog.Duration("ledger_seal_interval", c.LedgerSealInterval),
 		slog.Bool("demo", c.Demo),
 	)
 }

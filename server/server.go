@@ -12,6 +12,7 @@ import (
 	"github.com/labstack/echo/v4"
 
 	"beamledger/accounts"
+	"beamledger/provenance"
 	"beamledger/storage/objects"
 	"beamledger/storage/postgres"
 	"beamledger/web"
@@ -37,6 +38,8 @@ type Server struct {
 	// uploads sizes resumable uploads' segments and parts; the zero value is the
 	// production sizing, and tests shrink it to reach many parts with little data.
 	uploads uploadGeometry
+	// ledger signs checkpoints; nil when the configuration has no ledger key.
+	ledger *provenance.CheckpointSigner
 }
 
 // New builds a server. now is the clock (time.Now outside tests).
@@ -55,6 +58,9 @@ func New(cfg Config, store *postgres.DB, log *slog.Logger, now func() time.Time)
 		rules:  map[string]rule{},
 	}
 	var err error
+	if s.ledger, err = newLedgerSigner(cfg); err != nil {
+		return nil, err
+	}
 	if s.objects, err = openObjects(cfg); err != nil {
 		return nil, err
 	}
@@ -106,6 +112,7 @@ func (s *Server) Serve(ctx context.Context, ln net.Listener) error {
 	go func() { errc <- hs.Serve(ln) }()
 	go s.markNoShows(ctx, time.Minute)
 	go s.cleanupEvery(ctx)
+	go s.sealLedgerEvery(ctx)
 	select {
 	case err := <-errc:
 		return err
@@ -124,7 +131,12 @@ func (s *Server) Serve(ctx context.Context, ln net.Listener) error {
 }
 
 // Run checks the schema, listens on the configured address and serves until ctx ends.
+// It refuses to start without a ledger key, as Validate does without a JWT key:
+// tests build servers with New and may go without checkpoints, a deployment may not.
 func Run(ctx context.Context, cfg Config, store *postgres.DB, log *slog.Logger, ready func(addr string)) error {
+	if len(cfg.LedgerKey) == 0 {
+		return errNoLedgerKey
+	}
 	st, err := store.Schema(ctx)
 	if err != nil {
 		return err

@@ -105,6 +105,8 @@ func serverFlags(fs *flag.FlagSet, cfg *server.Config) func() error {
 	e.integer(&cfg.MaxBodyBytes, "max-body-bytes", "BEAMLEDGER_MAX_BODY_BYTES", "largest JSON request body")
 	e.duration(&cfg.AuthCacheTTL, "auth-cache-ttl", "BEAMLEDGER_AUTH_CACHE_TTL", "how long a process reuses a user's account state (0: every request)")
 	e.boolean(&cfg.TrustProxyHeaders, "trust-proxy-headers", "BEAMLEDGER_TRUST_PROXY_HEADERS", "take client addresses from X-Forwarded-For")
+	e.str(&cfg.LedgerOrigin, "ledger-origin", "BEAMLEDGER_LEDGER_ORIGIN", "the ledger's name in its checkpoints, e.g. ledger.facility.example.org")
+	e.duration(&cfg.LedgerSealInterval, "ledger-seal-interval", "BEAMLEDGER_LEDGER_SEAL_INTERVAL", "how often ledger events are sealed into the tree")
 	hashN := int64(cfg.HashConcurrency)
 	e.integer(&hashN, "hash-concurrency", "BEAMLEDGER_HASH_CONCURRENCY", "password hashes computed at once")
 	level := "info"
@@ -151,6 +153,13 @@ func readSecrets(cfg *server.Config) error {
 			errs = append(errs, fmt.Errorf("BEAMLEDGER_JWT_VERIFY_KEYS: %w", err))
 		}
 		cfg.VerifyKeys = ks
+	}
+	if v := get("BEAMLEDGER_LEDGER_KEY"); v != "" {
+		k, err := server.ParseSigningKey(v)
+		if err != nil {
+			errs = append(errs, fmt.Errorf("BEAMLEDGER_LEDGER_KEY: %w", err))
+		}
+		cfg.LedgerKey = k
 	}
 	if v := get("BEAMLEDGER_S3_ACCESS_KEY"); v != "" {
 		cfg.S3.AccessKey = v

@@ -147,6 +147,16 @@ func demoConfig(dir, listen, dbURL string) (server.Config, []byte, error) {
 		return cfg, nil, fmt.Errorf("%s is damaged; delete it to make a new key", filepath.Join(dir, "jwt-signing.seed"))
 	}
 	cfg.SigningKey = ed25519.NewKeyFromSeed(raw)
+	// The ledger's key is kept apart from the JWT key, as a deployment's must be.
+	ledgerSeed, err := readOrCreateSecret(filepath.Join(dir, "ledger-signing.seed"))
+	if err != nil {
+		return cfg, nil, err
+	}
+	if raw, err = hex.DecodeString(ledgerSeed); err != nil || len(raw) != ed25519.SeedSize {
+		return cfg, nil, fmt.Errorf("%s is damaged; delete it to make a new key", filepath.Join(dir, "ledger-signing.seed"))
+	}
+	cfg.LedgerKey = ed25519.NewKeyFromSeed(raw)
+	cfg.LedgerOrigin = "demo.beamledger.localhost/ledger"
 	secret, err := readOrCreateSecret(filepath.Join(dir, "demo.secret"))
 	if err != nil {
 		return cfg, nil, err

@@ -68,8 +68,10 @@ VALUES ($1, $2, $3, $4, $5, $6, $7)`
 		if err := insertVersion(ctx, tx, id, d, n.Actor); err != nil {
 			return err
 		}
-		out, err = scanAcquisition(tx.QueryRow(ctx, acquisitionSelect+` WHERE a.id = $1`, id))
-		return err
+		if out, err = scanAcquisition(tx.QueryRow(ctx, acquisitionSelect+` WHERE a.id = $1`, id)); err != nil {
+			return err
+		}
+		return appendChange(ctx, tx, n.Actor, provenance.ActionCreate, provenance.EntityAcquisition, id, n.Now, out)
 	})
 	return out, mapError(err, "acquisition")
 }
@@ -103,8 +105,10 @@ func (db *DB) CorrectAcquisition(ctx context.Context, id string, n provenance.Ne
 		if err := insertVersion(ctx, tx, id, d, n.Actor); err != nil {
 			return err
 		}
-		out, err = scanAcquisition(tx.QueryRow(ctx, acquisitionSelect+` WHERE a.id = $1`, id))
-		return err
+		if out, err = scanAcquisition(tx.QueryRow(ctx, acquisitionSelect+` WHERE a.id = $1`, id)); err != nil {
+			return err
+		}
+		return appendChange(ctx, tx, n.Actor, provenance.ActionCorrect, provenance.EntityAcquisition, id, n.Now, out)
 	})
 	return out, mapError(err, "acquisition")
 }

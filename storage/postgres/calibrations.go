@@ -58,8 +58,10 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10, $11, $12, $13, $14, $15, $16, $
 			return err
 		}
 		var err error
-		out, err = scanCalibration(tx.QueryRow(ctx, calibrationSelect+` WHERE c.id = $1`, id))
-		return err
+		if out, err = scanCalibration(tx.QueryRow(ctx, calibrationSelect+` WHERE c.id = $1`, id)); err != nil {
+			return err
+		}
+		return appendChange(ctx, tx, n.RecordedBy, correctionAction(n.Corrects), provenance.EntityCalibration, id, now, out)
 	})
 	return out, correctionError(err, "calibration")
 }

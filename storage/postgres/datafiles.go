@@ -47,21 +47,30 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, 'stored', $9, $10, $10)
 ON CONFLICT DO NOTHING
 RETURNING ` + fileColumns
 	key := provenance.ObjectKey(n.SHA256)
-	f, err := scanFile(db.pool.QueryRow(ctx, q, n.ProjectID, acquisition, digest, n.SizeBytes, n.MediaType, n.FileName, n.Store, key,
-		n.UploadedBy, now))
-	if err == nil {
-		return f, true, nil
-	}
-	if !errors.Is(err, pgx.ErrNoRows) {
-		if isConstraint(err, "data_files_acquisition_id_fkey") {
-			return f, false, beamledger.InvalidField("acquisition_id", "no such acquisition")
-		}
-		return f, false, mapError(err, "data file")
-	}
-	const existing = `SELECT ` + fileColumns + ` FROM data_files f
+	var f provenance.DataFile
+	created := false
+	err = pgx.BeginFunc(ctx, db.pool, func(tx pgx.Tx) error {
+		var err error
+		f, err = scanFile(tx.QueryRow(ctx, q, n.ProjectID, acquisition, digest, n.SizeBytes, n.MediaType, n.FileName, n.Store, key,
+			n.UploadedBy, now))
+		if errors.Is(err, pgx.ErrNoRows) {
+			// Nothing was created, so nothing is recorded in the ledger: the existing
+			// record has its own event.
+			const existing = `SELECT ` + fileColumns + ` FROM data_files f
 WHERE f.status = 'stored' AND f.sha256 = $1 AND f.project_id = $2 AND f.acquisition_id IS NOT DISTINCT FROM $3::uuid`
-	f, err = scanFile(db.pool.QueryRow(ctx, existing, digest, n.ProjectID, acquisition))
-	return f, false, mapError(err, "data file")
+			f, err = scanFile(tx.QueryRow(ctx, existing, digest, n.ProjectID, acquisition))
+			return err
+		}
+		if err != nil {
+			return err
+		}
+		created = true
+		return appendChange(ctx, tx, n.UploadedBy, provenance.ActionCreate, provenance.EntityDataFile, f.ID, now, f)
+	})
+	if isConstraint(err, "data_files_acquisition_id_fkey") {
+		return f, false, beamledger.InvalidField("acquisition_id", "no such acquisition")
+	}
+	return f, created && err == nil, mapError(err, "data file")
 }
 
 // DataFile implements provenance.FileStore.

@@ -86,8 +86,10 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10) RETURNING id::text`
 		if _, err := tx.Exec(ctx, in, id, n.InputFileIDs); err != nil {
 			return err
 		}
-		out, err = scanDerivation(tx.QueryRow(ctx, `SELECT `+derivationColumns+` FROM derivations d WHERE d.id = $1`, id))
-		return err
+		if out, err = scanDerivation(tx.QueryRow(ctx, `SELECT `+derivationColumns+` FROM derivations d WHERE d.id = $1`, id)); err != nil {
+			return err
+		}
+		return appendChange(ctx, tx, n.RecordedBy, provenance.ActionCreate, provenance.EntityDerivation, id, now, out)
 	})
 	return out, mapError(err, "derivation")
 }

@@ -51,7 +51,14 @@ WITH s AS (
     VALUES ($1, $2, $3, $4, $5, $6) RETURNING *
 )
 SELECT id::text, project_id::text, code, description, fluence_budget_e_per_a2, 0::float8, 0, created_by::text, created_at, 0::float8 FROM s`
-	sp, err := scanSpecimen(db.pool.QueryRow(ctx, q, n.ProjectID, n.Code, n.Description, n.FluenceBudgetEPerA2, n.CreatedBy, now))
+	var sp provenance.Specimen
+	err := pgx.BeginFunc(ctx, db.pool, func(tx pgx.Tx) error {
+		var err error
+		if sp, err = scanSpecimen(tx.QueryRow(ctx, q, n.ProjectID, n.Code, n.Description, n.FluenceBudgetEPerA2, n.CreatedBy, now)); err != nil {
+			return err
+		}
+		return appendChange(ctx, tx, n.CreatedBy, provenance.ActionCreate, provenance.EntitySpecimen, sp.ID, now, sp)
+	})
 	if isConstraint(err, "specimens_project_id_code_key") {
 		return sp, beamledger.Conflict("the project already has a specimen coded %s", n.Code)
 	}

@@ -48,8 +48,10 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9) RETURNING id::text`
 			n.Corrects, n.CorrectionReason).Scan(&id); err != nil {
 			return err
 		}
-		out, err = scanTuning(tx.QueryRow(ctx, tuningSelect+` WHERE t.id = $1`, id))
-		return err
+		if out, err = scanTuning(tx.QueryRow(ctx, tuningSelect+` WHERE t.id = $1`, id)); err != nil {
+			return err
+		}
+		return appendChange(ctx, tx, n.RecordedBy, correctionAction(n.Corrects), provenance.EntityTuning, id, now, out)
 	})
 	return out, correctionError(err, "tuning")
 }
@@ -114,6 +116,14 @@ func correctable(ctx context.Context, tx pgx.Tx, table, instrumentID string, cor
 		return beamledger.InvalidField("corrects", "belongs to another instrument")
 	}
 	return nil
+}
+
+// correctionAction names the ledger action of a record that may correct another.
+func correctionAction(corrects *string) string {
+	if corrects != nil {
+		return provenance.ActionCorrect
+	}
+	return provenance.ActionCreate
 }
 
 // correctionError words a second correction of one record as a conflict.

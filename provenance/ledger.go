@@ -1,0 +1,231 @@
+package provenance
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"time"
+
+	"github.com/gowebpki/jcs"
+	"golang.org/x/mod/sumdb/tlog"
+)
+
+// The ledger is the append-only record of every change, kept as a Merkle tree with
+// RFC 6962 hashing so that anyone holding a signed checkpoint can check that an
+// event is in it and that a later tree extends an earlier one. An event is written
+// in the transaction of the change it records; it has no place in the tree until a
+// sealer gives it the next index, so writers never wait on each other for an order.
+
+// Entity types named by ledger events: the product's own words for what changed.
+const (
+	EntitySpecimen    = "specimen"
+	EntityTuning      = "tuning"
+	EntityCalibration = "calibration"
+	EntityAcquisition = "acquisition"
+	EntityDataFile    = "data_file"
+	EntityDerivation  = "derivation"
+)
+
+// Actions named by ledger events. Records here are never edited: a change is either
+// a new record or a correction that adds a version or names what it corrects.
+const (
+	ActionCreate  = "create"
+	ActionCorrect = "correct"
+)
+
+// LedgerFormat numbers the layout of an event's canonical bytes (the "v" member),
+// so that a later layout can be told apart from this one by anyone re-hashing old
+// events.
+const LedgerFormat = 1
+
+// LedgerEvent is one change as the ledger keeps it. Leaf is what the Merkle tree
+// hashes; the other fields are read back from it and from the row that holds it.
+type LedgerEvent struct {
+	// Seq identifies the event from the moment it is written, before it has an
+	// index. It orders events of one process's writes but is not the ledger order:
+	// a transaction that began first may commit last.
+	Seq int64 `json:"seq"`
+	// Index is the event's position in the tree; nil until the event is sealed.
+	Index      *int64    `json:"index"`
+	Actor      string    `json:"actor"`
+	At         time.Time `json:"at"`
+	Action     string    `json:"action"`
+	EntityType string    `json:"entity_type"`
+	EntityID   string    `json:"entity_id"`
+	// State is the new state of the entity (or the change), as canonical JSON.
+	State json.RawMessage `json:"state"`
+	// Leaf is the event's canonical bytes: RFC 8785 JSON of the fields above except
+	// Seq and Index. Its RFC 6962 leaf hash is what proofs are about.
+	Leaf []byte `json:"leaf"`
+}
+
+// Sealed reports whether the event has its place in the tree.
+func (e LedgerEvent) Sealed() bool { return e.Index != nil }
+
+// LeafHash is the RFC 6962 leaf hash of the event, SHA-256(0x00 ‖ Leaf).
+func (e LedgerEvent) LeafHash() tlog.Hash { return tlog.RecordHash(e.Leaf) }
+
+// leafBody is the layout of an event's canonical bytes. JSON names sort the same
+// way RFC 8785 sorts them, though the order here does not matter: the encoding
+// re-sorts.
+type leafBody struct {
+	V          int             `json:"v"`
+	Action     string          `json:"action"`
+	Actor      string          `json:"actor"`
+	At         string          `json:"at"`
+	EntityID   string          `json:"entity_id"`
+	EntityType string          `json:"entity_type"`
+	State      json.RawMessage `json:"state"`
+}
+
+// leafTime is how an event's instant is written: UTC, always six fractional digits.
+// A fixed width keeps the text one-to-one with the instant; microseconds are what
+// PostgreSQL keeps, so the row's timestamp and the leaf agree exactly.
+const leafTime = "2006-01-02T15:04:05.000000Z07:00"
+
+// NewLedgerEvent builds an event from a change: state is marshalled to JSON and the
+// whole event is encoded canonically with the RFC 8785 JSON Canonicalization
+// Scheme. Numbers are therefore written as ECMAScript writes IEEE 754 doubles: an
+// integer above 2⁵³ would lose digits, so such values belong in strings (ids and
+// byte counts here stay far below).
+func NewLedgerEvent(actor, action, entityType, entityID string, at time.Time, state any) (LedgerEvent, error) {
+	raw, err := json.Marshal(state)
+	if err != nil {
+		return LedgerEvent{}, fmt.Errorf("ledger event state: %w", err)
+	}
+	at = at.UTC().Truncate(time.Microsecond)
+	body := leafBody{V: LedgerFormat, Action: action, Actor: actor, At: at.Format(leafTime),
+		EntityID: entityID, EntityType: entityType, State: raw}
+	if err := body.check(); err != nil {
+		return LedgerEvent{}, err
+	}
+	plain, err := json.Marshal(body)
+	if err != nil {
+		return LedgerEvent{}, fmt.Errorf("ledger event: %w", err)
+	}
+	leaf, err := jcs.Transform(plain)
+	if err != nil {
+		return LedgerEvent{}, fmt.Errorf("ledger event canonical form: %w", err)
+	}
+	return ParseLeaf(leaf)
+}
+
+func (b leafBody) check() error {
+	switch {
+	case b.Actor == "":
+		return errors.New("ledger event: no actor")
+	case b.Action == "":
+		return errors.New("ledger event: no action")
+	case b.EntityType == "" || b.EntityID == "":
+		return errors.New("ledger event: no entity")
+	}
+	return nil
+}
+
+// ParseLeaf reads an event back from its canonical bytes. It refuses bytes that are
+// not in canonical form (re-encoding them must give them back unchanged), so two
+// different leaves can never describe the same event.
+func ParseLeaf(leaf []byte) (LedgerEvent, error) {
+	canon, err := jcs.Transform(leaf)
+	if err != nil {
+		return LedgerEvent{}, fmt.Errorf("ledger leaf is not JSON: %w", err)
+	}
+	if !bytes.Equal(canon, leaf) {
+		return LedgerEvent{}, errors.New("ledger leaf is not in RFC 8785 canonical form")
+	}
+	dec := json.NewDecoder(bytes.NewReader(leaf))
+	dec.DisallowUnknownFields()
+	var b leafBody
+	if err := dec.Decode(&b); err != nil {
+		return LedgerEvent{}, fmt.Errorf("ledger leaf layout: %w", err)
+	}
+	if b.V != LedgerFormat {
+		return LedgerEvent{}, fmt.Errorf("ledger leaf format %d is not %d", b.V, LedgerFormat)
+	}
+	if err := b.check(); err != nil {
+		return LedgerEvent{}, err
+	}
+	at, err := time.Parse(leafTime, b.At)
+	if err != nil || at.Format(leafTime) != b.At {
+		return LedgerEvent{}, fmt.Errorf("ledger leaf time %q is not in the ledger's form", b.At)
+	}
+	return LedgerEvent{Actor: b.Actor, At: at, Action: b.Action, EntityType: b.EntityType, EntityID: b.EntityID,
+		State: b.State, Leaf: leaf}, nil
+}
+
+// SameFields reports whether two events agree on everything the leaf holds. The
+// ledger's rows keep those fields in columns too, for searching; a column edited
+// without its leaf must not pass.
+func (e LedgerEvent) SameFields(o LedgerEvent) bool {
+	return e.Actor == o.Actor && e.At.Equal(o.At) && e.Action == o.Action && e.EntityType == o.EntityType &&
+		e.EntityID == o.EntityID && bytes.Equal(e.Leaf, o.Leaf)
+}
+
+// TreeHead is the ledger's tree after a seal: its size and RFC 6962 root hash.
+type TreeHead struct {
+	Size     int64     `json:"size"`
+	Root     tlog.Hash `json:"root"`
+	SealedAt time.Time `json:"sealed_at"`
+}
+
+// InclusionProof shows that the event at Index is in the tree of Size leaves whose
+// root is Root (RFC 6962 §2.1.1 audit path).
+type InclusionProof struct {
+	Index    int64            `json:"index"`
+	Size     int64            `json:"size"`
+	LeafHash tlog.Hash        `json:"leaf_hash"`
+	Root     tlog.Hash        `json:"root"`
+	Proof    tlog.RecordProof `json:"proof"`
+}
+
+// Check verifies the proof against its own root and leaf hash. A caller that trusts
+// a checkpoint also compares Root with the checkpoint's root for Size.
+func (p InclusionProof) Check() error {
+	return tlog.CheckRecord(p.Proof, p.Size, p.Root, p.Index, p.LeafHash)
+}
+
+// ConsistencyProof shows that the tree of From leaves (root FromRoot) is a prefix of
+// the tree of To leaves (root ToRoot): nothing sealed before From was changed,
+// removed or reordered (RFC 6962 §2.1.2).
+type ConsistencyProof struct {
+	From     int64          `json:"from"`
+	To       int64          `json:"to"`
+	FromRoot tlog.Hash      `json:"from_root"`
+	ToRoot   tlog.Hash      `json:"to_root"`
+	Proof    tlog.TreeProof `json:"proof"`
+}
+
+// Check verifies the proof against its two roots.
+func (p ConsistencyProof) Check() error {
+	return tlog.CheckTree(p.Proof, p.To, p.ToRoot, p.From, p.FromRoot)
+}
+
+// LedgerStore reads the ledger. Events are written by the stores of the things that
+// change, in the same transaction; sealing and checkpoints are the sealer's.
+type LedgerStore interface {
+	// LedgerEvent returns the sealed event at index. ErrNotFound when the tree has
+	// no such index yet.
+	LedgerEvent(ctx context.Context, index int64) (LedgerEvent, error)
+	// EventsFor lists one entity's events, sealed and unsealed, oldest first.
+	// ErrNotFound is never returned: an entity with no events has an empty list.
+	EventsFor(ctx context.Context, entityType, entityID string) ([]LedgerEvent, error)
+	// LedgerHead returns the newest sealed tree; size 0 before the first seal.
+	LedgerHead(ctx context.Context) (TreeHead, error)
+	// InclusionProof proves the event at index is in the tree of size leaves.
+	// ErrInvalid unless 0 ≤ index < size ≤ the sealed size.
+	InclusionProof(ctx context.Context, index, size int64) (InclusionProof, error)
+	// ConsistencyProof proves the tree of from leaves is a prefix of the tree of
+	// to leaves. ErrInvalid unless 0 < from ≤ to ≤ the sealed size.
+	ConsistencyProof(ctx context.Context, from, to int64) (ConsistencyProof, error)
+	// LatestCheckpoint returns the newest signed checkpoint. ErrNotFound before the
+	// first.
+	LatestCheckpoint(ctx context.Context) (Checkpoint, error)
+	// Checkpoint returns the checkpoint signed for a tree of size leaves.
+	// ErrNotFound when none was.
+	Checkpoint(ctx context.Context, size int64) (Checkpoint, error)
+	// Checkpoints lists checkpoints with size > after, smallest first, at most limit
+	// (1 to 1000; other values mean 1000).
+	Checkpoints(ctx context.Context, after int64, limit int) ([]Checkpoint, error)
+}
