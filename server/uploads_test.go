@@ -450,6 +450,8 @@ func (w *world) resumeOffset(path, token string, from int) int {
 // upload is refused with 409, and the first finishes undisturbed.
 func TestUploadOneWriterAtATime(t *testing.T) {
 	w := tusWorld(t, uploadStores[0].open)
+	// Four-byte parts, so the first PATCH's progress shows before its body ends.
+	w.srv.uploads = uploadGeometry{segment: 4}
 	researcher := w.tokens[accounts.RoleResearcher]
 	acq := testAcquisition(w)
 	path, _ := w.createUpload(researcher, 6, "filename", "slow.bin", "acquisition_id", acq)
@@ -473,19 +475,20 @@ func TestUploadOneWriterAtATime(t *testing.T) {
 		defer res.Body.Close()
 		done <- response{StatusCode: res.StatusCode, Header: res.Header}
 	}()
-	if _, err := pw.Write([]byte("abc")); err != nil {
+	if _, err := pw.Write([]byte("abcd")); err != nil {
 		t.Fatal(err)
 	}
-	refused := false
-	for deadline := time.Now().Add(10 * time.Second); time.Now().Before(deadline) && !refused; {
-		r := w.patch(path, researcher, 0, []byte{})
-		refused = r.StatusCode == http.StatusConflict && contains(r.Body, "another request")
-		time.Sleep(20 * time.Millisecond)
+	// Once the first part is recorded, the first PATCH holds the upload and waits
+	// for the rest of its body.
+	for deadline := time.Now().Add(10 * time.Second); w.headOffset(path, researcher) != 4; time.Sleep(10 * time.Millisecond) {
+		if time.Now().After(deadline) {
+			t.Fatal("the first PATCH's first part never showed")
+		}
 	}
-	if !refused {
-		t.Error("a second PATCH during the first was never refused")
+	if r := w.patch(path, researcher, 4, []byte{}); r.StatusCode != http.StatusConflict || !contains(r.Body, "another request") {
+		t.Errorf("a second PATCH during the first: %d %s", r.StatusCode, r.Body)
 	}
-	if _, err := pw.Write([]byte("def")); err != nil {
+	if _, err := pw.Write([]byte("ef")); err != nil {
 		t.Fatal(err)
 	}
 	pw.Close()
