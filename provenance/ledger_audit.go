@@ -217,7 +217,7 @@ func (a *audit) sizeReached() (done bool, err error) {
 			return true, nil
 		}
 		if h.Root != root {
-			a.rootFault(n, "the sealed tree head's root differs from the recomputed one")
+			a.fault(a.signedSize, n, "the sealed tree head's root differs from the recomputed one: the head was edited, or an event in [%d, %d) was changed and every stored hash rewritten to hide it", a.signedSize, n)
 			return true, nil
 		}
 		a.rep.Heads++
@@ -264,10 +264,10 @@ func (a *audit) checkpoint(cp Checkpoint, root tlog.Hash) bool {
 	return true
 }
 
-// rootFault reports a root that does not match at size n while every stored hash
-// did: an event below n is bad and the hashes were rewritten to hide it, so which
-// one is no longer known. The report gives the range from the last size a signed
-// checkpoint vouches for to n.
+// rootFault reports a signed root that does not match at size n while every stored
+// hash did: an event below n is bad and the hashes were rewritten to hide it, so
+// which one is no longer known. The report gives the range from the last size a
+// signed checkpoint vouches for to n.
 func (a *audit) rootFault(n int64, problem string) {
 	a.fault(a.signedSize, n, "%s: an event in [%d, %d) was changed, removed or reordered and the stored hashes rewritten to hide it", problem, a.signedSize, n)
 }
