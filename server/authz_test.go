@@ -332,6 +332,25 @@ var routeMatrix = map[string]routeExpectation{
 	"DELETE /api/v1/uploads/:upload_id": {who: uploadWriters, strict: true, setup: matrixUpload, tus: func(*world) (http.Header, []byte) { return nil, nil },
 		paramsAs: func(w *world, _ string) map[string]string { return matrixUpload(w) }},
 
+	// The ledger's head, key, checkpoints and proofs are public; its events (records
+	// of every project) are for managers, staff and auditors; only managers sign a
+	// checkpoint on demand. The matrix's specimen gives the ledger an event.
+	"GET /api/v1/ledger":                    {who: openToAll},
+	"GET /api/v1/ledger/key":                {who: openToAll},
+	"GET /api/v1/ledger/checkpoint":         {who: openToAll, setup: matrixSealed},
+	"GET /api/v1/ledger/checkpoints":        {who: openToAll, setup: matrixSealed},
+	"POST /api/v1/ledger/checkpoints":       {who: access{wUnauth, wAllow, wDeny, wDeny, wDeny, wDeny}, strict: true, setup: matrixSealed},
+	"GET /api/v1/ledger/proofs/inclusion":   {who: openToAll, setup: matrixSealed, query: func(*world) string { return "index=0&size=1" }},
+	"GET /api/v1/ledger/proofs/consistency": {who: openToAll, setup: matrixSealed, query: func(*world) string { return "from=1&to=1" }},
+	"GET /api/v1/ledger/events/:index": {who: access{wUnauth, wAllow, wAllow, wDeny, wAllow, wDeny}, setup: func(w *world) map[string]string {
+		matrixSealed(w)
+		return map[string]string{":index": "0"}
+	}},
+	"GET /api/v1/ledger/entities/:entity_type/:entity_id/events": {who: access{wUnauth, wAllow, wAllow, wDeny, wAllow, wDeny}, setup: func(w *world) map[string]string {
+		extra := matrixSpecimen(w)
+		return map[string]string{":entity_type": "specimen", ":entity_id": extra[":specimen_id"]}
+	}},
+
 	// Feed tokens are each person's own: a manager neither sees nor revokes anyone
 	// else's, and the token named here is the researcher's.
 	"GET /api/v1/me/feed-tokens":                   {who: usersOnly},
@@ -568,6 +587,16 @@ func matrixUpload(w *world) map[string]string {
 	}
 	path, _ := w.createUpload(w.tokens[accounts.RoleStaff], 12, "filename", "frame.raw", "acquisition_id", matrixAcquisitionID(w))
 	extra[":upload_id"] = strings.TrimPrefix(path, "/api/v1/uploads/")
+	return extra
+}
+
+// matrixSealed gives the ledger one sealed event (the foreign project's specimen) and
+// its signed checkpoint.
+func matrixSealed(w *world) map[string]string {
+	extra := matrixSpecimen(w)
+	if _, err := w.srv.signCheckpoint(context.Background()); err != nil {
+		w.t.Fatal(err)
+	}
 	return extra
 }
 

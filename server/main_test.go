@@ -289,6 +289,7 @@ func TestOpenAPIExamplesExercise(t *testing.T) {
 	exerciseBookingRules(t, w)
 	exerciseAcquisitions(t, w)
 	exerciseFiles(t, w)
+	exerciseLedger(t, w)
 	exerciseUploads(t, w)
 
 	// Every documented 2xx of every operation, and some error of each operation that

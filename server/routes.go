@@ -126,6 +126,18 @@ func (s *Server) routes() error {
 	tus(http.MethodPatch, v1+"/uploads/:upload_id", fileWriters, s.handleUploadPatch)
 	tus(http.MethodDelete, v1+"/uploads/:upload_id", fileWriters, s.handleUploadDelete)
 
+	// The ledger: checkpoints, the key and proofs are public (they commit to content
+	// without revealing it); events hold records of every project.
+	add(http.MethodGet, v1+"/ledger", open(), s.handleLedgerHead)
+	add(http.MethodGet, v1+"/ledger/key", open(), s.handleLedgerKey)
+	add(http.MethodGet, v1+"/ledger/checkpoint", open(), s.handleLedgerCheckpoint)
+	add(http.MethodGet, v1+"/ledger/checkpoints", open(), s.handleLedgerCheckpoints)
+	add(http.MethodPost, v1+"/ledger/checkpoints", users(managers...), s.handleLedgerCheckpointSign)
+	add(http.MethodGet, v1+"/ledger/proofs/inclusion", open(), s.handleInclusionProof)
+	add(http.MethodGet, v1+"/ledger/proofs/consistency", open(), s.handleConsistencyProof)
+	add(http.MethodGet, v1+"/ledger/events/:index", users(readersAll...), s.handleLedgerEvent)
+	add(http.MethodGet, v1+"/ledger/entities/:entity_type/:entity_id/events", users(readersAll...), s.handleLedgerEntityEvents)
+
 	add(http.MethodGet, v1+"/me/feed-tokens", users(everyone...), s.handleFeedTokenList)
 	add(http.MethodPost, v1+"/me/feed-tokens", users(everyone...), s.handleFeedTokenCreate)
 	add(http.MethodDelete, v1+"/me/feed-tokens/:feed_token_id", users(everyone...), s.handleFeedTokenRevoke)

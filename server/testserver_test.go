@@ -65,6 +65,11 @@ func testConfig(dbURL string) (Config, ed25519.PrivateKey) {
 	cfg.DatabaseURL = dbURL
 	cfg.SigningKey = key
 	cfg.ObjectDir = os.TempDir()
+	_, ledgerKey, err := ed25519.GenerateKey(nil)
+	if err != nil {
+		panic(err)
+	}
+	cfg.LedgerKey = ledgerKey
 	return cfg, key
 }
 

@@ -1,0 +1,96 @@
+package server
+
+import (
+	"fmt"
+	"net/http"
+	"testing"
+
+	"beamledger/accounts"
+	"beamledger/provenance"
+)
+
+// TestLedgerOverHTTP: records made through the API appear as ledger events; after a
+// checkpoint, each event's inclusion proof checks against the checkpoint's root, the
+// checkpoint's signature checks with the published key, and two checkpoints are
+// consistent.
+func TestLedgerOverHTTP(t *testing.T) {
+	w := newWorld(t)
+	researcher, auditor, manager := w.tokens[accounts.RoleResearcher], w.tokens[accounts.RoleAuditor], w.tokens[accounts.RoleManager]
+	var sp provenance.Specimen
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/specimens", researcher, map[string]any{"project_id": w.own.ID, "code": "L-1"}, &sp)
+	var head ledgerHeadAnswer
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/ledger", "", nil, &head)
+	if head.Size != 0 || head.Unsealed != 1 || head.OldestUnsealed == nil {
+		t.Errorf("before sealing: %+v; want the specimen's event waiting", head)
+	}
+	var first provenance.Checkpoint
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/ledger/checkpoints", manager, nil, &first)
+	acq := testAcquisition(w)
+	var second provenance.Checkpoint
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/ledger/checkpoints", manager, nil, &second)
+	if first.Size != 1 || second.Size <= first.Size {
+		t.Fatalf("checkpoints of sizes %d then %d", first.Size, second.Size)
+	}
+
+	var key ledgerKeyAnswer
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/ledger/key", "", nil, &key)
+	v, err := provenance.ParseVerifierKey(key.VerifierKey)
+	if err != nil {
+		t.Fatal(err)
+	}
+	note := w.get("/api/v1/ledger/checkpoint?format=note", "", nil)
+	cp, err := provenance.OpenCheckpoint(note.Body, v)
+	if err != nil || cp.Size != second.Size || cp.Root != second.Root {
+		t.Fatalf("the published checkpoint does not open with the published key: %+v %v", cp, err)
+	}
+	tampered := append([]byte{}, note.Body...)
+	tampered[len(cp.Origin)+1]++ // the size line
+	if _, err := provenance.OpenCheckpoint(tampered, v); err == nil {
+		t.Error("an edited checkpoint still opened")
+	}
+
+	var events struct{ Items []provenance.LedgerEvent }
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/ledger/entities/acquisition/"+acq+"/events", auditor, nil, &events)
+	if len(events.Items) != 1 || events.Items[0].Index == nil || events.Items[0].Action != provenance.ActionCreate {
+		t.Fatalf("the acquisition's events: %+v", events.Items)
+	}
+	for i := int64(0); i < second.Size; i++ {
+		var p provenance.InclusionProof
+		w.expect(http.StatusOK, http.MethodGet, fmt.Sprintf("/api/v1/ledger/proofs/inclusion?index=%d&size=%d", i, second.Size), "", nil, &p)
+		var e provenance.LedgerEvent
+		w.expect(http.StatusOK, http.MethodGet, fmt.Sprintf("/api/v1/ledger/events/%d", i), auditor, nil, &e)
+		if err := p.Check(); err != nil || p.Root != cp.Root || p.LeafHash != e.LeafHash() {
+			t.Errorf("event %d: proof %v, root matches %v, leaf matches %v", i, err, p.Root == cp.Root, p.LeafHash == e.LeafHash())
+		}
+	}
+	var c provenance.ConsistencyProof
+	w.expect(http.StatusOK, http.MethodGet, fmt.Sprintf("/api/v1/ledger/proofs/consistency?from=%d&to=%d", first.Size, second.Size), "", nil, &c)
+	if err := c.Check(); err != nil || c.FromRoot != first.Root || c.ToRoot != second.Root {
+		t.Errorf("consistency %d→%d: %v", first.Size, second.Size, err)
+	}
+}
+
+// exerciseLedger calls every ledger route with success and with an error, for
+// TestOpenAPIExamplesExercise.
+func exerciseLedger(t *testing.T, w *world) {
+	manager, staff, auditor := w.tokens[accounts.RoleManager], w.tokens[accounts.RoleStaff], w.tokens[accounts.RoleAuditor]
+	w.expect(http.StatusNotFound, http.MethodGet, "/api/v1/ledger/checkpoint", "", nil, nil) // none signed yet
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/ledger", "", nil, nil)
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/ledger/key", "", nil, nil)
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/ledger/checkpoints", manager, nil, nil)
+	w.expect(http.StatusForbidden, http.MethodPost, "/api/v1/ledger/checkpoints", staff, nil, nil)
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/ledger/checkpoint", "", nil, nil)
+	if r := w.get("/api/v1/ledger/checkpoint?format=note", "", nil); r.StatusCode != http.StatusOK {
+		t.Errorf("checkpoint note: %d", r.StatusCode)
+	}
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/ledger/checkpoints?after=0", "", nil, nil)
+	w.expect(http.StatusBadRequest, http.MethodGet, "/api/v1/ledger/checkpoints?limit=0", "", nil, nil)
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/ledger/proofs/inclusion?index=0&size=1", "", nil, nil)
+	w.expect(http.StatusBadRequest, http.MethodGet, "/api/v1/ledger/proofs/inclusion?index=0", "", nil, nil)
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/ledger/proofs/consistency?from=1&to=1", "", nil, nil)
+	w.expect(http.StatusBadRequest, http.MethodGet, "/api/v1/ledger/proofs/consistency?from=0&to=1", "", nil, nil)
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/ledger/events/0", auditor, nil, nil)
+	w.expect(http.StatusNotFound, http.MethodGet, "/api/v1/ledger/events/999999999", auditor, nil, nil)
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/ledger/entities/specimen/"+w.own.ID+"/events", auditor, nil, nil)
+	w.expect(http.StatusForbidden, http.MethodGet, "/api/v1/ledger/entities/specimen/"+w.own.ID+"/events", w.tokens[accounts.RoleResearcher], nil, nil)
+}
