@@ -173,4 +173,3 @@ func queryInt(c echo.Context, name string, def, lo, hi int64) (int64, error) {
 }
 
 const timeFormat = "2006-01-02T15:04:05.999999Z07:00"
-
