@@ -182,8 +182,12 @@ WHERE p.id = $1 AND f.status = 'stored' AND f.sha256 = $2 AND f.project_id = p.p
 			f, err = scanFile(tx.QueryRow(ctx, `
 UPDATE data_files f SET status = 'stored', sha256 = $2, size_bytes = $3, media_type = $4, object_key = $5, stored_at = $6
 WHERE f.id = $1 RETURNING `+fileColumns, fileID, digest, n.SizeBytes, n.MediaType, provenance.ObjectKey(n.SHA256), now))
+			if err != nil {
+				return err
+			}
 			created = true
-			return err
+			// Stored is when the file enters the ledger, as RecordFile's are.
+			return appendChange(ctx, tx, f.UploadedBy, provenance.ActionCreate, provenance.EntityDataFile, f.ID, now, f)
 		})
 		if !isUniqueViolation(err) {
 			break

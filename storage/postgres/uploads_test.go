@@ -75,6 +75,7 @@ func TestUploadLifecycle(t *testing.T) {
 	}
 	_, err = db.Upload(ctx, short.ID)
 	wantKind(t, err, beamledger.ErrNotFound)
+	oneEvent(t, db, provenance.EntityDataFile, stored.ID, provenance.ActionCreate)
 	// The same bytes for the same acquisition: the first record stands, the pending one goes.
 	again, created, err := db.FinishUpload(ctx, u.ID, n, t0)
 	if err != nil || created || again.ID != stored.ID {
@@ -82,6 +83,9 @@ func TestUploadLifecycle(t *testing.T) {
 	}
 	_, err = db.DataFile(ctx, u.DataFileID)
 	wantKind(t, err, beamledger.ErrNotFound)
+	if evs, err := db.EventsFor(ctx, provenance.EntityDataFile, u.DataFileID); err != nil || len(evs) != 0 {
+		t.Errorf("ledger events for the record that gave way: %v %v", evs, err)
+	}
 }
 
 // TestClaimExpiredUploads: only uploads idle past the cut-off and not leased are
