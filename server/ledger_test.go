@@ -94,6 +94,7 @@ func TestLedgerSealingJob(t *testing.T) {
 // bounds.
 func TestLedgerConfig(t *testing.T) {
 	cfg, _ := testConfig("postgres://unused")
+	cfg.LedgerKey = nil
 	if err := Run(context.Background(), cfg, nil, slog.New(slog.NewJSONHandler(io.Discard, nil)), nil); err == nil ||
 		!strings.Contains(err.Error(), "BEAMLEDGER_LEDGER_KEY") {
 		t.Errorf("Run without a ledger key: %v", err)

@@ -8,6 +8,7 @@
 //	beamledger derive < conditions.json    derived optics quantities (exit 2 on bad input)
 //	beamledger upload -server URL -acquisition ID PATH...   resumable upload of data files
 //	beamledger scrub                       check stored objects against their SHA-256
+//	beamledger ledger verify|checkpoint|key check the ledger, sign a checkpoint, print the key
 //	beamledger version
 //
 // Settings come from flags or BEAMLEDGER_* environment variables; secrets also from
@@ -65,6 +66,7 @@ commands:
   upload -server URL (-acquisition ID | -project ID) FILE-OR-FOLDER...
                                           resumable upload of data files (token in $BEAMLEDGER_TOKEN)
   scrub                                   re-read stored objects and check their SHA-256
+  ledger verify|checkpoint|key            check the ledger, sign a checkpoint now, print the verifier key
   version                                 print the version
 `
 
@@ -99,6 +101,8 @@ func runWithStdin(ctx context.Context, args []string, stdin io.Reader, stdout, s
 		return cmdUpload(ctx, rest, stdout, stderr)
 	case "scrub":
 		return cmdScrub(ctx, rest, stdout, stderr)
+	case "ledger":
+		return cmdLedger(ctx, rest, stdout, stderr)
 	case "version":
 		fmt.Fprintln(stdout, "beamledger", buildVersion())
 		return nil
