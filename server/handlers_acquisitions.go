@@ -4,7 +4,6 @@ import (
 	"context"
 	"io"
 	"net/http"
-	"strconv"
 	"strings"
 
 	"github.com/labstack/echo/v4"
@@ -141,23 +140,13 @@ func (s *Server) handleAcquisitionList(c echo.Context) error {
 	ctx := c.Request().Context()
 	f := provenance.AcquisitionFilter{BookingID: c.QueryParam("booking_id"), InstrumentID: c.QueryParam("instrument_id"),
 		ProjectID: c.QueryParam("project_id"), SpecimenID: c.QueryParam("specimen_id")}
-	if l := c.QueryParam("limit"); l != "" {
-		n, err := strconv.Atoi(l)
-		if err != nil || n < 1 || n > 500 {
-			return beamledger.InvalidField("limit", "must be a whole number from 1 to 500")
-		}
-		f.Limit = n
+	limit, err := queryInt(c, "limit", 500, 1, 500)
+	if err != nil {
+		return err
 	}
-	me := principal(ctx)
-	if !me.CanReadEverything() {
-		mine, err := s.myProjects(ctx, me)
-		if err != nil {
-			return err
-		}
-		f.ProjectIDs = make([]string, 0, len(mine))
-		for id := range mine {
-			f.ProjectIDs = append(f.ProjectIDs, id)
-		}
+	f.Limit = int(limit)
+	if f.ProjectIDs, err = s.readableProjectIDs(ctx); err != nil {
+		return err
 	}
 	as, err := s.store.Acquisitions(ctx, f)
 	if err != nil {

@@ -406,6 +406,24 @@ func bookingFilter(c echo.Context) (scheduling.BookingFilter, error) {
 	return f, nil
 }
 
+// readableProjectIDs limits a listing to the caller's projects: nil (no limit) for
+// those who read everything, the projects they belong to for everyone else.
+func (s *Server) readableProjectIDs(ctx context.Context) ([]string, error) {
+	me := principal(ctx)
+	if me.CanReadEverything() {
+		return nil, nil
+	}
+	mine, err := s.myProjects(ctx, me)
+	if err != nil {
+		return nil, err
+	}
+	ids := make([]string, 0, len(mine))
+	for id := range mine {
+		ids = append(ids, id)
+	}
+	return ids, nil
+}
+
 // myProjects is the set of project ids the caller belongs to.
 func (s *Server) myProjects(ctx context.Context, me accounts.Principal) (map[string]bool, error) {
 	out := map[string]bool{}

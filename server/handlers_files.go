@@ -230,23 +230,13 @@ func (s *Server) handleFileGet(c echo.Context) error {
 func (s *Server) handleFileList(c echo.Context) error {
 	ctx := c.Request().Context()
 	f := provenance.FileFilter{AcquisitionID: c.QueryParam("acquisition_id"), ProjectID: c.QueryParam("project_id"), SHA256: strings.ToLower(c.QueryParam("sha256"))}
-	if l := c.QueryParam("limit"); l != "" {
-		n, err := strconv.Atoi(l)
-		if err != nil || n < 1 || n > 1000 {
-			return beamledger.InvalidField("limit", "must be a whole number from 1 to 1000")
-		}
-		f.Limit = n
+	limit, err := queryInt(c, "limit", 1000, 1, 1000)
+	if err != nil {
+		return err
 	}
-	me := principal(ctx)
-	if !me.CanReadEverything() {
-		mine, err := s.myProjects(ctx, me)
-		if err != nil {
-			return err
-		}
-		f.ProjectIDs = make([]string, 0, len(mine))
-		for id := range mine {
-			f.ProjectIDs = append(f.ProjectIDs, id)
-		}
+	f.Limit = int(limit)
+	if f.ProjectIDs, err = s.readableProjectIDs(ctx); err != nil {
+		return err
 	}
 	fs, err := s.store.DataFiles(ctx, f)
 	if err != nil {

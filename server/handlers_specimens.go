@@ -47,16 +47,9 @@ func (s *Server) handleSpecimenGet(c echo.Context) error {
 func (s *Server) handleSpecimenList(c echo.Context) error {
 	ctx := c.Request().Context()
 	f := provenance.SpecimenFilter{ProjectID: c.QueryParam("project_id")}
-	me := principal(ctx)
-	if !me.CanReadEverything() {
-		mine, err := s.myProjects(ctx, me)
-		if err != nil {
-			return err
-		}
-		f.ProjectIDs = make([]string, 0, len(mine))
-		for id := range mine {
-			f.ProjectIDs = append(f.ProjectIDs, id)
-		}
+	var err error
+	if f.ProjectIDs, err = s.readableProjectIDs(ctx); err != nil {
+		return err
 	}
 	sps, err := s.store.Specimens(ctx, f)
 	if err != nil {

@@ -203,22 +203,7 @@ func (w *world) do(method, path, token string, body any, out any) response {
 	if token != "" {
 		req.Header.Set("Authorization", "Bearer "+token)
 	}
-	res, err := w.http.Client().Do(req)
-	if err != nil {
-		w.t.Fatal(err)
-	}
-	defer res.Body.Close()
-	b, err := io.ReadAll(res.Body)
-	if err != nil {
-		w.t.Fatal(err)
-	}
-	recordExchange(method, path, req, res, b)
-	if out != nil && res.StatusCode/100 == 2 {
-		if err := json.Unmarshal(b, out); err != nil {
-			w.t.Fatalf("%s %s: decode %q: %v", method, path, b, err)
-		}
-	}
-	return response{StatusCode: res.StatusCode, Header: res.Header, Body: b}
+	return w.send(req, out)
 }
 
 // errorCode extracts error.code from an error answer.

@@ -90,13 +90,7 @@ func serverFlags(fs *flag.FlagSet, cfg *server.Config) func() error {
 	e.str(&cfg.Audience, "jwt-audience", "BEAMLEDGER_JWT_AUDIENCE", "aud claim of access tokens")
 	e.duration(&cfg.AccessTTL, "access-ttl", "BEAMLEDGER_ACCESS_TTL", "access token lifetime")
 	e.duration(&cfg.RefreshTTL, "refresh-ttl", "BEAMLEDGER_REFRESH_TTL", "refresh token lifetime")
-	e.str(&cfg.ObjectStore, "object-store", "BEAMLEDGER_OBJECT_STORE", "object store: disk or s3")
-	e.str(&cfg.ObjectDir, "object-dir", "BEAMLEDGER_OBJECT_DIR", "directory of the disk object store")
-	e.str(&cfg.S3.Endpoint, "s3-endpoint", "BEAMLEDGER_S3_ENDPOINT", "S3 endpoint host:port")
-	e.str(&cfg.S3.Region, "s3-region", "BEAMLEDGER_S3_REGION", "S3 region")
-	e.str(&cfg.S3.Bucket, "s3-bucket", "BEAMLEDGER_S3_BUCKET", "S3 bucket")
-	e.boolean(&cfg.S3.UseTLS, "s3-tls", "BEAMLEDGER_S3_TLS", "use TLS to reach S3")
-	e.boolean(&cfg.S3.PathStyle, "s3-path-style", "BEAMLEDGER_S3_PATH_STYLE", "path-style S3 addressing")
+	objectFlags(e, cfg)
 	e.boolean(&cfg.S3.CreateBucket, "s3-create-bucket", "BEAMLEDGER_S3_CREATE_BUCKET", "create the S3 bucket on first use when missing")
 	e.boolean(&cfg.S3.ObjectLock, "s3-object-lock", "BEAMLEDGER_S3_OBJECT_LOCK", "create the bucket with object locking (needed for retention)")
 	e.integer(&cfg.MaxFileBytes, "max-file-bytes", "BEAMLEDGER_MAX_FILE_BYTES", "largest data file accepted")
@@ -125,6 +119,18 @@ func serverFlags(fs *flag.FlagSet, cfg *server.Config) func() error {
 		}
 		return cfg.Validate()
 	}
+}
+
+// objectFlags registers the settings that locate the object store, shared by serve
+// and the commands that read stored objects (scrub).
+func objectFlags(e *envFlags, cfg *server.Config) {
+	e.str(&cfg.ObjectStore, "object-store", "BEAMLEDGER_OBJECT_STORE", "object store: disk or s3")
+	e.str(&cfg.ObjectDir, "object-dir", "BEAMLEDGER_OBJECT_DIR", "directory of the disk object store")
+	e.str(&cfg.S3.Endpoint, "s3-endpoint", "BEAMLEDGER_S3_ENDPOINT", "S3 endpoint host:port")
+	e.str(&cfg.S3.Region, "s3-region", "BEAMLEDGER_S3_REGION", "S3 region")
+	e.str(&cfg.S3.Bucket, "s3-bucket", "BEAMLEDGER_S3_BUCKET", "S3 bucket")
+	e.boolean(&cfg.S3.UseTLS, "s3-tls", "BEAMLEDGER_S3_TLS", "use TLS to reach S3")
+	e.boolean(&cfg.S3.PathStyle, "s3-path-style", "BEAMLEDGER_S3_PATH_STYLE", "path-style S3 addressing")
 }
 
 // readSecrets fills the secret settings, which come only from the environment or files.
