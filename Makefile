@@ -20,7 +20,7 @@ bench:
 # against the upload endpoint, a plain SHA-256 pass against scrub, and the
 # server's peak memory while uploading 1 GiB and 4 GiB. Needs about 12 GiB of disk.
 bench-files:
-	$(GO) run ./deploy/testenv -- $(GO) test -run '^$$' -bench 'RawPutObject|FileUpload|Scrub' -benchtime 1x -timeout 30m ./storage/objects/ ./server/
+	$(GO) run ./deploy/testenv -- $(GO) test -run '^$$' -bench 'RawPutObject|FileUpload|UploadCommand|Scrub' -benchtime 1x -timeout 30m ./storage/objects/ ./server/ ./cmd/beamledger/
 
 build:
 	$(GO) build -o bin/beamledger ./cmd/beamledger

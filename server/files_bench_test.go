@@ -21,7 +21,7 @@ import (
 // The data-file benchmarks run only under `make bench-files`, beside the anchors in
 // storage/objects (BenchmarkRawPutObject), against the harness's S3 server:
 //
-//	go run ./deploy/testenv -- go test -run '^$' -bench 'RawPutObject|FileUpload|Scrub' -benchtime 1x ./storage/objects/ ./server/
+//	go run ./deploy/testenv -- go test -run '^$' -bench 'RawPutObject|FileUpload|UploadCommand|Scrub' -benchtime 1x ./storage/objects/ ./server/ ./cmd/beamledger/
 //
 // BenchmarkFileUpload uploads through the HTTP endpoint with the digest declared
 // (as `beamledger upload` does), and reports the server's peak resident memory

@@ -219,7 +219,7 @@ func TestDemoServesReadyAndLogin(t *testing.T) {
 	}
 }
 
-func login(t *testing.T, base, email, pw string) string {
+func login(t testing.TB, base, email, pw string) string {
 	t.Helper()
 	body := fmt.Sprintf(`{"email":%q,"password":%q}`, email, pw)
 	res, err := http.Post(base+"/api/v1/auth/login", "application/json", strings.NewReader(body))
@@ -239,7 +239,7 @@ func login(t *testing.T, base, email, pw string) string {
 	return tok.AccessToken
 }
 
-func getJSON(t *testing.T, url, token string, out any) {
+func getJSON(t testing.TB, url, token string, out any) {
 	t.Helper()
 	req, _ := http.NewRequest(http.MethodGet, url, nil)
 	req.Header.Set("Authorization", "Bearer "+token)

@@ -34,7 +34,7 @@ type uploadFacility struct {
 	db                    *postgres.DB
 }
 
-func newUploadFacility(t *testing.T) *uploadFacility {
+func newUploadFacility(t testing.TB, configure ...func(*server.Config)) *uploadFacility {
 	t.Helper()
 	db := pgtest.Open(t)
 	_, key, err := ed25519.GenerateKey(nil)
@@ -43,6 +43,9 @@ func newUploadFacility(t *testing.T) *uploadFacility {
 	}
 	cfg := server.Defaults()
 	cfg.DatabaseURL, cfg.SigningKey, cfg.ObjectDir = "postgres://unused", key, t.TempDir()
+	for _, c := range configure {
+		c(&cfg)
+	}
 	srv, err := server.New(cfg, db, slog.New(slog.NewTextHandler(io.Discard, nil)), time.Now)
 	if err != nil {
 		t.Fatal(err)
@@ -56,7 +59,7 @@ func newUploadFacility(t *testing.T) *uploadFacility {
 
 // researcherWithProject makes a researcher with a project of their own and signs
 // them in at base.
-func researcherWithProject(t *testing.T, db *postgres.DB, base string) (projectID, token string) {
+func researcherWithProject(t testing.TB, db *postgres.DB, base string) (projectID, token string) {
 	t.Helper()
 	ctx := context.Background()
 	hash, err := accounts.NewPasswordHasher(accounts.DefaultPasswordParams(), 1).Hash(ctx, uploadTestPassword)
@@ -90,7 +93,7 @@ func (f *uploadFacility) record(t *testing.T, id string) fileRecord {
 	return r
 }
 
-func (f *uploadFacility) options(t *testing.T, base string) uploadOptions {
+func (f *uploadFacility) options(t testing.TB, base string) uploadOptions {
 	return uploadOptions{server: base, token: f.token, project: f.projectID, statePath: filepath.Join(t.TempDir(), "uploads.json"),
 		chunkBytes: 4 << 20, retries: 5, backoff: 10 * time.Millisecond, progressEvery: time.Hour, client: &http.Client{}}
 }
