@@ -30,8 +30,9 @@ const (
 	// every third of that while the request runs, so only a dead process's lease
 	// runs out, and a resuming client waits at most this long for it.
 	uploadLease = 20 * time.Second
-	// uploadSegmentBytes is the most a PATCH holds in memory: bytes gather into a
-	// buffer of this size before they are stored (as a part, or a segment of one).
+	// uploadSegmentBytes is the size of a PATCH's buffers: bytes gather into one
+	// of this size before they are stored (as a part, or a segment of one), and
+	// the next fills while it is stored, so a PATCH holds at most two in memory.
 	uploadSegmentBytes = 8 << 20
 )
 

@@ -25,22 +25,48 @@ import (
 // buffer when the body ends, however it ends, is stored as a segment, so a dropped
 // connection loses nothing that arrived. After each store write the progress is
 // recorded in one UPDATE; the recorded offset never counts bytes not stored.
+//
+// Receiving and storing overlap: while one full buffer is stored and recorded,
+// the next fills from the body and is hashed, so a PATCH holds at most two
+// segments in memory. The stores run one at a time and in order, each recording
+// the hash state taken when its bytes were hashed, so progress is recorded in
+// order and the recorded state always matches the recorded offset.
 type uploadWriter struct {
 	s     *Server
-	u     provenance.Upload // as recorded
 	token string
-	h     hash.Hash // the SHA-256 state after u.OffsetBytes bytes
 	seg   int64
-	// buf holds the bytes from bufStart on that are not in a part; the first
-	// hashed of them were read back from a segment and are in h already.
-	buf      []byte
-	bufStart int64
-	hashed   int
+	// length, partBytes and verifyOnly are the upload's geometry, which the
+	// receiving side reads while a store may be updating u.
+	length, partBytes int64
+	verifyOnly        bool
+
+	// Storing side: touched only by the store running, or after it is waited for.
+	u provenance.Upload // as recorded
+	// err is why storing failed; the upload stays at its recorded offset.
+	err error
+
+	// Receiving side: the hash, the buffer filling from the body, and the store
+	// in flight. h is the SHA-256 state after the bytes received so far: once
+	// receive returns with no store failure, those are u.OffsetBytes bytes.
+	h       hash.Hash
+	fill    batch
+	storing chan bool // the running store's outcome; nil when none runs
+	held    []byte    // the buffer the running store holds
+	spare   []byte    // a buffer no store holds, for the next bytes
+}
+
+// batch is received bytes on their way to the store.
+type batch struct {
+	buf   []byte
+	start int64 // the file offset of buf[0]
+	// hashed is how many of the first bytes were read back from a segment and
+	// are in h already.
+	hashed int
 	// reread is the short segment read back into buf: rewritten in place by the
 	// next segment, or removed once its bytes are in a part.
 	reread *provenance.UploadSegment
-	// err is why storing failed; the upload stays at its recorded offset.
-	err error
+	// hashState is the SHA-256 state after buf's last byte.
+	hashState []byte
 }
 
 // newUploadWriter restores the hash state and reads the unfinished segment back, so
@@ -50,7 +76,8 @@ func (s *Server) newUploadWriter(ctx context.Context, u provenance.Upload, token
 	if err := h.(encoding.BinaryUnmarshaler).UnmarshalBinary(u.HashState); err != nil {
 		return nil, fmt.Errorf("upload %s: restoring the hash state: %w", u.ID, err)
 	}
-	w := &uploadWriter{s: s, u: u, token: token, h: h, seg: s.segmentBytes(), bufStart: u.OffsetBytes}
+	w := &uploadWriter{s: s, u: u, token: token, h: h, seg: s.segmentBytes(),
+		length: u.LengthBytes, partBytes: u.PartSizeBytes, verifyOnly: u.VerifyOnly(), fill: batch{start: u.OffsetBytes}}
 	var tail []byte
 	if n := len(u.Segments); n > 0 && u.Segments[n-1].SizeBytes < w.seg {
 		last := u.Segments[n-1]
@@ -65,7 +92,7 @@ func (s *Server) newUploadWriter(ctx context.Context, u provenance.Upload, token
 			return nil, fmt.Errorf("upload %s: reading back its last segment: %w", u.ID, err)
 		}
 		w.u.Segments = slices.Clip(u.Segments[:n-1])
-		w.reread, w.bufStart, w.hashed = &last, last.OffsetBytes, len(tail)
+		w.fill.reread, w.fill.start, w.fill.hashed = &last, last.OffsetBytes, len(tail)
 	}
 	// The buffer is sized to what this request can bring, so small chunks do not
 	// each cost a whole segment of memory.
@@ -73,53 +100,61 @@ func (s *Server) newUploadWriter(ctx context.Context, u provenance.Upload, token
 	if contentLength >= 0 {
 		size = min(size, int64(len(tail))+contentLength)
 	}
-	w.buf = append(make([]byte, 0, size), tail...)
+	w.fill.buf = append(make([]byte, 0, size), tail...)
 	return w, nil
 }
 
-// limit is how far the buffer fills before it is stored: a segment, the end of the
-// part, or the end of the file.
-func (w *uploadWriter) limit() int64 {
-	end := w.u.LengthBytes
-	if !w.u.VerifyOnly() {
-		end = w.u.PartEnd()
+// limit is how far the buffer starting at start fills before it is stored: a
+// segment, the end of the part, or the end of the file. The part's end comes from
+// the part size, not the recorded parts, which lag while the buffer before is
+// being stored; parts are all of the part size, so the two agree.
+func (w *uploadWriter) limit(start int64) int64 {
+	end := w.length
+	if !w.verifyOnly && w.partBytes > 0 {
+		end = min(start-start%w.partBytes+w.partBytes, end)
 	}
-	return min(w.seg, end-w.bufStart)
+	return min(w.seg, end-start)
 }
 
 // errPastLength is a body longer than the upload has room for.
 var errPastLength = &beamledger.Error{Kind: beamledger.ErrTooLarge, Message: "the body runs past Upload-Length"}
 
 // receive reads the body to its end, storing as it goes, and returns how the body
-// ended (nil for a clean end). A store failure stops it and sits in w.err.
+// ended (nil for a clean end). A store failure stops it and sits in w.err. It
+// returns only once no store runs, so w.u and w.h are settled.
 func (w *uploadWriter) receive(ctx context.Context, body io.Reader) error {
+	defer w.wait()
 	for {
-		limit := w.limit()
+		limit := w.limit(w.fill.start)
 		if limit == 0 {
 			break
 		}
-		var bodyErr error
-		for int64(len(w.buf)) < limit && bodyErr == nil {
-			if len(w.buf) == cap(w.buf) {
-				// Only a body of unknown or understated length gets here: grow
-				// by doubling, never past one segment.
-				w.buf = slices.Grow(w.buf, int(min(limit, int64(2*cap(w.buf)+64<<10)))-len(w.buf))
-			}
-			n, err := body.Read(w.buf[len(w.buf):min(int64(cap(w.buf)), limit)])
-			w.buf, bodyErr = w.buf[:len(w.buf)+n], err
+		bodyErr := w.read(body, limit)
+		// Hashing here, while the store before runs, keeps it off the stores'
+		// critical path.
+		hashErr := w.hashFill()
+		// The store before must be done (and have worked) before this buffer's
+		// turn: progress is recorded in order.
+		if !w.wait() {
+			return nil
+		}
+		if hashErr != nil {
+			w.err = hashErr
+			return nil
 		}
 		if bodyErr != nil {
-			if len(w.buf) > w.hashed {
-				w.flush(ctx)
+			if len(w.fill.buf) > w.fill.hashed {
+				w.flush(ctx, w.fill)
 			}
 			if bodyErr == io.EOF {
 				return nil
 			}
 			return bodyErr
 		}
-		if !w.flush(ctx) {
-			return nil
-		}
+		w.store(ctx)
+	}
+	if !w.wait() {
+		return nil
 	}
 	var one [1]byte
 	if n, _ := body.Read(one[:]); n > 0 {
@@ -128,11 +163,63 @@ func (w *uploadWriter) receive(ctx context.Context, body io.Reader) error {
 	return nil
 }
 
-// flush stores the buffer as a part or a segment and records the progress. It
-// reports whether both worked.
-func (w *uploadWriter) flush(ctx context.Context) bool {
+// read fills the buffer from the body up to limit bytes, or until the body ends.
+func (w *uploadWriter) read(body io.Reader, limit int64) error {
+	b := w.fill.buf
+	defer func() { w.fill.buf = b }()
+	for int64(len(b)) < limit {
+		if len(b) == cap(b) {
+			// Only a body of unknown or understated length gets here: grow by
+			// doubling, never past one segment.
+			b = slices.Grow(b, int(min(limit, int64(2*cap(b)+64<<10)))-len(b))
+		}
+		n, err := body.Read(b[len(b):min(int64(cap(b)), limit)])
+		b = b[:len(b)+n]
+		if err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// hashFill adds the buffer's new bytes to the hash and keeps the state after them
+// for the buffer's store to record.
+func (w *uploadWriter) hashFill() error {
+	w.h.Write(w.fill.buf[w.fill.hashed:])
+	state, err := w.h.(encoding.BinaryMarshaler).MarshalBinary()
+	w.fill.hashState = state
+	return err
+}
+
+// store hands the full buffer to a store running in the background and takes the
+// spare buffer for the next bytes. No store may be running.
+func (w *uploadWriter) store(ctx context.Context) {
+	full := w.fill
+	next := w.spare
+	if next == nil {
+		next = make([]byte, 0, cap(full.buf))
+	}
+	w.fill = batch{buf: next[:0], start: full.start + int64(len(full.buf))}
+	w.held, w.spare = full.buf, nil
+	w.storing = make(chan bool, 1)
+	go func() { w.storing <- w.flush(ctx, full) }()
+}
+
+// wait waits for the running store, if any, frees its buffer and reports whether
+// storing has worked so far.
+func (w *uploadWriter) wait() bool {
+	if w.storing != nil {
+		<-w.storing
+		w.storing, w.spare, w.held = nil, w.held, nil
+	}
+	return w.err == nil
+}
+
+// flush stores b as a part or a segment and records the progress. It reports
+// whether both worked.
+func (w *uploadWriter) flush(ctx context.Context, b batch) bool {
 	u := w.u
-	end := w.bufStart + int64(len(w.buf))
+	end := b.start + int64(len(b.buf))
 	p := provenance.UploadProgress{OffsetBytes: end, Parts: u.Parts, Segments: u.Segments}
 	var drop []provenance.UploadSegment
 	switch {
@@ -140,7 +227,7 @@ func (w *uploadWriter) flush(ctx context.Context) bool {
 	case end == u.PartEnd():
 		segs := &segmentReader{ctx: ctx, objects: w.s.objects, uploadID: u.ID, segs: u.Segments}
 		part, err := w.s.objects.PutPart(ctx, u.ObjectKey, u.MultipartID, len(u.Parts)+1,
-			io.MultiReader(segs, bytes.NewReader(w.buf)), end-u.PartStart())
+			io.MultiReader(segs, bytes.NewReader(b.buf)), end-u.PartStart())
 		segs.Close()
 		if err != nil {
 			w.err = err
@@ -148,24 +235,18 @@ func (w *uploadWriter) flush(ctx context.Context) bool {
 		}
 		p.Parts = append(slices.Clip(u.Parts), provenance.UploadPart{Number: part.Number, ETag: part.ETag, SizeBytes: part.Size})
 		p.Segments, drop = nil, u.Segments
-		if w.reread != nil {
-			drop = append(slices.Clip(drop), *w.reread)
+		if b.reread != nil {
+			drop = append(slices.Clip(drop), *b.reread)
 		}
 	default:
-		key := provenance.UploadSegmentKey(u.ID, w.bufStart)
-		if _, err := w.s.objects.Put(ctx, key, bytes.NewReader(w.buf), int64(len(w.buf)), objects.PutOptions{}); err != nil {
+		key := provenance.UploadSegmentKey(u.ID, b.start)
+		if _, err := w.s.objects.Put(ctx, key, bytes.NewReader(b.buf), int64(len(b.buf)), objects.PutOptions{}); err != nil {
 			w.err = err
 			return false
 		}
-		p.Segments = append(slices.Clip(u.Segments), provenance.UploadSegment{OffsetBytes: w.bufStart, SizeBytes: int64(len(w.buf))})
+		p.Segments = append(slices.Clip(u.Segments), provenance.UploadSegment{OffsetBytes: b.start, SizeBytes: int64(len(b.buf))})
 	}
-	w.h.Write(w.buf[w.hashed:])
-	state, err := w.h.(encoding.BinaryMarshaler).MarshalBinary()
-	if err != nil {
-		w.err = err
-		return false
-	}
-	p.HashState = state
+	p.HashState = b.hashState
 	now := w.s.now()
 	if err := w.s.store.SaveUploadProgress(ctx, u.ID, w.token, p, uploadLease, now); err != nil {
 		w.err = err
@@ -175,7 +256,6 @@ func (w *uploadWriter) flush(ctx context.Context) bool {
 	for _, sg := range drop {
 		w.s.deleteObject(ctx, provenance.UploadSegmentKey(u.ID, sg.OffsetBytes))
 	}
-	w.bufStart, w.buf, w.hashed, w.reread = end, w.buf[:0], 0, nil
 	return true
 }
 
