@@ -202,7 +202,19 @@ func (w *uploadWriter) store(ctx context.Context) {
 	w.fill = batch{buf: next[:0], start: full.start + int64(len(full.buf))}
 	w.held, w.spare = full.buf, nil
 	w.storing = make(chan bool, 1)
-	go func() { w.storing <- w.flush(ctx, full) }()
+	go func() {
+		ok := false
+		// A panic here would escape the request's recovery and end the process:
+		// turn it into the store error it stands for.
+		defer func() {
+			if r := recover(); r != nil {
+				w.err = fmt.Errorf("storing an upload part panicked: %v", r)
+				ok = false
+			}
+			w.storing <- ok
+		}()
+		ok = w.flush(ctx, full)
+	}()
 }
 
 // wait waits for the running store, if any, frees its buffer and reports whether
