@@ -26,6 +26,9 @@ const (
 	EntityAcquisition = "acquisition"
 	EntityDataFile    = "data_file"
 	EntityDerivation  = "derivation"
+	// EntityBooking's events are a booking's creation and each change recorded in its
+	// history (moved, cancelled, displaced, checked in or out, no-show).
+	EntityBooking = "booking"
 )
 
 // Actions named by ledger events. Records here are never edited: a change is either

@@ -19,6 +19,7 @@ import (
 	"beamledger/provenance"
 	"beamledger/scheduling"
 	"beamledger/storage/objects"
+	"beamledger/storage/objects/objectstest"
 )
 
 // upload sends raw bytes to path (recording the exchange like w.do), with extra
@@ -289,4 +290,32 @@ func exerciseFiles(t *testing.T, w *world) {
 	w.expect(http.StatusBadRequest, http.MethodPost, "/api/v1/derivations", researcher, map[string]any{"output_file_id": out.ID, "input_file_ids": []string{}}, nil)
 	w.expect(http.StatusOK, http.MethodGet, "/api/v1/files/"+out.ID+"/lineage", researcher, nil, nil)
 	w.expect(http.StatusNotFound, http.MethodGet, "/api/v1/files/"+acq+"/lineage", researcher, nil, nil)
+}
+
+// TestDeclaredDigestMismatchS3: on S3, where the store reads exactly Content-Length
+// bytes, bytes that do not match the declared digest still never become an object,
+// whether they go up in one request or in parts.
+func TestDeclaredDigestMismatchS3(t *testing.T) {
+	w := newWorld(t)
+	s3 := objectstest.NewS3(t)
+	w.srv.objects = s3
+	researcher := w.tokens[accounts.RoleResearcher]
+	acq := testAcquisition(w)
+	for _, size := range []int{3, 9 << 20, 21 << 20} {
+		body := bytes.Repeat([]byte("x"), size)
+		wrong := reprDigest(append(bytes.Clone(body), 'y'))
+		r := w.upload("/api/v1/files?acquisition_id="+acq+"&name=x.bin", researcher, body, http.Header{"Repr-Digest": {wrong}}, nil)
+		if r.StatusCode != http.StatusBadRequest || !fieldNamed(r, "Repr-Digest") {
+			t.Errorf("%d bytes, wrong digest: %d %s", size, r.StatusCode, r.Body)
+		}
+	}
+	var keys []string
+	if err := s3.List(context.Background(), "", func(i objects.Info) error { keys = append(keys, i.Key); return nil }); err != nil || len(keys) != 0 {
+		t.Errorf("objects left by refused uploads: %v %v", keys, err)
+	}
+	// The right digest on the same path stores the file.
+	body := bytes.Repeat([]byte("x"), 21<<20)
+	if r := w.upload("/api/v1/files?acquisition_id="+acq+"&name=x.bin", researcher, body, http.Header{"Repr-Digest": {reprDigest(body)}}, nil); r.StatusCode != http.StatusCreated {
+		t.Errorf("right digest: %d %s", r.StatusCode, r.Body)
+	}
 }

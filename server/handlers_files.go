@@ -1,6 +1,7 @@
 package server
 
 import (
+	"bytes"
 	"context"
 	"crypto/sha256"
 	"encoding/hex"
@@ -78,7 +79,7 @@ func (s *Server) handleFileUpload(c echo.Context) error {
 		return err
 	}
 	keepReading(c.Response(), s.cfg.ReadTimeout)
-	body := &digestReader{r: req.Body, h: sha256.New(), want: declared}
+	body := &digestReader{r: req.Body, h: sha256.New(), want: declared, size: req.ContentLength}
 	if err := s.storeObject(ctx, body, req.ContentLength, t.MediaType, declared); err != nil {
 		return err
 	}
@@ -117,6 +118,18 @@ func (s *Server) storeObject(ctx context.Context, body *digestReader, size int64
 			_, err := io.Copy(io.Discard, body)
 			return uploadError(err)
 		}
+		if size >= 0 && size <= smallUpload {
+			// A body small enough to go up as one request is read and checked first:
+			// a request cut short by the check would reach the store half-sent, which
+			// some S3 servers take badly. Larger bodies go up in parts, each read
+			// whole before it is sent, and the check stops them before the last.
+			buf, err := io.ReadAll(body)
+			if err != nil {
+				return uploadError(err)
+			}
+			_, err = s.objects.Put(ctx, provenance.ObjectKey(declared), bytes.NewReader(buf), int64(len(buf)), opts)
+			return uploadError(err)
+		}
 		_, err = s.objects.Put(ctx, provenance.ObjectKey(declared), body, size, opts)
 		return uploadError(err)
 	}
@@ -131,29 +144,50 @@ func (s *Server) storeObject(ctx context.Context, body *digestReader, size int64
 	return nil
 }
 
+// smallUpload is the largest body checked in memory before it is stored: the S3
+// store's part size, below which it sends an object as one request. Memory stays
+// bounded by it whatever the file size.
+const smallUpload = objects.DefaultPartSize
+
 // errDigestMismatch is what digestReader returns in place of io.EOF when the bytes
 // are not the ones the client declared.
 var errDigestMismatch = errors.New("the uploaded bytes do not match the declared digest")
 
 // digestReader hashes and counts what passes through it. With want set, the end of
 // the stream is an error unless the digest matches, so the store never completes an
-// object of other bytes.
+// object of other bytes. With size known, the end is the size-th byte, reported with
+// it: a store that reads exactly size bytes never asks for the EOF after them, and
+// must still meet the check before it completes the object. On a mismatch the last
+// byte is never handed over, so no request carrying the bytes can be complete.
 type digestReader struct {
 	r    io.Reader
 	h    hash.Hash
 	n    int64
+	size int64 // -1 when unknown
 	want string
 	done string
 }
 
 func (d *digestReader) Read(p []byte) (int, error) {
+	if d.done != "" {
+		return 0, io.EOF
+	}
+	if d.size >= 0 && int64(len(p)) > d.size-d.n {
+		p = p[:d.size-d.n]
+	}
 	n, err := d.r.Read(p)
 	d.h.Write(p[:n])
 	d.n += int64(n)
+	if err == nil && d.size >= 0 && d.n == d.size {
+		err = io.EOF
+	}
 	if err == io.EOF {
 		d.done = hex.EncodeToString(d.h.Sum(nil))
 		if d.want != "" && d.done != d.want {
-			return n, errDigestMismatch
+			// Withhold the last byte: a store sending the body in one request with
+			// its length announced would otherwise have sent all of it by the time
+			// it sees the error, and the S3 server would keep the object.
+			return max(n-1, 0), errDigestMismatch
 		}
 	}
 	return n, err

@@ -3,10 +3,13 @@ package server
 import (
 	"fmt"
 	"net/http"
+	"strings"
 	"testing"
+	"time"
 
 	"beamledger/accounts"
 	"beamledger/provenance"
+	"beamledger/scheduling"
 )
 
 // TestLedgerOverHTTP: records made through the API appear as ledger events; after a
@@ -67,6 +70,30 @@ func TestLedgerOverHTTP(t *testing.T) {
 	w.expect(http.StatusOK, http.MethodGet, fmt.Sprintf("/api/v1/ledger/proofs/consistency?from=%d&to=%d", first.Size, second.Size), "", nil, &c)
 	if err := c.Check(); err != nil || c.FromRoot != first.Root || c.ToRoot != second.Root {
 		t.Errorf("consistency %d→%d: %v", first.Size, second.Size, err)
+	}
+}
+
+// TestBookingsInLedger: a booking's creation and each later change (here a move and
+// a cancellation) enter the ledger with the booking's history.
+func TestBookingsInLedger(t *testing.T) {
+	w := newWorld(t)
+	researcher, auditor := w.tokens[accounts.RoleResearcher], w.tokens[accounts.RoleAuditor]
+	w.qualify(w.users[accounts.RoleResearcher].ID, scheduling.LevelIndependent)
+	start := w.nextTuesday(9, 0)
+	var b bookingAnswer
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/bookings", researcher, w.bookingBody(start, start.Add(2*time.Hour), scheduling.KindIndependent), &b)
+	moved := start.Add(3 * time.Hour)
+	w.expect(http.StatusOK, http.MethodPatch, "/api/v1/bookings/"+b.ID, researcher, map[string]string{"start": moved.Format(time.RFC3339),
+		"end": moved.Add(2 * time.Hour).Format(time.RFC3339), "reason": "specimen late"}, nil)
+	w.expect(http.StatusOK, http.MethodPost, "/api/v1/bookings/"+b.ID+"/cancel", researcher, map[string]string{"reason": "plans changed"}, nil)
+	var events struct{ Items []provenance.LedgerEvent }
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/ledger/entities/booking/"+b.ID+"/events", auditor, nil, &events)
+	var actions []string
+	for _, e := range events.Items {
+		actions = append(actions, e.Action)
+	}
+	if strings.Join(actions, ",") != "create,moved,cancelled" || !strings.Contains(string(events.Items[0].State), b.ID) {
+		t.Errorf("the booking's ledger events: %v %s", actions, events.Items[0].State)
 	}
 }
 

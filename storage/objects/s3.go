@@ -209,10 +209,13 @@ func (s *S3) Put(ctx context.Context, key string, r io.Reader, size int64, opts 
 	if size < -1 {
 		return Info{}, beamledger.InvalidField("size", "is negative (use -1 for unknown)")
 	}
+	// The context is checked before each read: otherwise a cancelled Put whose source
+	// goes on giving bytes could still send them all, and the server would keep the
+	// object the caller gave up on.
 	if size >= 0 {
-		r = newSizedReader(r, size)
+		r = ctxReader(ctx, newSizedReader(r, size))
 	} else {
-		r = readerFunc(r.Read)
+		r = ctxReader(ctx, r)
 	}
 	po := minio.PutObjectOptions{
 		ContentType: opts.ContentType,

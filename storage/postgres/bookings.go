@@ -17,6 +17,7 @@ import (
 
 	"beamledger"
 	"beamledger/accounts"
+	"beamledger/provenance"
 	"beamledger/scheduling"
 )
 
@@ -130,21 +131,31 @@ func insertBooking(ctx context.Context, db querier, nb scheduling.NewBooking, no
 	if id == "" {
 		id = uuid.NewString()
 	}
+	b := scheduling.Booking{
+		ID: id, InstrumentID: nb.InstrumentID, ProjectID: nb.ProjectID, UserID: nb.UserID, Kind: nb.Kind,
+		Start: nb.Start.UTC(), End: nb.End.UTC(), StaffID: nb.StaffID, SeriesID: nb.SeriesID, Status: scheduling.StatusActive,
+		Note: nb.Note, Displaced: displaced, CreatedAt: now, CreatedBy: nb.Actor, UpdatedAt: now,
+	}
+	// The ledger event travels in the same statement, so that a booking made on the
+	// fast path (no explicit transaction) is in the ledger exactly when it exists.
+	ev, err := provenance.NewLedgerEvent(nb.Actor, provenance.ActionCreate, provenance.EntityBooking, id, now, b)
+	if err != nil {
+		return scheduling.Booking{}, err
+	}
 	const q = `
 WITH b AS (
     INSERT INTO bookings (id, instrument_id, project_id, user_id, kind, during, staff_id, series_id, note, created_at, created_by, updated_at)
     VALUES ($1, $2, nullif($3, '')::uuid, $4, $5, tstzrange($6, $7, '[)'), nullif($8, '')::uuid, nullif($9, '')::uuid, $10, $11, $12, $11)
-    RETURNING id, during)
+    RETURNING id, during),
+l AS (
+    INSERT INTO ledger_events (actor, at, action, entity_type, entity_id, leaf)
+    SELECT $12, $13, $14, $15, id::text, $16 FROM b)
 INSERT INTO booking_events (booking_id, at, actor, action, after) SELECT id, $11, $12, 'created', during FROM b`
 	if _, err := db.Exec(ctx, q, id, nb.InstrumentID, nb.ProjectID, nb.UserID, string(nb.Kind), nb.Start, nb.End,
-		nb.StaffID, nb.SeriesID, nb.Note, now, nb.Actor); err != nil {
+		nb.StaffID, nb.SeriesID, nb.Note, now, nb.Actor, ev.At, ev.Action, ev.EntityType, ev.Leaf); err != nil {
 		return scheduling.Booking{}, err
 	}
-	return scheduling.Booking{
-		ID: id, InstrumentID: nb.InstrumentID, ProjectID: nb.ProjectID, UserID: nb.UserID, Kind: nb.Kind,
-		Start: nb.Start.UTC(), End: nb.End.UTC(), StaffID: nb.StaffID, SeriesID: nb.SeriesID, Status: scheduling.StatusActive,
-		Note: nb.Note, Displaced: displaced, CreatedAt: now, CreatedBy: nb.Actor, UpdatedAt: now,
-	}, nil
+	return b, nil
 }
 
 // displace cancels the active bookings a service booking overlaps, recording which
@@ -310,6 +321,8 @@ WHERE project_id = $1 AND instrument_id = $2 AND status = 'active' AND id::text 
 	return minutes, nil
 }
 
+// addEvent records a change in the booking's history and, in the same transaction,
+// appends it to the ledger.
 func addEvent(ctx context.Context, tx pgx.Tx, bookingID string, at time.Time, actor, action, reason string, before, after *scheduling.Interval) error {
 	rng := func(iv *scheduling.Interval) any {
 		if iv == nil {
@@ -318,8 +331,11 @@ func addEvent(ctx context.Context, tx pgx.Tx, bookingID string, at time.Time, ac
 		return fmt.Sprintf("[%s,%s)", iv.Start.UTC().Format(time.RFC3339Nano), iv.End.UTC().Format(time.RFC3339Nano))
 	}
 	const q = `INSERT INTO booking_events (booking_id, at, actor, action, reason, before, after) VALUES ($1, $2, $3, $4, $5, $6::tstzrange, $7::tstzrange)`
-	_, err := tx.Exec(ctx, q, bookingID, at, actor, action, reason, rng(before), rng(after))
-	return err
+	if _, err := tx.Exec(ctx, q, bookingID, at, actor, action, reason, rng(before), rng(after)); err != nil {
+		return err
+	}
+	change := scheduling.BookingEvent{At: at.UTC(), Actor: actor, Action: action, Reason: reason, Before: before, After: after}
+	return appendChange(ctx, tx, actor, action, provenance.EntityBooking, bookingID, at, change)
 }
 
 // bookingError turns an exclusion violation into a Conflict naming the range it
