@@ -29,6 +29,9 @@ const (
 	// EntityBooking's events are a booking's creation and each change recorded in its
 	// history (moved, cancelled, displaced, checked in or out, no-show).
 	EntityBooking = "booking"
+	// EntityQualification's events are grants (a grant that supersedes another also
+	// records the revocation it implies) and revocations.
+	EntityQualification = "qualification"
 )
 
 // Actions named by ledger events. Records here are never edited: a change is either
@@ -36,6 +39,7 @@ const (
 const (
 	ActionCreate  = "create"
 	ActionCorrect = "correct"
+	ActionRevoke  = "revoke"
 )
 
 // LedgerFormat numbers the layout of an event's canonical bytes (the "v" member),

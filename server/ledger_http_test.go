@@ -97,6 +97,37 @@ func TestBookingsInLedger(t *testing.T) {
 	}
 }
 
+// TestQualificationsInLedger: a grant, the revocation a second grant implies, and an
+// explicit revocation each enter the ledger.
+func TestQualificationsInLedger(t *testing.T) {
+	w := newWorld(t)
+	staff, auditor := w.tokens[accounts.RoleStaff], w.tokens[accounts.RoleAuditor]
+	grant := func(level string) scheduling.Qualification {
+		var q scheduling.Qualification
+		w.expect(http.StatusCreated, http.MethodPost, "/api/v1/instruments/"+w.instr.ID+"/qualifications", staff,
+			map[string]any{"user_id": w.other.ID, "level": level, "reason": "trained"}, &q)
+		return q
+	}
+	first := grant("supervised")
+	second := grant("independent")
+	w.expect(http.StatusOK, http.MethodPost, "/api/v1/qualifications/"+second.ID+"/revoke", staff, map[string]string{"reason": "left the group"}, nil)
+	actions := func(id string) string {
+		var events struct{ Items []provenance.LedgerEvent }
+		w.expect(http.StatusOK, http.MethodGet, "/api/v1/ledger/entities/qualification/"+id+"/events", auditor, nil, &events)
+		var as []string
+		for _, e := range events.Items {
+			as = append(as, e.Action)
+		}
+		return strings.Join(as, ",")
+	}
+	if got := actions(first.ID); got != "create,revoke" {
+		t.Errorf("the superseded grant's events: %s", got)
+	}
+	if got := actions(second.ID); got != "create,revoke" {
+		t.Errorf("the revoked grant's events: %s", got)
+	}
+}
+
 // exerciseLedger calls every ledger route with success and with an error, for
 // TestOpenAPIExamplesExercise.
 func exerciseLedger(t *testing.T, w *world) {

@@ -8,6 +8,7 @@ import (
 
 	"beamledger"
 	"beamledger/accounts"
+	"beamledger/provenance"
 	"beamledger/scheduling"
 )
 
@@ -37,16 +38,28 @@ func (db *DB) GrantQualification(ctx context.Context, n scheduling.NewQualificat
 		}
 		const supersede = `
 UPDATE qualifications SET revoked_at = $3, revoked_by = $4, revoke_reason = 'superseded'
-WHERE user_id = $1 AND instrument_id = $2 AND revoked_at IS NULL`
-		if _, err := tx.Exec(ctx, supersede, n.UserID, n.InstrumentID, now, n.GrantedBy); err != nil {
+WHERE user_id = $1 AND instrument_id = $2 AND revoked_at IS NULL RETURNING ` + qualificationColumns
+		rows, err := tx.Query(ctx, supersede, n.UserID, n.InstrumentID, now, n.GrantedBy)
+		if err != nil {
 			return err
+		}
+		old, err := pgx.CollectRows(rows, func(r pgx.CollectableRow) (scheduling.Qualification, error) { return scanQualification(r) })
+		if err != nil {
+			return err
+		}
+		for _, q := range old {
+			if err := appendChange(ctx, tx, n.GrantedBy, provenance.ActionRevoke, provenance.EntityQualification, q.ID, now, q); err != nil {
+				return err
+			}
 		}
 		const q = `
 INSERT INTO qualifications (user_id, instrument_id, level, granted_by, granted_at, reason, expires_after_idle_days)
 VALUES ($1, $2, $3, $4, $5, $6, $7) RETURNING ` + qualificationColumns
-		var err error
 		out, err = scanQualification(tx.QueryRow(ctx, q, n.UserID, n.InstrumentID, string(n.Level), n.GrantedBy, now, n.Reason, n.ExpiresAfterIdleDays))
-		return err
+		if err != nil {
+			return err
+		}
+		return appendChange(ctx, tx, n.GrantedBy, provenance.ActionCreate, provenance.EntityQualification, out.ID, now, out)
 	})
 	return out, mapError(err, "qualification")
 }
@@ -66,8 +79,10 @@ func (db *DB) RevokeQualification(ctx context.Context, id, by, reason string, no
 			return beamledger.Conflict("the qualification was already revoked on %s", cur.RevokedAt.UTC().Format(time.RFC3339))
 		}
 		const q = `UPDATE qualifications SET revoked_at = $2, revoked_by = $3, revoke_reason = $4 WHERE id = $1 RETURNING ` + qualificationColumns
-		out, err = scanQualification(tx.QueryRow(ctx, q, id, now, by, reason))
-		return err
+		if out, err = scanQualification(tx.QueryRow(ctx, q, id, now, by, reason)); err != nil {
+			return err
+		}
+		return appendChange(ctx, tx, by, provenance.ActionRevoke, provenance.EntityQualification, out.ID, now, out)
 	})
 	return out, mapError(err, "qualification")
 }
