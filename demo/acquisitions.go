@@ -111,14 +111,11 @@ func LoadAcquisitions(ctx context.Context, st Stores, bst BookingStores, pst Pro
 
 // record stores an acquisition (or, with id, a correction of it) as the API does.
 func record(ctx context.Context, pst ProvenanceStores, in provenance.AcquisitionInput, id, actor string, now time.Time) (provenance.Acquisition, error) {
-	if err := in.Normalize(id != ""); err != nil {
-		return provenance.Acquisition{}, err
-	}
-	c, err := provenance.ParseConditions(in.Conditions)
+	volts, err := in.Normalize(id != "")
 	if err != nil {
 		return provenance.Acquisition{}, err
 	}
-	n := provenance.NewAcquisition{Input: in, VoltageV: c.VoltageV(), Actor: actor, Now: now}
+	n := provenance.NewAcquisition{Input: in, VoltageV: volts, Actor: actor, Now: now}
 	decide := func(ac provenance.AcquisitionContext) (provenance.Draft, error) { return provenance.Record(ac, in) }
 	if id != "" {
 		return pst.CorrectAcquisition(ctx, id, n, decide)

@@ -70,7 +70,8 @@ func LoadFiles(ctx context.Context, st Stores, pst ProvenanceStores, fst FileSto
 		return f, err
 	}
 	researcher := survey.UserID
-	surveyImg, err := encodePNG(lattice(surveyPixels))
+	img := lattice(surveyPixels)
+	surveyImg, err := encodePNG(img)
 	if err != nil {
 		return err
 	}
@@ -91,7 +92,7 @@ func LoadFiles(ctx context.Context, st Stores, pst ProvenanceStores, fst FileSto
 	if err != nil {
 		return err
 	}
-	panel, err := encodePNG(crop(lattice(surveyPixels), 64, 64, 128))
+	panel, err := encodePNG(crop(img, 64, 64, 128))
 	if err != nil {
 		return err
 	}

@@ -82,8 +82,9 @@ const maxAcquisitionLength = 48 * time.Hour
 
 // Normalize checks the input's own fields; correction says whether it is a correction
 // (reason required, booking fixed). It parses the conditions so that a bad value is
-// reported before any storage is touched.
-func (in *AcquisitionInput) Normalize(correction bool) error {
+// reported before any storage is touched, and returns their accelerating voltage,
+// which selects the tuning in force.
+func (in *AcquisitionInput) Normalize(correction bool) (voltageV float64, err error) {
 	fe := beamledger.FieldErrors{}
 	if !correction && !accounts.ValidID(in.BookingID) {
 		fe.Add("booking_id", "must be a booking id")
@@ -120,7 +121,7 @@ func (in *AcquisitionInput) Normalize(correction bool) error {
 	}
 	if len(in.Conditions) == 0 || string(in.Conditions) == "null" {
 		fe.Add("conditions", "are required: at least {\"accelerating_voltage\": \"300 kV\"}")
-	} else if _, err := ParseConditions(in.Conditions); err != nil {
+	} else if c, err := ParseConditions(in.Conditions); err != nil {
 		var e *beamledger.Error
 		if errors.As(underConditions(err), &e) && len(e.Fields) > 0 {
 			for k, v := range e.Fields {
@@ -129,8 +130,10 @@ func (in *AcquisitionInput) Normalize(correction bool) error {
 		} else {
 			fe.Add("conditions", beamledger.FieldReason(err))
 		}
+	} else {
+		voltageV = c.VoltageV()
 	}
-	return fe.Err()
+	return voltageV, fe.Err()
 }
 
 // AcquisitionFilter selects acquisitions; empty fields select everything.

@@ -41,17 +41,15 @@ func (s *Server) handleAcquisitionCreate(c echo.Context) error {
 	if err := bind(c, &in); err != nil {
 		return err
 	}
-	if err := in.Normalize(false); err != nil {
+	volts, err := in.Normalize(false)
+	if err != nil {
 		return err
 	}
 	ctx := c.Request().Context()
 	if err := s.acquisitionBooking(ctx, in.BookingID); err != nil {
 		return err
 	}
-	n, err := s.newAcquisition(ctx, in)
-	if err != nil {
-		return err
-	}
+	n := s.newAcquisition(ctx, in, volts)
 	a, err := s.store.CreateAcquisition(ctx, n, func(ac provenance.AcquisitionContext) (provenance.Draft, error) {
 		return provenance.Record(ac, in)
 	})
@@ -61,12 +59,8 @@ func (s *Server) handleAcquisitionCreate(c echo.Context) error {
 	return c.JSON(http.StatusCreated, a)
 }
 
-func (s *Server) newAcquisition(ctx context.Context, in provenance.AcquisitionInput) (provenance.NewAcquisition, error) {
-	cond, err := provenance.ParseConditions(in.Conditions)
-	if err != nil {
-		return provenance.NewAcquisition{}, err // Normalize has already worded it
-	}
-	return provenance.NewAcquisition{Input: in, VoltageV: cond.VoltageV(), Actor: principal(ctx).ID(), Now: s.now()}, nil
+func (s *Server) newAcquisition(ctx context.Context, in provenance.AcquisitionInput, voltageV float64) provenance.NewAcquisition {
+	return provenance.NewAcquisition{Input: in, VoltageV: voltageV, Actor: principal(ctx).ID(), Now: s.now()}
 }
 
 // visibleAcquisition loads an acquisition the caller may read: those who read
@@ -110,7 +104,8 @@ func (s *Server) handleAcquisitionCorrect(c echo.Context) error {
 	if err := bind(c, &in); err != nil {
 		return err
 	}
-	if err := in.Normalize(true); err != nil {
+	volts, err := in.Normalize(true)
+	if err != nil {
 		return err
 	}
 	ctx := c.Request().Context()
@@ -122,10 +117,7 @@ func (s *Server) handleAcquisitionCorrect(c echo.Context) error {
 	if !me.FacilityWide() && cur.UserID != me.UserID {
 		return beamledger.Forbidden("only the booked user, staff or a manager correct this acquisition")
 	}
-	n, err := s.newAcquisition(ctx, in)
-	if err != nil {
-		return err
-	}
+	n := s.newAcquisition(ctx, in, volts)
 	a, err := s.store.CorrectAcquisition(ctx, cur.ID, n, func(ac provenance.AcquisitionContext) (provenance.Draft, error) {
 		return provenance.Record(ac, in)
 	})

@@ -3,6 +3,7 @@ package server
 import (
 	"net/http"
 	"strconv"
+	"time"
 
 	"github.com/labstack/echo/v4"
 
@@ -87,11 +88,11 @@ func (s *Server) handleLedgerHead(c echo.Context) error {
 	}
 	a := ledgerHeadAnswer{Size: h.Size, Root: h.Root.String(), Unsealed: n}
 	if !h.SealedAt.IsZero() {
-		t := h.SealedAt.UTC().Format(timeFormat)
+		t := h.SealedAt.UTC().Format(time.RFC3339Nano)
 		a.SealedAt = &t
 	}
 	if oldest != nil {
-		t := oldest.UTC().Format(timeFormat)
+		t := oldest.UTC().Format(time.RFC3339Nano)
 		a.OldestUnsealed = &t
 	}
 	return c.JSON(http.StatusOK, a)
@@ -171,5 +172,3 @@ func queryInt(c echo.Context, name string, def, lo, hi int64) (int64, error) {
 	}
 	return n, nil
 }
-
-const timeFormat = "2006-01-02T15:04:05.999999Z07:00"

@@ -227,10 +227,7 @@ func lockedSpecimen(ctx context.Context, tx pgx.Tx, id, correcting string, start
 	if correcting != "" {
 		exclude = correcting
 	}
-	var sp provenance.Specimen
-	var before float64
-	err := tx.QueryRow(ctx, specimenSelectFor("$2::uuid", "$3")+` WHERE s.id = $1`, id, exclude, start).Scan(&sp.ID, &sp.ProjectID,
-		&sp.Code, &sp.Description, &sp.FluenceBudgetEPerA2, &sp.FluenceUsedEPerA2, &sp.Acquisitions, &sp.CreatedBy, &sp.CreatedAt, &before)
+	sp, before, err := scanSpecimenBefore(tx.QueryRow(ctx, specimenSelectFor("$2::uuid", "$3")+` WHERE s.id = $1`, id, exclude, start))
 	if errors.Is(err, pgx.ErrNoRows) {
 		return nil, 0, beamledger.InvalidField("specimen_id", "no such specimen")
 	}

@@ -36,11 +36,18 @@ LEFT JOIN LATERAL (
 }
 
 func scanSpecimen(row pgx.Row) (provenance.Specimen, error) {
+	s, _, err := scanSpecimenBefore(row)
+	return s, err
+}
+
+// scanSpecimenBefore reads a row of specimenSelectFor, with its last column: the
+// fluence of the acquisitions that started before the instant asked about.
+func scanSpecimenBefore(row pgx.Row) (provenance.Specimen, float64, error) {
 	var s provenance.Specimen
 	var before float64
 	err := row.Scan(&s.ID, &s.ProjectID, &s.Code, &s.Description, &s.FluenceBudgetEPerA2,
 		&s.FluenceUsedEPerA2, &s.Acquisitions, &s.CreatedBy, &s.CreatedAt, &before)
-	return s, err
+	return s, before, err
 }
 
 // CreateSpecimen implements provenance.SpecimenStore.

@@ -3,6 +3,7 @@ package postgres
 import (
 	"context"
 	"encoding/json"
+	"errors"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -89,7 +90,7 @@ WHERE t.instrument_id = $1 AND t.measured_at <= $2
   AND NOT EXISTS (SELECT 1 FROM tunings c WHERE c.corrects = t.id)
 ORDER BY t.measured_at DESC, t.recorded_at DESC LIMIT 1`
 	tu, err := scanTuning(tx.QueryRow(ctx, q, instrumentID, t, voltageV))
-	if err == pgx.ErrNoRows {
+	if errors.Is(err, pgx.ErrNoRows) {
 		return nil, nil
 	}
 	return &tu, err
@@ -108,7 +109,7 @@ func correctable(ctx context.Context, tx pgx.Tx, table, instrumentID string, cor
 	var inst string
 	err := tx.QueryRow(ctx, `SELECT instrument_id::text FROM `+pgx.Identifier{table}.Sanitize()+` WHERE id = $1 FOR SHARE`, *corrects).Scan(&inst)
 	switch {
-	case err == pgx.ErrNoRows:
+	case errors.Is(err, pgx.ErrNoRows):
 		return beamledger.InvalidField("corrects", "no such record")
 	case err != nil:
 		return err
