@@ -12,8 +12,10 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"slices"
 	"strconv"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 
@@ -29,6 +31,16 @@ import (
 type serveProcess struct {
 	cmd  *exec.Cmd
 	addr string
+
+	mu  sync.Mutex
+	log []string // every line it wrote to stderr
+}
+
+// logLines returns the lines the process has logged so far.
+func (p *serveProcess) logLines() []string {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	return slices.Clone(p.log)
 }
 
 // startServe runs the binary with env and waits for its "listening" log line.
@@ -48,18 +60,18 @@ func startServe(t *testing.T, bin string, env []string) *serveProcess {
 	found := make(chan string, 1)
 	ended := make(chan string, 1)
 	go func() {
-		var log []string
 		sc := bufio.NewScanner(stderr)
+		sc.Buffer(nil, 1<<20)
 		for sc.Scan() {
 			var line struct{ Msg, Addr string }
 			if json.Unmarshal(sc.Bytes(), &line) == nil && line.Msg == "listening" {
 				found <- line.Addr
 			}
-			if len(log) < 50 {
-				log = append(log, sc.Text())
-			}
+			p.mu.Lock()
+			p.log = append(p.log, sc.Text())
+			p.mu.Unlock()
 		}
-		ended <- strings.Join(log, "\n")
+		ended <- strings.Join(p.logLines(), "\n")
 	}()
 	select {
 	case p.addr = <-found:
@@ -90,19 +102,8 @@ func TestUploadSurvivesServerKill(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	bin := filepath.Join(t.TempDir(), "beamledger")
-	if out, err := exec.Command("go", "build", "-o", bin, ".").CombinedOutput(); err != nil {
-		t.Fatalf("go build: %v\n%s", err, out)
-	}
-	seed, ledgerSeed := make([]byte, 32), make([]byte, 32)
-	_, _ = rand.Read(seed)
-	_, _ = rand.Read(ledgerSeed)
-	// The ledger's signing key is set too, for builds whose serve requires one.
-	env := []string{"BEAMLEDGER_DATABASE_URL=" + dbURL, "BEAMLEDGER_JWT_SIGNING_KEY=" + hex.EncodeToString(seed),
-		"BEAMLEDGER_LEDGER_KEY=" + hex.EncodeToString(ledgerSeed),
-		"BEAMLEDGER_LISTEN=127.0.0.1:0", "BEAMLEDGER_OBJECT_STORE=s3", "BEAMLEDGER_S3_ENDPOINT=" + s3cfg.Endpoint,
-		"BEAMLEDGER_S3_REGION=" + s3cfg.Region, "BEAMLEDGER_S3_BUCKET=" + s3cfg.Bucket, "BEAMLEDGER_S3_ACCESS_KEY=" + s3cfg.AccessKey,
-		"BEAMLEDGER_S3_SECRET_KEY=" + s3cfg.SecretKey, "BEAMLEDGER_S3_PATH_STYLE=true", "BEAMLEDGER_S3_CREATE_BUCKET=true"}
+	bin := buildBinary(t)
+	env := serveEnv(dbURL, s3cfg)
 	srv := startServe(t, bin, env)
 	base := "http://" + srv.addr
 	projectID, token := researcherWithProject(t, db, base)
@@ -180,6 +181,30 @@ func TestUploadSurvivesServerKill(t *testing.T) {
 		t.Errorf("objects left after the cleanup: %v", left)
 	}
 	_ = again.cmd.Process.Signal(os.Interrupt)
+}
+
+// buildBinary builds the command into a temporary folder.
+func buildBinary(t testing.TB) string {
+	t.Helper()
+	bin := filepath.Join(t.TempDir(), "beamledger")
+	if out, err := exec.Command("go", "build", "-o", bin, ".").CombinedOutput(); err != nil {
+		t.Fatalf("go build: %v\n%s", err, out)
+	}
+	return bin
+}
+
+// serveEnv is the environment of `beamledger serve` over one database and one S3
+// bucket, with fresh JWT and ledger keys: processes given the same environment
+// share one facility.
+func serveEnv(dbURL string, s3cfg objects.S3Config) []string {
+	seed, ledgerSeed := make([]byte, 32), make([]byte, 32)
+	_, _ = rand.Read(seed)
+	_, _ = rand.Read(ledgerSeed)
+	return []string{"BEAMLEDGER_DATABASE_URL=" + dbURL, "BEAMLEDGER_JWT_SIGNING_KEY=" + hex.EncodeToString(seed),
+		"BEAMLEDGER_LEDGER_KEY=" + hex.EncodeToString(ledgerSeed),
+		"BEAMLEDGER_LISTEN=127.0.0.1:0", "BEAMLEDGER_OBJECT_STORE=s3", "BEAMLEDGER_S3_ENDPOINT=" + s3cfg.Endpoint,
+		"BEAMLEDGER_S3_REGION=" + s3cfg.Region, "BEAMLEDGER_S3_BUCKET=" + s3cfg.Bucket, "BEAMLEDGER_S3_ACCESS_KEY=" + s3cfg.AccessKey,
+		"BEAMLEDGER_S3_SECRET_KEY=" + s3cfg.SecretKey, "BEAMLEDGER_S3_PATH_STYLE=true", "BEAMLEDGER_S3_CREATE_BUCKET=true"}
 }
 
 // waitFor polls ok until it holds, failing the test after d.
