@@ -24,7 +24,7 @@ type Trace struct {
 	// acquisition or project) that the caller may read; each has its own trace.
 	OtherRecords []string `json:"other_records"`
 	// Acquisition is nil for a processed file, which belongs to a project only.
-	Acquisition *TraceAcquisition `json:"acquisition"`
+	Acquisition *TraceAcquisition      `json:"acquisition"`
 	Booking     *scheduling.Booking    `json:"booking"`
 	Instrument  *scheduling.Instrument `json:"instrument"`
 	Project     accounts.Project       `json:"project"`
