@@ -6,6 +6,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"strconv"
 	"time"
 
 	"github.com/gowebpki/jcs"
@@ -32,6 +33,19 @@ const (
 	// EntityQualification's events are grants (a grant that supersedes another also
 	// records the revocation it implies) and revocations.
 	EntityQualification = "qualification"
+	// Cost recovery. A rate schedule, adjustment or cost entry is created once and
+	// never edited; a billing policy (the facility's, or an instrument's override under
+	// the instrument's id) and a funding account are created, then corrected; a
+	// funding split (a project's default or a booking's own, under its id) is replaced
+	// whole; a statement is created as a draft, corrected each time the draft is
+	// recomputed, and issued once. A statement's state holds its lines, the charges.
+	EntityRateSchedule   = "rate_schedule"
+	EntityBillingPolicy  = "billing_policy"
+	EntityFundingAccount = "funding_account"
+	EntityFundingSplit   = "funding_split"
+	EntityStatement      = "statement"
+	EntityAdjustment     = "adjustment"
+	EntityCostEntry      = "cost_entry"
 )
 
 // Actions named by ledger events. Records here are never edited: a change is either
@@ -40,6 +54,8 @@ const (
 	ActionCreate  = "create"
 	ActionCorrect = "correct"
 	ActionRevoke  = "revoke"
+	// ActionIssue: a statement became final.
+	ActionIssue = "issue"
 )
 
 // LedgerFormat numbers the layout of an event's canonical bytes (the "v" member),
@@ -168,6 +184,65 @@ func ParseLeaf(leaf []byte) (LedgerEvent, error) {
 func (e LedgerEvent) SameFields(o LedgerEvent) bool {
 	return e.Actor == o.Actor && e.At.Equal(o.At) && e.Action == o.Action && e.EntityType == o.EntityType &&
 		e.EntityID == o.EntityID && bytes.Equal(e.Leaf, o.Leaf)
+}
+
+// MatchesLeaf reports whether e's Leaf is exactly the canonical encoding of e's
+// actor, time, action and entity around a state that is valid JSON. It builds the
+// envelope the leaf must have (RFC 8785 orders the members by name) from the fields
+// and compares bytes, which is what a row whose columns were edited without its
+// leaf fails; it costs a small fraction of ParseLeaf, which re-canonicalizes the
+// whole leaf. The state's own canonical form was fixed when the event was written
+// (NewLedgerEvent) and its bytes are fixed by the leaf hash. scratch is reused
+// between calls; the returned one is for the next call.
+func (e LedgerEvent) MatchesLeaf(scratch []byte) (bool, []byte) {
+	b := append(scratch[:0], `{"action":`...)
+	b = appendJCSString(b, e.Action)
+	b = append(b, `,"actor":`...)
+	b = appendJCSString(b, e.Actor)
+	b = append(b, `,"at":"`...)
+	b = e.At.UTC().AppendFormat(b, leafTime)
+	b = append(b, `","entity_id":`...)
+	b = appendJCSString(b, e.EntityID)
+	b = append(b, `,"entity_type":`...)
+	b = appendJCSString(b, e.EntityType)
+	b = append(b, `,"state":`...)
+	suffix := `,"v":` + strconv.Itoa(LedgerFormat) + `}`
+	leaf := e.Leaf
+	if len(leaf) < len(b)+len(suffix) || !bytes.HasPrefix(leaf, b) || !bytes.HasSuffix(leaf, []byte(suffix)) {
+		return false, b
+	}
+	state := leaf[len(b) : len(leaf)-len(suffix)]
+	return len(state) > 0 && json.Valid(state), b
+}
+
+// appendJCSString appends s as RFC 8785 §3.2.2.2 writes a string (ECMAScript's
+// JSON.stringify): '"' and '\' escaped, the short escapes \b \t \n \f \r, other
+// control characters as \u00xx in lower-case hex, everything else as it is.
+func appendJCSString(b []byte, s string) []byte {
+	const hex = "0123456789abcdef"
+	b = append(b, '"')
+	for i := 0; i < len(s); i++ {
+		c := s[i]
+		switch {
+		case c == '"' || c == '\\':
+			b = append(b, '\\', c)
+		case c == '\b':
+			b = append(b, '\\', 'b')
+		case c == '\t':
+			b = append(b, '\\', 't')
+		case c == '\n':
+			b = append(b, '\\', 'n')
+		case c == '\f':
+			b = append(b, '\\', 'f')
+		case c == '\r':
+			b = append(b, '\\', 'r')
+		case c < 0x20:
+			b = append(b, '\\', 'u', '0', '0', hex[c>>4], hex[c&0xf])
+		default:
+			b = append(b, c)
+		}
+	}
+	return append(b, '"')
 }
 
 // TreeHead is the ledger's tree after a seal: its size and RFC 6962 root hash.

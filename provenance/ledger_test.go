@@ -205,6 +205,40 @@ func TestLedgerEventCanonical(t *testing.T) {
 	}
 }
 
+// TestMatchesLeaf checks the audit's quick comparison of a row with its leaf: it
+// must agree with the full canonical encoding for every string, and refuse a row
+// whose columns were edited without the leaf.
+func TestMatchesLeaf(t *testing.T) {
+	at := time.Date(2031, 3, 14, 9, 26, 53, 589793238, time.UTC)
+	// [computed: github.com/gowebpki/jcs, the RFC 8785 encoding NewLedgerEvent uses]
+	// strings with every kind of escape RFC 8785 §3.2.2.2 names, and characters it
+	// leaves alone (non-ASCII, U+2028, DEL, '/').
+	odd := "q\"b\\s\b\t\n\f\r\x01\x1f\x7f/é€\u2028"
+	for _, actor := range []string{"user-1", "agent:tok-9", odd} {
+		ev, err := provenance.NewLedgerEvent(actor, provenance.ActionCorrect, provenance.EntitySpecimen, odd+"-id", at, map[string]any{"k": odd})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if ok, _ := ev.MatchesLeaf(nil); !ok {
+			t.Errorf("actor %q: an event built by NewLedgerEvent does not match its own leaf %s", actor, ev.Leaf)
+		}
+		for name, edit := range map[string]func(*provenance.LedgerEvent){
+			"actor":       func(e *provenance.LedgerEvent) { e.Actor += "x" },
+			"time":        func(e *provenance.LedgerEvent) { e.At = e.At.Add(time.Microsecond) },
+			"action":      func(e *provenance.LedgerEvent) { e.Action = provenance.ActionCreate },
+			"entity type": func(e *provenance.LedgerEvent) { e.EntityType = provenance.EntityTuning },
+			"entity id":   func(e *provenance.LedgerEvent) { e.EntityID = "other" },
+			"state":       func(e *provenance.LedgerEvent) { e.Leaf = []byte(strings.Replace(string(e.Leaf), `"state":{`, `"state":{{`, 1)) },
+		} {
+			e := ev
+			edit(&e)
+			if ok, _ := e.MatchesLeaf(nil); ok {
+				t.Errorf("actor %q: a row with its %s edited matches the leaf", actor, name)
+			}
+		}
+	}
+}
+
 // rfc8032Test1 is the key of RFC 8032 §7.1 test 1. It is public: tests only.
 func rfc8032Test1(t *testing.T) ed25519.PrivateKey {
 	// [published: RFC 8032 §7.1 test 1] secret key.

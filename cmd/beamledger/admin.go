@@ -22,7 +22,7 @@ func openDB(ctx context.Context) (*postgres.DB, error) {
 	if err != nil {
 		return nil, err
 	}
-	return postgres.Open(ctx, url, 2)
+	return postgres.Open(ctx, url, 4)
 }
 
 func cmdMigrate(ctx context.Context, args []string, stdout, stderr io.Writer) error {
