@@ -33,7 +33,7 @@ import (
 // cluster is three `beamledger serve` processes over one PostgreSQL database and
 // one S3 bucket, as a facility runs them behind a load balancer.
 type cluster struct {
-	t      *testing.T
+	t      testing.TB
 	db     *postgres.DB
 	sql    *pgx.Conn // for checks from outside the server, from the test's goroutine only
 	url    string
@@ -51,7 +51,7 @@ type clusterUser struct {
 
 const clusterPassword = "three processes, one ledger"
 
-func newCluster(t *testing.T, extraEnv ...string) *cluster {
+func newCluster(t testing.TB, extraEnv ...string) *cluster {
 	t.Helper()
 	ctx := context.Background()
 	c := &cluster{t: t, url: pgtest.NewDatabase(t)}

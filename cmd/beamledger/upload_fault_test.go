@@ -44,7 +44,7 @@ func (p *serveProcess) logLines() []string {
 }
 
 // startServe runs the binary with env and waits for its "listening" log line.
-func startServe(t *testing.T, bin string, env []string) *serveProcess {
+func startServe(t testing.TB, bin string, env []string) *serveProcess {
 	t.Helper()
 	cmd := exec.Command(bin, "serve")
 	cmd.Env = append(os.Environ(), env...)
@@ -208,7 +208,7 @@ func serveEnv(dbURL string, s3cfg objects.S3Config) []string {
 }
 
 // waitFor polls ok until it holds, failing the test after d.
-func waitFor(t *testing.T, d time.Duration, what string, ok func() bool) {
+func waitFor(t testing.TB, d time.Duration, what string, ok func() bool) {
 	t.Helper()
 	for deadline := time.Now().Add(d); time.Now().Before(deadline); time.Sleep(100 * time.Millisecond) {
 		if ok() {
