@@ -195,6 +195,10 @@ type UploadStore interface {
 	// SaveUploadProgress records progress under token's lease and renews it;
 	// ErrConflict when the lease was lost.
 	SaveUploadProgress(ctx context.Context, id, token string, p UploadProgress, lease time.Duration, now time.Time) error
+	// DeclareUploadDigest records, under token's lease, the SHA-256 the client
+	// declares for the whole file when it did not declare one at creation;
+	// ErrConflict when the lease was lost.
+	DeclareUploadDigest(ctx context.Context, id, token, sha256Hex string) error
 	// ReleaseUpload gives the lease back; a lost lease is not an error.
 	ReleaseUpload(ctx context.Context, id, token string) error
 	// FinishUpload turns the pending record into a stored one and removes the

@@ -3,8 +3,10 @@ package scheduling
 import (
 	"fmt"
 	"math/big"
+	"time"
 
 	"beamledger"
+	"beamledger/accounts"
 )
 
 // RateInputs are a year's costs and projections for one instrument, from which its
@@ -152,4 +154,48 @@ func (in RateInputs) validate() error {
 	// A year has 8784 hours at most; more cannot be billed on one instrument.
 	between("projected_billable_hours", in.ProjectedBillableHours, 1, 8784)
 	return fe.Err()
+}
+
+// ScheduleOptions are what a rate schedule needs beyond the calculated rates.
+type ScheduleOptions struct {
+	InstrumentID  string    `json:"instrument_id"`
+	EffectiveFrom time.Time `json:"effective_from"`
+	Currency      string    `json:"currency"`
+	// StaffHourlyMinor is the internal staff rate; external academic users pay it plus
+	// F&A and commercial users that times the multiplier, as for instrument time.
+	StaffHourlyMinor int64 `json:"staff_hourly_minor"`
+	// UnattendedBasisPoints prices unattended time as a share of the class's rate
+	// (5000 = half); 0 means the full rate.
+	UnattendedBasisPoints int64 `json:"unattended_basis_points"`
+}
+
+// Schedule turns a calculation into a rate schedule: each class's rate for
+// independent, assisted and training time, the unattended share of it, and the staff
+// rate marked up as the class's instrument rate is. Each derived rate is rounded half up
+// once, from exact values.
+func (c RateCalculation) Schedule(in RateInputs, o ScheduleOptions) (RateSchedule, error) {
+	if o.StaffHourlyMinor < 0 || o.StaffHourlyMinor > maxHourlyRateMinor {
+		return RateSchedule{}, beamledger.InvalidField("save.staff_hourly_minor", "must be between 0 and 10^10 minor units an hour")
+	}
+	if o.UnattendedBasisPoints < 0 || o.UnattendedBasisPoints > WholeBasisPoints {
+		return RateSchedule{}, beamledger.InvalidField("save.unattended_basis_points", "must be between 0 and 10000")
+	}
+	unattended := o.UnattendedBasisPoints
+	if unattended == 0 {
+		unattended = WholeBasisPoints
+	}
+	bp := func(v int64) *big.Rat { return big.NewRat(v, WholeBasisPoints) }
+	external := new(big.Rat).Add(big.NewRat(1, 1), bp(in.FAndABasisPoints))
+	commercial := new(big.Rat).Mul(external, bp(in.CommercialMultiplierBasisPoints))
+	scale := func(v int64, f *big.Rat) int64 { return roundHalfUp(new(big.Rat).Mul(new(big.Rat).SetInt64(v), f)) }
+	class := func(rc accounts.RateClass, rate int64, staff *big.Rat) ClassRates {
+		return ClassRates{RateClass: rc, IndependentHourlyMinor: rate, AssistedHourlyMinor: rate, TrainingHourlyMinor: rate,
+			UnattendedHourlyMinor: scale(rate, bp(unattended)), StaffHourlyMinor: scale(o.StaffHourlyMinor, staff)}
+	}
+	s := RateSchedule{InstrumentID: o.InstrumentID, EffectiveFrom: o.EffectiveFrom, Currency: o.Currency, Classes: []ClassRates{
+		class(accounts.RateInternal, c.InternalHourlyMinor, big.NewRat(1, 1)),
+		class(accounts.RateExternalAcademic, c.ExternalAcademicHourlyMinor, external),
+		class(accounts.RateCommercial, c.CommercialHourlyMinor, commercial),
+	}}
+	return s, s.Validate()
 }

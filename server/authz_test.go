@@ -365,6 +365,53 @@ var routeMatrix = map[string]routeExpectation{
 		extra[":instrument_id"] = w.instr.ID + ".ics"
 		return extra
 	}},
+
+	// Cost recovery (helpers in billing_matrix_test.go): managers write; every user
+	// reads rates and policy; staff and auditors read every project's accounts and
+	// statements, the researcher none of the foreign project's; the reports are for
+	// managers, staff and auditors.
+	"GET /api/v1/instruments/:instrument_id/rate-schedules": {who: usersOnly},
+	"POST /api/v1/instruments/:instrument_id/rate-schedules": {who: managerOnly, strict: true, body: func(w *world) any {
+		return refRateBody(w.clock.Now().Add(24 * time.Hour))
+	}},
+	"GET /api/v1/facility/billing-policy":                   {who: usersOnly},
+	"PUT /api/v1/facility/billing-policy":                   {who: managerOnly, strict: true, body: func(*world) any { return map[string]any{"unattended_cap_minor": 40000} }},
+	"GET /api/v1/instruments/:instrument_id/billing-policy": {who: usersOnly},
+	"PUT /api/v1/instruments/:instrument_id/billing-policy": {who: managerOnly, strict: true, body: func(*world) any { return map[string]any{"minimum_minutes": 30} }},
+	"GET /api/v1/projects/:project_id/funding-accounts":     {who: bookingReaders},
+	"POST /api/v1/projects/:project_id/funding-accounts": {who: managerOnly, strict: true, body: func(*world) any {
+		return map[string]any{"code": "GRANT-9"}
+	}},
+	"PATCH /api/v1/funding-accounts/:account_id": {who: managerOnly, strict: true, setup: matrixFundingAccount, body: func(*world) any {
+		return map[string]any{"cap_minor": 100000}
+	}},
+	"GET /api/v1/projects/:project_id/funding": {who: bookingReaders},
+	"PUT /api/v1/projects/:project_id/funding": {who: managerOnly, strict: true, setup: matrixFundingAccount, body: matrixFundingBody},
+	"GET /api/v1/bookings/:booking_id/funding": {who: bookingReaders, setup: matrixBooking},
+	"PUT /api/v1/bookings/:booking_id/funding": {who: managerOnly, strict: true, setup: func(w *world) map[string]string {
+		extra := matrixBooking(w)
+		maps.Copy(extra, matrixFundingAccount(w))
+		return extra
+	}, body: matrixFundingBody},
+	"GET /api/v1/projects/:project_id/statements": {who: bookingReaders, setup: matrixStatement},
+	"POST /api/v1/projects/:project_id/statements": {who: managerOnly, strict: true, setup: matrixFundingAccount, body: func(*world) any {
+		return map[string]string{"month": "2026-01"}
+	}},
+	"GET /api/v1/statements/:statement_id":        {who: bookingReaders, setup: matrixStatement},
+	"POST /api/v1/statements/:statement_id/issue": {who: managerOnly, strict: true, setup: matrixStatement},
+	"POST /api/v1/projects/:project_id/adjustments": {who: managerOnly, strict: true, setup: matrixFundingAccount, body: func(w *world) any {
+		b := matrixFundingBody(w).(map[string]any)
+		b["amount_minor"], b["reason"] = -500, "goodwill credit"
+		return b
+	}},
+	"POST /api/v1/rate-calculations": {who: managerOnly, strict: true, body: func(*world) any { return refRateInputs() }},
+	"POST /api/v1/cost-entries": {who: managerOnly, strict: true, body: func(w *world) any {
+		return map[string]any{"instrument_id": w.instr.ID, "fiscal_year": 2026, "category": "service_contract", "amount_minor": 9600000}
+	}},
+	"GET /api/v1/reports/recovery": {who: access{wUnauth, wAllow, wAllow, wDeny, wAllow, wDeny}, query: func(*world) string { return "fiscal_year=2026" }},
+	"GET /api/v1/reports/utilization": {who: access{wUnauth, wAllow, wAllow, wDeny, wAllow, wDeny}, query: func(w *world) string {
+		return "instrument_id=" + w.instr.ID + "&from=2026-03-01&to=2026-04-01"
+	}},
 }
 
 var (

@@ -188,6 +188,9 @@ func (s *Server) handleUploadPatch(c echo.Context) error {
 	if err := checkOffset(u, offset, req.ContentLength); err != nil {
 		return err
 	}
+	if u, err = s.declareUploadDigest(ctx, req.Header, u, token); err != nil {
+		return err
+	}
 	stopRenewing := s.renewLease(ctx, cancel, id, token)
 	w, err := s.newUploadWriter(ctx, u, token, req.ContentLength)
 	if err != nil {
@@ -211,13 +214,45 @@ func (s *Server) handleUploadPatch(c echo.Context) error {
 		h.Set("Upload-Expires", s.uploadExpires(w.u))
 		return c.NoContent(http.StatusNoContent)
 	}
-	f, err := s.completeUpload(ctx, w)
+	declaredIn := "Upload-Metadata"
+	if req.Header.Get("Repr-Digest") != "" {
+		declaredIn = "Repr-Digest"
+	}
+	f, err := s.completeUpload(ctx, w, declaredIn)
 	if err != nil {
 		return err
 	}
 	h.Set("Data-File-Id", f.ID)
 	h.Set("Repr-Digest", provenance.ReprDigest(f.SHA256))
 	return c.NoContent(http.StatusNoContent)
+}
+
+// declareUploadDigest takes a Repr-Digest (RFC 9530) on a PATCH as the SHA-256 of
+// the whole file: the digest a client that hashes while it sends learns only near
+// the end, declared on a later PATCH than the creation (the last, typically). It
+// holds from then on as a sha256 declared at creation does; one that disagrees
+// with the digest declared before is refused before any byte is read.
+func (s *Server) declareUploadDigest(ctx context.Context, h http.Header, u provenance.Upload, token string) (provenance.Upload, error) {
+	field := h.Get("Repr-Digest")
+	if field == "" {
+		return u, nil
+	}
+	d, ok, err := provenance.ParseReprDigest(field)
+	switch {
+	case err != nil:
+		return u, beamledger.InvalidField("Repr-Digest", err.Error())
+	case !ok:
+		return u, beamledger.InvalidField("Repr-Digest", "has no sha-256 member; sha-256 is the digest this server checks")
+	case u.DeclaredSHA256 == d:
+		return u, nil
+	case u.DeclaredSHA256 != "":
+		return u, beamledger.InvalidField("Repr-Digest", "differs from the sha-256 declared before for this upload")
+	}
+	if err := s.store.DeclareUploadDigest(ctx, u.ID, token, d); err != nil {
+		return u, err
+	}
+	u.DeclaredSHA256 = d
+	return u, nil
 }
 
 // patchBodyError words how a PATCH body failed. What arrived before is kept, so

@@ -291,6 +291,7 @@ func TestOpenAPIExamplesExercise(t *testing.T) {
 	exerciseFiles(t, w)
 	exerciseLedger(t, w)
 	exerciseUploads(t, w)
+	exerciseBilling(t, w)
 
 	// Every documented 2xx of every operation, and some error of each operation that
 	// documents errors, must have been seen.

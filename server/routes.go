@@ -85,6 +85,32 @@ func (s *Server) routes() error {
 	add(http.MethodPost, v1+"/bookings/:booking_id/check-out", usageRule(), s.handleCheckOut)
 	add(http.MethodGet, v1+"/bookings/:booking_id/usage", usersOrAgent(accounts.ScopeUsageWrite, everyone...), s.handleUsageReport)
 
+	// Cost recovery: managers set rates, policy, funding and issue statements; every
+	// user reads rates and policy, and their own projects' accounts and statements;
+	// staff and auditors read every project's and the reports.
+	add(http.MethodGet, v1+"/instruments/:instrument_id/rate-schedules", users(everyone...), s.handleRateScheduleList)
+	add(http.MethodPost, v1+"/instruments/:instrument_id/rate-schedules", users(managers...), s.handleRateScheduleCreate)
+	add(http.MethodGet, v1+"/facility/billing-policy", users(everyone...), s.handleFacilityBillingGet)
+	add(http.MethodPut, v1+"/facility/billing-policy", users(managers...), s.handleFacilityBillingSet)
+	add(http.MethodGet, v1+"/instruments/:instrument_id/billing-policy", users(everyone...), s.handleInstrumentBillingGet)
+	add(http.MethodPut, v1+"/instruments/:instrument_id/billing-policy", users(managers...), s.handleInstrumentBillingSet)
+	add(http.MethodGet, v1+"/projects/:project_id/funding-accounts", users(everyone...), s.handleFundingAccountList)
+	add(http.MethodPost, v1+"/projects/:project_id/funding-accounts", users(managers...), s.handleFundingAccountCreate)
+	add(http.MethodPatch, v1+"/funding-accounts/:account_id", users(managers...), s.handleFundingAccountPatch)
+	add(http.MethodGet, v1+"/projects/:project_id/funding", users(everyone...), s.handleProjectFundingGet)
+	add(http.MethodPut, v1+"/projects/:project_id/funding", users(managers...), s.handleProjectFundingSet)
+	add(http.MethodGet, v1+"/bookings/:booking_id/funding", users(everyone...), s.handleBookingFundingGet)
+	add(http.MethodPut, v1+"/bookings/:booking_id/funding", users(managers...), s.handleBookingFundingSet)
+	add(http.MethodGet, v1+"/projects/:project_id/statements", users(everyone...), s.handleStatementList)
+	add(http.MethodPost, v1+"/projects/:project_id/statements", users(managers...), s.handleStatementCompute)
+	add(http.MethodGet, v1+"/statements/:statement_id", users(everyone...), s.handleStatementGet)
+	add(http.MethodPost, v1+"/statements/:statement_id/issue", users(managers...), s.handleStatementIssue)
+	add(http.MethodPost, v1+"/projects/:project_id/adjustments", users(managers...), s.handleAdjustmentCreate)
+	add(http.MethodPost, v1+"/rate-calculations", users(managers...), s.handleRateCalculation)
+	add(http.MethodPost, v1+"/cost-entries", users(managers...), s.handleCostEntryCreate)
+	add(http.MethodGet, v1+"/reports/recovery", users(readersAll...), s.handleRecoveryReport)
+	add(http.MethodGet, v1+"/reports/utilization", users(readersAll...), s.handleUtilizationReport)
+
 	// Acquisitions and what they are recorded against. The records are append-only.
 	recorders := usersOrAgent(accounts.ScopeAcquisitionWrite, bookers...)
 	add(http.MethodPost, v1+"/derive", usersOrAgent(accounts.ScopeAcquisitionWrite, everyone...), s.handleDerive)

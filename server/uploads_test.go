@@ -299,6 +299,61 @@ func TestUploadManyParts(t *testing.T) {
 	}
 }
 
+// TestUploadDigestDeclaredOnPatch: a client that hashes while it sends declares
+// the file's digest with Repr-Digest on a later PATCH. The right one stores the
+// file; a wrong one leaves nothing behind; one that contradicts the digest declared
+// at creation, or is not a sha-256 field, is refused before a byte is read.
+func TestUploadDigestDeclaredOnPatch(t *testing.T) {
+	w := tusWorld(t, uploadStores[0].open)
+	researcher := w.tokens[accounts.RoleResearcher]
+	acq := testAcquisition(w)
+	// [published: FIPS 180-4 examples] SHA-256("abc"), as RFC 9530 writes it.
+	const abc = "sha-256=:ungWv48Bz+pBQUDeXa4iI7ADYaOWF3qctBD/YfIAFa0=:"
+	digest := func(field string) http.Header {
+		return http.Header{"Upload-Offset": {"1"}, "Repr-Digest": {field}}
+	}
+
+	path, created := w.createUpload(researcher, 3, "filename", "late.bin", "acquisition_id", acq)
+	if r := w.patch(path, researcher, 0, []byte("a")); r.StatusCode != http.StatusNoContent {
+		t.Fatalf("first PATCH: %d %s", r.StatusCode, r.Body)
+	}
+	if r := w.tus(http.MethodPatch, path, researcher, digest("sha-256=:not base64:"), []byte("bc")); r.StatusCode != http.StatusBadRequest || !fieldNamed(r, "Repr-Digest") {
+		t.Errorf("a malformed Repr-Digest: %d %s", r.StatusCode, r.Body)
+	}
+	if r := w.tus(http.MethodPatch, path, researcher, digest("sha-512=:AAAA:"), []byte("bc")); r.StatusCode != http.StatusBadRequest || !fieldNamed(r, "Repr-Digest") {
+		t.Errorf("a Repr-Digest without sha-256: %d %s", r.StatusCode, r.Body)
+	}
+	if got := w.headOffset(path, researcher); got != 1 {
+		t.Errorf("offset after refused PATCHes: %d, want 1 (nothing read)", got)
+	}
+	r := w.tus(http.MethodPatch, path, researcher, digest(abc), []byte("bc"))
+	if r.StatusCode != http.StatusNoContent || r.Header.Get("Data-File-Id") != created.Header.Get("Data-File-Id") || r.Header.Get("Repr-Digest") != abc {
+		t.Fatalf("completing PATCH with the right digest: %d %v %s", r.StatusCode, r.Header, r.Body)
+	}
+
+	path, created = w.createUpload(researcher, 3, "filename", "wrong.bin", "acquisition_id", acq)
+	if r := w.patch(path, researcher, 0, []byte("x")); r.StatusCode != http.StatusNoContent {
+		t.Fatalf("first PATCH: %d %s", r.StatusCode, r.Body)
+	}
+	if r := w.tus(http.MethodPatch, path, researcher, digest(abc), []byte("bc")); r.StatusCode != http.StatusBadRequest || !fieldNamed(r, "Repr-Digest") {
+		t.Fatalf("bytes that do not match the Repr-Digest: %d %s", r.StatusCode, r.Body)
+	}
+	if r := w.get("/api/v1/files/"+created.Header.Get("Data-File-Id"), researcher, nil); r.StatusCode != http.StatusNotFound {
+		t.Errorf("record after a mismatch: %d", r.StatusCode)
+	}
+
+	path, _ = w.createUpload(researcher, 3, "filename", "both.bin", "acquisition_id", acq, "sha256", sha256Hex([]byte("abd")))
+	if r := w.patch(path, researcher, 0, []byte("a")); r.StatusCode != http.StatusNoContent {
+		t.Fatalf("first PATCH: %d %s", r.StatusCode, r.Body)
+	}
+	if r := w.tus(http.MethodPatch, path, researcher, digest(abc), []byte("bc")); r.StatusCode != http.StatusBadRequest || !contains(r.Body, "declared before") {
+		t.Errorf("a Repr-Digest contradicting the creation's sha256: %d %s", r.StatusCode, r.Body)
+	}
+	if got := w.headOffset(path, researcher); got != 1 {
+		t.Errorf("offset after a contradicting digest: %d, want 1", got)
+	}
+}
+
 // TestUploadDeclaredDigestMismatch: bytes other than the declared ones leave no
 // record, no object and no parts.
 func TestUploadDeclaredDigestMismatch(t *testing.T) {
@@ -601,6 +656,14 @@ func exerciseUploads(t *testing.T, w *world) {
 	}
 	if r := w.patch(path, researcher, 3, []byte("def")); r.StatusCode != http.StatusNoContent || r.Header.Get("Data-File-Id") == "" {
 		t.Errorf("last PATCH: %d %v", r.StatusCode, r.Header)
+	}
+	// The digest declared on the PATCH that completes the file.
+	path, _ = w.createUpload(researcher, 3, "filename", "g.txt", "acquisition_id", acq)
+	if r := w.tus(http.MethodPatch, path, researcher, http.Header{"Upload-Offset": {"0"}, "Repr-Digest": {"sha-256=:x:"}}, []byte("ghi")); r.StatusCode != http.StatusBadRequest {
+		t.Errorf("PATCH with a malformed Repr-Digest: %d", r.StatusCode)
+	}
+	if r := w.tus(http.MethodPatch, path, researcher, http.Header{"Upload-Offset": {"0"}, "Repr-Digest": {provenance.ReprDigest(sha256Hex([]byte("ghi")))}}, []byte("ghi")); r.StatusCode != http.StatusNoContent || r.Header.Get("Data-File-Id") == "" {
+		t.Errorf("PATCH with its Repr-Digest: %d %v", r.StatusCode, r.Header)
 	}
 	path, _ = w.createUpload(researcher, 6, "filename", "f.txt", "acquisition_id", acq)
 	if r := w.tus(http.MethodDelete, path, researcher, nil, nil); r.StatusCode != http.StatusNoContent {

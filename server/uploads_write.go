@@ -320,7 +320,9 @@ func (r *segmentReader) Close() {
 // ever appears under the content address), the parts are joined, the object moved
 // to its content address when it was not there already, and the pending record
 // becomes the stored one (or gives way to the record these bytes already have).
-func (s *Server) completeUpload(ctx context.Context, w *uploadWriter) (provenance.DataFile, error) {
+//
+// declaredIn names the field that declared the digest, for the refusal.
+func (s *Server) completeUpload(ctx context.Context, w *uploadWriter, declaredIn string) (provenance.DataFile, error) {
 	u := w.u
 	sum := hex.EncodeToString(w.h.Sum(nil))
 	if u.DeclaredSHA256 != "" && sum != u.DeclaredSHA256 {
@@ -328,7 +330,7 @@ func (s *Server) completeUpload(ctx context.Context, w *uploadWriter) (provenanc
 			return provenance.DataFile{}, err
 		}
 		s.discardUploadObjects(ctx, u)
-		return provenance.DataFile{}, beamledger.InvalidField("Upload-Metadata",
+		return provenance.DataFile{}, beamledger.InvalidField(declaredIn,
 			"sha256: the uploaded bytes do not match the declared digest; the upload is discarded and nothing was stored")
 	}
 	if !u.VerifyOnly() {
@@ -388,7 +390,7 @@ func (s *Server) assembleObject(ctx context.Context, u provenance.Upload, sum st
 func (s *Server) discardUploadObjects(ctx context.Context, u provenance.Upload) {
 	if u.MultipartID != "" {
 		if err := s.objects.AbortMultipart(ctx, u.ObjectKey, u.MultipartID); err != nil {
-			s.log.Warn("aborting an upload's parts failed", slog.String("upload", u.ID), slog.Any("error", err))
+			s.log.WarnContext(ctx, "aborting an upload's parts failed", slog.String("upload", u.ID), slog.Any("error", err))
 		}
 	}
 	if u.ObjectKey == provenance.IncomingKey(u.ID) {
@@ -405,7 +407,7 @@ func (s *Server) discardSegments(ctx context.Context, uploadID string) {
 		return nil
 	})
 	if err != nil {
-		s.log.Warn("listing an upload's segments failed", slog.String("upload", uploadID), slog.Any("error", err))
+		s.log.WarnContext(ctx, "listing an upload's segments failed", slog.String("upload", uploadID), slog.Any("error", err))
 	}
 	for _, k := range keys {
 		s.deleteObject(ctx, k)
@@ -415,6 +417,6 @@ func (s *Server) discardSegments(ctx context.Context, uploadID string) {
 // deleteObject removes an object that is no longer needed, logging a failure.
 func (s *Server) deleteObject(ctx context.Context, key string) {
 	if err := s.objects.Delete(ctx, key); err != nil {
-		s.log.Warn("deleting a leftover object failed", slog.String("key", key), slog.Any("error", err))
+		s.log.WarnContext(ctx, "deleting a leftover object failed", slog.String("key", key), slog.Any("error", err))
 	}
 }

@@ -36,7 +36,8 @@ type uploadOptions struct {
 
 // cmdUpload sends files (or folders' files) to the server as resumable uploads,
 // the way an instrument computer hands over what it recorded: each file is hashed
-// first, so its digest is declared and checked, then sent in chunks; a network
+// while it is sent and its digest declared on the last request, so the server
+// checks it before recording the file; a network
 // failure is waited out and the upload resumed from the offset the server holds,
 // and the upload's address is kept in a state file, so running the command again
 // after a crash resumes too. Prints "<sha256>  <record id>  <path>" per file.
@@ -50,7 +51,7 @@ func cmdUpload(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	fs.StringVar(&o.project, "project", "", "for processed files: their project")
 	fs.StringVar(&o.mediaType, "media-type", "", "media type of every file (default application/octet-stream)")
 	fs.StringVar(&o.statePath, "state", "", "state file of unfinished uploads (default $XDG_CACHE_HOME/beamledger/uploads.json)")
-	chunk := fs.Int64("chunk-bytes", 64<<20, "bytes sent per request")
+	chunk := fs.Int64("chunk-bytes", 0, "bytes sent per request at most (0: no limit; a proxy in the way may need one)")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: beamledger upload -server URL (-acquisition ID | -project ID) [flags] FILE-OR-FOLDER...")
 		fs.PrintDefaults()
@@ -73,8 +74,8 @@ func cmdUpload(ctx context.Context, args []string, stdout, stderr io.Writer) err
 		return &exitError{2, errors.New("give -acquisition ID for recorded data or -project ID for processed files")}
 	case fs.NArg() == 0:
 		return &exitError{2, errors.New("name at least one file or folder")}
-	case o.chunkBytes < 1:
-		return &exitError{2, errors.New("-chunk-bytes must be positive")}
+	case o.chunkBytes < 0:
+		return &exitError{2, errors.New("-chunk-bytes must not be negative")}
 	}
 	if o.statePath == "" {
 		dir, err := os.UserCacheDir()
@@ -138,7 +139,10 @@ func filesUnder(paths []string) ([]string, error) {
 	return out, nil
 }
 
-// uploadOne hashes, creates (or finds again) and sends one file.
+// uploadOne creates (or finds again) and sends one file. The file is hashed while
+// it is sent, by a second reader running ahead: all but the last few MiB go first,
+// and the last request declares the digest (Repr-Digest, RFC 9530), which the
+// server checks before it records the file.
 func uploadOne(ctx context.Context, o uploadOptions, state *uploadState, path string, stderr io.Writer) (sum, id string, err error) {
 	f, err := os.Open(path)
 	if err != nil {
@@ -150,16 +154,13 @@ func uploadOne(ctx context.Context, o uploadOptions, state *uploadState, path st
 		return "", "", err
 	}
 	bar := newProgress(stderr, filepath.Base(path), st.Size(), o)
-	h := sha256.New()
-	// Reading in large blocks rather than io.Copy's 32 KiB cuts the system calls
-	// of the hashing pass, which is all in the command's time before sending.
-	if _, err := io.CopyBuffer(h, io.TeeReader(f, bar.counter("hashing")), make([]byte, 1<<20)); err != nil {
-		return "", "", err
-	}
-	sum = hex.EncodeToString(h.Sum(nil))
+	hashed := make(chan hashResult, 1)
+	hashCtx, stopHashing := context.WithCancel(ctx)
+	defer stopHashing()
+	go func() { hashed <- hashFile(hashCtx, f, st.Size()) }()
 	abs, _ := filepath.Abs(path)
-	key := strings.Join([]string{o.server, abs, strconv.FormatInt(st.Size(), 10), strconv.FormatInt(st.ModTime().UnixNano(), 10), sum}, "|")
-	c := &tusClient{o: o, file: f, size: st.Size(), bar: bar}
+	key := strings.Join([]string{o.server, abs, strconv.FormatInt(st.Size(), 10), strconv.FormatInt(st.ModTime().UnixNano(), 10)}, "|")
+	c := &tusClient{o: o, file: f, size: st.Size(), bar: bar, hashed: hashed}
 	loc := state.get(key)
 	offset := int64(-1)
 	if loc != "" {
@@ -168,8 +169,8 @@ func uploadOne(ctx context.Context, o uploadOptions, state *uploadState, path st
 		}
 	}
 	if offset < 0 {
-		if loc, err = c.create(ctx, filepath.Base(path), sum); err != nil {
-			return sum, "", err
+		if loc, err = c.create(ctx, filepath.Base(path)); err != nil {
+			return "", "", err
 		}
 		offset = 0
 		state.put(key, loc)
@@ -179,8 +180,40 @@ func uploadOne(ctx context.Context, o uploadOptions, state *uploadState, path st
 	if err == nil || errors.Is(err, errUploadGone) {
 		state.put(key, "")
 	}
-	return sum, id, err
+	return c.sum, id, err
 }
+
+// hashResult is the file's SHA-256 in hex, or why it could not be read.
+type hashResult struct {
+	sum string
+	err error
+}
+
+// hashFile hashes the file's size bytes from the start, through its own section
+// reader, so it runs beside the sending without sharing a file offset. Reading in
+// large blocks rather than io.Copy's 32 KiB cuts the system calls.
+func hashFile(ctx context.Context, f *os.File, size int64) hashResult {
+	h := sha256.New()
+	buf := make([]byte, 1<<20)
+	r := io.NewSectionReader(f, 0, size)
+	for {
+		if err := ctx.Err(); err != nil {
+			return hashResult{err: err}
+		}
+		n, err := r.Read(buf)
+		h.Write(buf[:n])
+		if err == io.EOF {
+			return hashResult{sum: hex.EncodeToString(h.Sum(nil))}
+		}
+		if err != nil {
+			return hashResult{err: err}
+		}
+	}
+}
+
+// lastRequestBytes is how much of a file the final request carries: the request
+// that declares the digest, so it waits for the hashing to finish.
+const lastRequestBytes = 8 << 20
 
 // errUploadGone is an upload the server no longer knows, or refused for good.
 var errUploadGone = errors.New("the server discarded the upload")
@@ -191,6 +224,26 @@ type tusClient struct {
 	file *os.File
 	size int64
 	bar  *progress
+	// hashed delivers the file's digest once; sum holds it after.
+	hashed <-chan hashResult
+	sum    string
+}
+
+// digest waits for the file's SHA-256.
+func (c *tusClient) digest(ctx context.Context) (string, error) {
+	if c.sum != "" {
+		return c.sum, nil
+	}
+	select {
+	case r := <-c.hashed:
+		if r.err != nil {
+			return "", fmt.Errorf("hashing the file: %w", r.err)
+		}
+		c.sum = r.sum
+		return c.sum, nil
+	case <-ctx.Done():
+		return "", ctx.Err()
+	}
 }
 
 func (c *tusClient) request(ctx context.Context, method, target string, body io.Reader, header map[string]string) (*http.Response, error) {
@@ -227,8 +280,8 @@ type sizedBody struct {
 func (b sizedBody) Read(p []byte) (int, error) { return b.r.Read(p) }
 
 // create begins the upload and returns its location.
-func (c *tusClient) create(ctx context.Context, name, sum string) (string, error) {
-	meta := []string{"filename " + b64(name), "sha256 " + b64(sum)}
+func (c *tusClient) create(ctx context.Context, name string) (string, error) {
+	meta := []string{"filename " + b64(name)}
 	if c.o.acquisition != "" {
 		meta = append(meta, "acquisition_id "+b64(c.o.acquisition))
 	} else {
@@ -272,6 +325,8 @@ func (c *tusClient) send(ctx context.Context, loc string, offset int64) (string,
 	for {
 		id, next, err := c.patch(ctx, loc, offset)
 		switch {
+		case errors.Is(err, errHashing):
+			return "", err
 		case err == nil && id != "":
 			return id, nil
 		case err == nil:
@@ -299,17 +354,37 @@ func (c *tusClient) send(ctx context.Context, loc string, offset int64) (string,
 	}
 }
 
-// patch sends one chunk at offset. It returns the record id once the file is
+// errHashing is a file that could not be read for its digest.
+var errHashing = errors.New("the file could not be hashed")
+
+// patch sends the next request's bytes from offset: up to chunkBytes (0: no
+// limit) of all but the file's last lastRequestBytes, or, once those are sent,
+// the rest with the file's digest. It returns the record id once the file is
 // complete, else the new offset.
 func (c *tusClient) patch(ctx context.Context, loc string, offset int64) (id string, next int64, err error) {
-	n := min(c.o.chunkBytes, c.size-offset)
+	header := map[string]string{"Content-Type": "application/offset+octet-stream", "Upload-Offset": strconv.FormatInt(offset, 10)}
+	end := max(c.size-lastRequestBytes, 0)
+	if c.o.chunkBytes > 0 {
+		end = min(end, offset+c.o.chunkBytes)
+	}
+	if offset >= end {
+		sum, err := c.digest(ctx)
+		if err != nil {
+			return "", 0, fmt.Errorf("%w: %v", errHashing, err)
+		}
+		header["Repr-Digest"] = reprDigest(sum)
+		end = c.size
+		if c.o.chunkBytes > 0 {
+			end = min(end, offset+c.o.chunkBytes)
+		}
+	}
+	n := end - offset
 	c.bar.set(offset)
 	var body io.Reader = http.NoBody
 	if n > 0 {
 		body = io.TeeReader(io.NewSectionReader(c.file, offset, n), c.bar.counter("uploading"))
 	}
-	res, err := c.request(ctx, http.MethodPatch, loc, sizedBody{body, n}, map[string]string{
-		"Content-Type": "application/offset+octet-stream", "Upload-Offset": strconv.FormatInt(offset, 10)})
+	res, err := c.request(ctx, http.MethodPatch, loc, sizedBody{body, n}, header)
 	if err != nil {
 		return "", 0, err
 	}
@@ -341,6 +416,12 @@ func answerError(res *http.Response) error {
 		return fmt.Errorf("%s: %s", res.Status, body.Error.Message)
 	}
 	return errors.New(res.Status)
+}
+
+// reprDigest writes a hex SHA-256 as an RFC 9530 Repr-Digest field.
+func reprDigest(sum string) string {
+	b, _ := hex.DecodeString(sum)
+	return "sha-256=:" + base64.StdEncoding.EncodeToString(b) + ":"
 }
 
 func b64(s string) string { return base64.StdEncoding.EncodeToString([]byte(s)) }

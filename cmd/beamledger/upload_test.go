@@ -5,15 +5,20 @@ import (
 	"context"
 	"crypto/ed25519"
 	"crypto/sha256"
+	"encoding/base64"
 	"encoding/hex"
 	"encoding/json"
+	"fmt"
 	"io"
 	"log/slog"
 	"net"
 	"net/http"
 	"net/http/httptest"
+	"net/http/httputil"
+	"net/url"
 	"os"
 	"path/filepath"
+	"slices"
 	"strings"
 	"sync"
 	"testing"
@@ -306,3 +311,93 @@ func (p *cutProxy) cutFromNow(n int64) {
 	defer p.mu.Unlock()
 	p.cutAt, p.once = p.sent+n, false
 }
+
+// TestUploadCommandDeclaresDigestLast watches the requests `beamledger upload`
+// makes for a 20 MiB file with no chunk limit: one PATCH for all but the last
+// 8 MiB without a digest, then one PATCH with the rest and the file's SHA-256 as
+// Repr-Digest, and nothing declared at creation. A file that changes while it is
+// sent is refused by the server and no record is left.
+func TestUploadCommandDeclaresDigestLast(t *testing.T) {
+	f := newUploadFacility(t)
+	target, _ := url.Parse(f.url)
+	var mu sync.Mutex
+	var seen []string
+	proxy := httptest.NewServer(&httputil.ReverseProxy{Rewrite: func(r *httputil.ProxyRequest) {
+		r.SetURL(target)
+		mu.Lock()
+		seen = append(seen, fmt.Sprintf("%s len=%d digest=%q meta-sha=%t", r.In.Method, r.In.ContentLength,
+			r.In.Header.Get("Repr-Digest"), strings.Contains(r.In.Header.Get("Upload-Metadata"), "sha256 ")))
+		mu.Unlock()
+	}})
+	t.Cleanup(proxy.Close)
+	data := testPattern(20 << 20)
+	path := filepath.Join(t.TempDir(), "scan.raw")
+	if err := os.WriteFile(path, data, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	o := f.options(t, proxy.URL)
+	o.chunkBytes = 0
+	var out strings.Builder
+	if err := runUploads(context.Background(), o, []string{path}, &out, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	sum := sha256.Sum256(data)
+	want := []string{
+		`POST len=0 digest="" meta-sha=false`,
+		fmt.Sprintf(`PATCH len=%d digest="" meta-sha=false`, 12<<20),
+		// [computed: crypto/sha256 of the file] as RFC 9530 writes it.
+		fmt.Sprintf(`PATCH len=%d digest="sha-256=:%s:" meta-sha=false`, 8<<20, base64.StdEncoding.EncodeToString(sum[:])),
+	}
+	if !slices.Equal(seen, want) {
+		t.Errorf("requests:\n%s\nwant:\n%s", strings.Join(seen, "\n"), strings.Join(want, "\n"))
+	}
+	if !strings.HasPrefix(out.String(), hex.EncodeToString(sum[:])+"  ") {
+		t.Errorf("printed %q", out.String())
+	}
+
+	// The file changes after it was hashed and before its end is sent: the digest
+	// the command declares and the bytes the server receives differ.
+	changed := filepath.Join(t.TempDir(), "changing.raw")
+	if err := os.WriteFile(changed, data, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	o = f.options(t, f.url)
+	o.chunkBytes = 4 << 20
+	edited := false
+	o.client = &http.Client{Transport: roundTripFunc(func(r *http.Request) (*http.Response, error) {
+		if r.Method == http.MethodPatch && r.Header.Get("Repr-Digest") != "" && !edited {
+			// The digest is known, so hashing is over; these bytes are not sent yet.
+			edited = true
+			fh, err := os.OpenFile(changed, os.O_WRONLY, 0)
+			if err != nil {
+				return nil, err
+			}
+			_, err = fh.WriteAt([]byte("edited"), 19<<20)
+			fh.Close()
+			if err != nil {
+				return nil, err
+			}
+		}
+		return http.DefaultTransport.RoundTrip(r)
+	})}
+	var errOut strings.Builder
+	err := runUploads(context.Background(), o, []string{changed}, io.Discard, &errOut)
+	if err == nil || !strings.Contains(errOut.String(), "do not match the declared digest") {
+		t.Fatalf("upload of a file changed while sent: %v\n%s", err, errOut.String())
+	}
+	var records []fileRecord
+	var list struct{ Items []fileRecord }
+	getJSON(t, f.url+"/api/v1/files?project_id="+f.projectID, f.token, &list)
+	for _, r := range list.Items {
+		if r.FileName == "changing.raw" {
+			records = append(records, r)
+		}
+	}
+	if len(records) != 0 {
+		t.Errorf("records of the changed file: %+v", records)
+	}
+}
+
+type roundTripFunc func(*http.Request) (*http.Response, error)
+
+func (f roundTripFunc) RoundTrip(r *http.Request) (*http.Response, error) { return f(r) }

@@ -124,6 +124,23 @@ WHERE id = $1 AND lease_token = $2`, id, token, lease.Milliseconds(), now)
 	return nil
 }
 
+// DeclareUploadDigest implements provenance.UploadStore. A digest declared before
+// is kept: the caller has compared the two already.
+func (db *DB) DeclareUploadDigest(ctx context.Context, id, token, sha256Hex string) error {
+	d, err := hex.DecodeString(sha256Hex)
+	if err != nil || len(d) != 32 {
+		return beamledger.InvalidField("Repr-Digest", "must be a sha-256 digest")
+	}
+	tag, err := db.pool.Exec(ctx, `UPDATE uploads SET declared_sha256 = coalesce(declared_sha256, $3) WHERE id = $1 AND lease_token = $2`, id, token, d)
+	if err != nil {
+		return mapError(err, "upload")
+	}
+	if tag.RowsAffected() == 0 {
+		return errLeaseHeld
+	}
+	return nil
+}
+
 // SaveUploadProgress implements provenance.UploadStore.
 func (db *DB) SaveUploadProgress(ctx context.Context, id, token string, p provenance.UploadProgress, lease time.Duration, now time.Time) error {
 	parts, segments := p.Parts, p.Segments

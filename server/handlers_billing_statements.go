@@ -1,0 +1,300 @@
+package server
+
+import (
+	"bytes"
+	"encoding/csv"
+	"fmt"
+	"html/template"
+	"net/http"
+	"strconv"
+	"time"
+
+	"github.com/labstack/echo/v4"
+
+	"beamledger"
+	"beamledger/scheduling"
+)
+
+// statementPeriod reads a month ("2026-03") as its bounds in the facility's zone.
+func (s *Server) statementPeriod(c echo.Context, month string) (from, to time.Time, err error) {
+	t, perr := time.Parse("2006-01", month)
+	if perr != nil {
+		return from, to, beamledger.InvalidField("month", "must be a calendar month as YYYY-MM")
+	}
+	loc, err := s.facilityLocation(c.Request().Context())
+	if err != nil {
+		return from, to, err
+	}
+	from, to = scheduling.PeriodBounds(scheduling.PeriodMonth, time.Date(t.Year(), t.Month(), 15, 12, 0, 0, 0, loc), loc)
+	return from, to, nil
+}
+
+func (s *Server) handleStatementList(c echo.Context) error {
+	ctx := c.Request().Context()
+	p, err := s.visibleProject(ctx, c.Param("project_id"))
+	if err != nil {
+		return err
+	}
+	out, err := s.store.Statements(ctx, p.ID)
+	if err != nil {
+		return err
+	}
+	return c.JSON(http.StatusOK, listOf(out))
+}
+
+// handleStatementCompute computes the draft of a project's month from its bookings,
+// usage and adjustments: 201 for a new draft, 200 for a recomputed one, 409 when the
+// month's statement was issued.
+func (s *Server) handleStatementCompute(c echo.Context) error {
+	var in struct {
+		Month string `json:"month"`
+	}
+	if err := bind(c, &in); err != nil {
+		return err
+	}
+	ctx := c.Request().Context()
+	p, err := s.visibleProject(ctx, c.Param("project_id"))
+	if err != nil {
+		return err
+	}
+	from, to, err := s.statementPeriod(c, in.Month)
+	if err != nil {
+		return err
+	}
+	st, created, err := s.store.ComputeStatement(ctx, p.ID, from, to, principal(ctx).UserID, s.now())
+	if err != nil {
+		return err
+	}
+	if created {
+		return c.JSON(http.StatusCreated, st)
+	}
+	return c.JSON(http.StatusOK, st)
+}
+
+// visibleStatement loads a statement of a project the caller may read.
+func (s *Server) visibleStatement(c echo.Context) (scheduling.Statement, error) {
+	ctx := c.Request().Context()
+	st, err := s.store.Statement(ctx, c.Param("statement_id"))
+	if err != nil {
+		return st, err
+	}
+	if _, err := s.visibleProject(ctx, st.Record().ProjectID); err != nil {
+		return scheduling.Statement{}, beamledger.NotFound("statement")
+	}
+	return st, nil
+}
+
+// handleStatementGet answers a statement as JSON, as CSV for finance systems
+// (format=csv, columns of scheduling.StatementCSVColumns) or as a printable page
+// (format=html).
+func (s *Server) handleStatementGet(c echo.Context) error {
+	st, err := s.visibleStatement(c)
+	if err != nil {
+		return err
+	}
+	switch c.QueryParam("format") {
+	case "", "json":
+		return c.JSON(http.StatusOK, st)
+	case "csv":
+		var buf bytes.Buffer
+		if err := scheduling.WriteStatementCSV(&buf, st); err != nil {
+			return err
+		}
+		rec := st.Record()
+		c.Response().Header().Set("Content-Disposition", fmt.Sprintf(`attachment; filename="statement-%s.csv"`, rec.ID))
+		return c.Blob(http.StatusOK, "text/csv; charset=utf-8", buf.Bytes())
+	case "html":
+		return s.renderStatementHTML(c, st)
+	}
+	return beamledger.InvalidField("format", "must be one of json, csv, html")
+}
+
+func (s *Server) handleStatementIssue(c echo.Context) error {
+	st, err := s.visibleStatement(c)
+	if err != nil {
+		return err
+	}
+	ctx := c.Request().Context()
+	out, err := s.store.IssueStatement(ctx, st.Record().ID, principal(ctx).UserID, s.now())
+	if err != nil {
+		return err
+	}
+	return c.JSON(http.StatusOK, out)
+}
+
+// adjustmentInput is a manager's credit or debit; the split defaults to the project's.
+type adjustmentInput struct {
+	AmountMinor         int64                     `json:"amount_minor"`
+	Reason              string                    `json:"reason"`
+	Funding             []scheduling.FundingShare `json:"funding"`
+	CorrectsStatementID string                    `json:"corrects_statement_id"`
+}
+
+// handleAdjustmentCreate records an adjustment now; it falls on the statement of the
+// current month.
+func (s *Server) handleAdjustmentCreate(c echo.Context) error {
+	var in adjustmentInput
+	if err := bind(c, &in); err != nil {
+		return err
+	}
+	ctx := c.Request().Context()
+	p, err := s.visibleProject(ctx, c.Param("project_id"))
+	if err != nil {
+		return err
+	}
+	if len(in.Funding) == 0 {
+		if in.Funding, err = s.store.ProjectFunding(ctx, p.ID); err != nil {
+			return err
+		}
+		if len(in.Funding) == 0 {
+			return beamledger.InvalidField("funding", "is required: the project has no default funding split")
+		}
+	}
+	now := s.now()
+	adj := scheduling.Adjustment{At: now, AmountMinor: in.AmountMinor, Reason: in.Reason, By: principal(ctx).UserID,
+		Funding: in.Funding, CorrectsStatementID: in.CorrectsStatementID}
+	if err := adj.Validate(); err != nil {
+		return err
+	}
+	loc, err := s.facilityLocation(ctx)
+	if err != nil {
+		return err
+	}
+	from, _ := scheduling.PeriodBounds(scheduling.PeriodMonth, now, loc)
+	out, err := s.store.AddAdjustment(ctx, p.ID, adj, from)
+	if err != nil {
+		return err
+	}
+	return c.JSON(http.StatusCreated, out)
+}
+
+// recoveryAnswer is a fiscal year's recovery report.
+type recoveryAnswer struct {
+	FiscalYear int                       `json:"fiscal_year"`
+	From       time.Time                 `json:"from"`
+	To         time.Time                 `json:"to"`
+	Lines      []scheduling.RecoveryLine `json:"lines"`
+	Entries    []scheduling.CostEntry    `json:"entries"`
+}
+
+// handleRecoveryReport compares a fiscal year's (a calendar year in the facility's
+// zone) cost entries with the charges of statements issued for its months.
+func (s *Server) handleRecoveryReport(c echo.Context) error {
+	ctx := c.Request().Context()
+	year, err := strconv.Atoi(c.QueryParam("fiscal_year"))
+	if err != nil || year < 2000 || year > 2200 {
+		return beamledger.InvalidField("fiscal_year", "must be a year between 2000 and 2200")
+	}
+	loc, err := s.facilityLocation(ctx)
+	if err != nil {
+		return err
+	}
+	from, to := time.Date(year, 1, 1, 0, 0, 0, 0, loc), time.Date(year+1, 1, 1, 0, 0, 0, 0, loc)
+	entries, err := s.store.CostEntries(ctx, year)
+	if err != nil {
+		return err
+	}
+	charged, err := s.store.IssuedChargesByInstrument(ctx, from, to)
+	if err != nil {
+		return err
+	}
+	costs := map[string]int64{}
+	for _, e := range entries {
+		costs[e.InstrumentID] += e.AmountMinor
+	}
+	return c.JSON(http.StatusOK, recoveryAnswer{FiscalYear: year, From: from.UTC(), To: to.UTC(), Lines: scheduling.Recovery(costs, charged), Entries: entries})
+}
+
+// handleUtilizationReport reports an instrument's use from one local date to another
+// (to exclusive), as JSON or, with format=csv, as scheduling.UtilizationCSVColumns.
+func (s *Server) handleUtilizationReport(c echo.Context) error {
+	ctx := c.Request().Context()
+	loc, err := s.facilityLocation(ctx)
+	if err != nil {
+		return err
+	}
+	fe := beamledger.FieldErrors{}
+	day := func(field string) time.Time {
+		t, err := time.ParseInLocation(time.DateOnly, c.QueryParam(field), loc)
+		if err != nil {
+			fe.Add(field, "must be a date as YYYY-MM-DD (local to the facility)")
+		}
+		return t
+	}
+	from, to := day("from"), day("to")
+	instrumentID := c.QueryParam("instrument_id")
+	if instrumentID == "" {
+		fe.Add("instrument_id", "is required")
+	}
+	if err := fe.Err(); err != nil {
+		return err
+	}
+	if !from.Before(to) || to.Sub(from) > 400*24*time.Hour {
+		return beamledger.InvalidField("to", "must be after from, at most 400 days later")
+	}
+	format := c.QueryParam("format")
+	if format != "" && format != "json" && format != "csv" {
+		return beamledger.InvalidField("format", "must be json or csv")
+	}
+	in, err := s.store.UtilizationInputs(ctx, instrumentID, from, to)
+	if err != nil {
+		return err
+	}
+	rep := scheduling.Utilization(instrumentID, from.UTC(), to.UTC(), loc, in.Rules.OpeningHours,
+		time.Duration(in.Policy.CancellationWindowMinutes)*time.Minute, in.Bookings, in.Quotas, s.now())
+	if format != "csv" {
+		return c.JSON(http.StatusOK, rep)
+	}
+	var buf bytes.Buffer
+	w := csv.NewWriter(&buf)
+	w.UseCRLF = true
+	_ = w.Write(scheduling.UtilizationCSVColumns())
+	_ = w.WriteAll(rep.UtilizationRows())
+	if err := w.Error(); err != nil {
+		return err
+	}
+	return c.Blob(http.StatusOK, "text/csv; charset=utf-8", buf.Bytes())
+}
+
+// statementPage is the printable statement: plain HTML with its own print styles, so a
+// browser's "print to PDF" gives the paper copy.
+var statementPage = template.Must(template.New("statement").Funcs(template.FuncMap{
+	"money": scheduling.FormatMinor,
+	"instant": func(t *time.Time) string {
+		if t == nil {
+			return ""
+		}
+		return t.UTC().Format("2006-01-02 15:04 UTC")
+	},
+	"date": func(t time.Time) string { return t.UTC().Format(time.DateOnly) },
+}).Parse(`<!doctype html>
+<html lang="en"><head><meta charset="utf-8"><title>Statement {{.ID}}</title>
+<style>
+body{font:11pt/1.4 system-ui,sans-serif;margin:2em}
+table{border-collapse:collapse;width:100%}
+th,td{border-bottom:1px solid #999;padding:.2em .4em;text-align:left;vertical-align:top}
+td.n,th.n{text-align:right;font-variant-numeric:tabular-nums}
+@media print{body{margin:0}}
+</style></head><body>
+<h1>Statement of charges</h1>
+<p>Project {{.ProjectID}} · period {{date .PeriodStart}} to {{date .PeriodEnd}} (end exclusive) · {{.Status}}{{if .IssuedAt}} on {{instant .IssuedAt}}{{end}} · amounts in {{.Currency}}</p>
+<table>
+<thead><tr><th>#</th><th>Booking</th><th>Component</th><th>Rule</th><th>From</th><th>To</th><th class="n">Minutes</th><th class="n">Rate/h</th><th class="n">Amount</th><th>Accounts</th></tr></thead>
+<tbody>
+{{- $cur := .Currency}}
+{{range .Lines}}<tr><td>{{.LineNo}}</td><td>{{.BookingID}}{{if .Reason}}{{.Reason}}{{end}}</td><td>{{.Component}}</td><td>{{.Rule}}</td><td>{{instant .From}}</td><td>{{instant .To}}</td>
+<td class="n">{{.Minutes}}</td><td class="n">{{money .HourlyRateMinor $cur}}</td><td class="n">{{money .AmountMinor $cur}}</td>
+<td>{{range .Allocations}}{{.AccountID}}: {{money .AmountMinor $cur}}<br>{{end}}</td></tr>
+{{end}}</tbody>
+<tfoot><tr><th colspan="8">Total</th><th class="n">{{money .TotalMinor .Currency}}</th><th>{{range .AccountTotals}}{{.AccountID}}: {{money .AmountMinor $cur}}<br>{{end}}</th></tr></tfoot>
+</table>
+</body></html>
+`))
+
+func (s *Server) renderStatementHTML(c echo.Context, st scheduling.Statement) error {
+	var buf bytes.Buffer
+	if err := statementPage.Execute(&buf, st.Record()); err != nil {
+		return err
+	}
+	return c.HTMLBlob(http.StatusOK, buf.Bytes())
+}
