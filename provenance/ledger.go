@@ -8,6 +8,7 @@ import (
 	"fmt"
 	"strconv"
 	"time"
+	"unicode/utf8"
 
 	"github.com/gowebpki/jcs"
 	"golang.org/x/mod/sumdb/tlog"
@@ -124,15 +125,24 @@ func NewLedgerEvent(actor, action, entityType, entityID string, at time.Time, st
 	if err := body.check(); err != nil {
 		return LedgerEvent{}, err
 	}
-	plain, err := json.Marshal(body)
-	if err != nil {
-		return LedgerEvent{}, fmt.Errorf("ledger event: %w", err)
+	for _, f := range []string{actor, action, entityType, entityID} {
+		if !utf8.ValidString(f) {
+			return LedgerEvent{}, errors.New("ledger event: a field is not UTF-8")
+		}
 	}
-	leaf, err := jcs.Transform(plain)
+	// Only the state needs the general canonicalization; the members around it are
+	// strings this package writes as RFC 8785 does, in RFC 8785's member order.
+	canon, err := jcs.Transform(raw)
 	if err != nil {
 		return LedgerEvent{}, fmt.Errorf("ledger event canonical form: %w", err)
 	}
-	return ParseLeaf(leaf)
+	e := LedgerEvent{Actor: actor, At: at, Action: action, EntityType: entityType, EntityID: entityID}
+	leaf := e.appendLeafPrefix(make([]byte, 0, 160+len(canon)))
+	leaf = append(leaf, canon...)
+	leaf = append(leaf, leafSuffix...)
+	e.Leaf = leaf
+	e.State = leaf[len(leaf)-len(leafSuffix)-len(canon) : len(leaf)-len(leafSuffix)]
+	return e, nil
 }
 
 func (b leafBody) check() error {
@@ -195,7 +205,22 @@ func (e LedgerEvent) SameFields(o LedgerEvent) bool {
 // (NewLedgerEvent) and its bytes are fixed by the leaf hash. scratch is reused
 // between calls; the returned one is for the next call.
 func (e LedgerEvent) MatchesLeaf(scratch []byte) (bool, []byte) {
-	b := append(scratch[:0], `{"action":`...)
+	b := e.appendLeafPrefix(scratch[:0])
+	leaf := e.Leaf
+	if len(leaf) < len(b)+len(leafSuffix) || !bytes.HasPrefix(leaf, b) || !bytes.HasSuffix(leaf, []byte(leafSuffix)) {
+		return false, b
+	}
+	state := leaf[len(b) : len(leaf)-len(leafSuffix)]
+	return len(state) > 0 && json.Valid(state), b
+}
+
+// leafSuffix ends every leaf: the format member, last in RFC 8785's order.
+var leafSuffix = `,"v":` + strconv.Itoa(LedgerFormat) + `}`
+
+// appendLeafPrefix appends the leaf's members before the state's value, as RFC
+// 8785 writes them: in order of name, strings escaped by appendJCSString.
+func (e LedgerEvent) appendLeafPrefix(b []byte) []byte {
+	b = append(b, `{"action":`...)
 	b = appendJCSString(b, e.Action)
 	b = append(b, `,"actor":`...)
 	b = appendJCSString(b, e.Actor)
@@ -205,14 +230,7 @@ func (e LedgerEvent) MatchesLeaf(scratch []byte) (bool, []byte) {
 	b = appendJCSString(b, e.EntityID)
 	b = append(b, `,"entity_type":`...)
 	b = appendJCSString(b, e.EntityType)
-	b = append(b, `,"state":`...)
-	suffix := `,"v":` + strconv.Itoa(LedgerFormat) + `}`
-	leaf := e.Leaf
-	if len(leaf) < len(b)+len(suffix) || !bytes.HasPrefix(leaf, b) || !bytes.HasSuffix(leaf, []byte(suffix)) {
-		return false, b
-	}
-	state := leaf[len(b) : len(leaf)-len(suffix)]
-	return len(state) > 0 && json.Valid(state), b
+	return append(b, `,"state":`...)
 }
 
 // appendJCSString appends s as RFC 8785 §3.2.2.2 writes a string (ECMAScript's

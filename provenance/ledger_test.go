@@ -10,6 +10,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/gowebpki/jcs"
 	"golang.org/x/mod/sumdb/tlog"
 
 	"beamledger/provenance"
@@ -219,6 +220,15 @@ func TestMatchesLeaf(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
+		// The leaf must be what the general RFC 8785 encoder makes of the whole event.
+		plain, _ := json.Marshal(map[string]any{"v": 1, "action": ev.Action, "actor": actor, "at": "2031-03-14T09:26:53.589793Z",
+			"entity_id": odd + "-id", "entity_type": "specimen", "state": map[string]any{"k": odd}})
+		if want, err := jcs.Transform(plain); err != nil || !bytes.Equal(ev.Leaf, want) {
+			t.Errorf("actor %q: leaf %s\nwant %s (%v)", actor, ev.Leaf, want, err)
+		}
+		if back, err := provenance.ParseLeaf(ev.Leaf); err != nil || !back.SameFields(ev) {
+			t.Errorf("actor %q: ParseLeaf = %+v, %v", actor, back, err)
+		}
 		if ok, _ := ev.MatchesLeaf(nil); !ok {
 			t.Errorf("actor %q: an event built by NewLedgerEvent does not match its own leaf %s", actor, ev.Leaf)
 		}
@@ -228,7 +238,9 @@ func TestMatchesLeaf(t *testing.T) {
 			"action":      func(e *provenance.LedgerEvent) { e.Action = provenance.ActionCreate },
 			"entity type": func(e *provenance.LedgerEvent) { e.EntityType = provenance.EntityTuning },
 			"entity id":   func(e *provenance.LedgerEvent) { e.EntityID = "other" },
-			"state":       func(e *provenance.LedgerEvent) { e.Leaf = []byte(strings.Replace(string(e.Leaf), `"state":{`, `"state":{{`, 1)) },
+			"state": func(e *provenance.LedgerEvent) {
+				e.Leaf = []byte(strings.Replace(string(e.Leaf), `"state":{`, `"state":{{`, 1))
+			},
 		} {
 			e := ev
 			edit(&e)
