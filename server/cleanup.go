@@ -49,7 +49,13 @@ func (s *Server) cleanupEvery(ctx context.Context) {
 // uploads idle longer than the expiry are discarded, then store multipart uploads
 // and temporary objects older than the expiry that no upload knows.
 func (s *Server) CleanupUploads(ctx context.Context) (rep CleanupReport, ran bool, err error) {
-	before := s.now().Add(-s.cfg.UploadExpiry)
+	start, before := time.Now(), s.now().Add(-s.cfg.UploadExpiry)
+	defer func() {
+		if ran || err != nil {
+			// A sweep another process is making is not a run here.
+			s.jobDone(ctx, jobUploadCleanup, start, err)
+		}
+	}()
 	ran, err = s.store.TryExclusive(ctx, uploadCleanupLock, func(ctx context.Context) error {
 		var err error
 		rep, err = s.sweepUploads(ctx, before)

@@ -82,6 +82,12 @@ type Config struct {
 	// which bounds how long an event stays unsealed.
 	LedgerSealInterval time.Duration
 
+	// MetricsListen, when set, is a separate host:port answering GET /metrics in the
+	// Prometheus text format; empty serves no metrics. MetricsToken, when set, is the
+	// bearer token a scrape must present there.
+	MetricsListen string
+	MetricsToken  string
+
 	// Demo marks the embedded demo: weaker password rule, demo accounts printed.
 	Demo     bool
 	LogLevel slog.Level
@@ -200,6 +206,16 @@ func (c Config) Validate() error {
 	}
 	if c.LedgerSealInterval < 10*time.Millisecond || c.LedgerSealInterval > time.Minute {
 		bad("ledger seal interval %s must be between 10ms and 1m", c.LedgerSealInterval)
+	}
+	if c.MetricsListen != "" {
+		if _, _, err := net.SplitHostPort(c.MetricsListen); err != nil {
+			bad("metrics listen address %q is not host:port", c.MetricsListen)
+		} else if c.MetricsListen == c.ListenAddr {
+			bad("metrics listen address must differ from the API's listen address")
+		}
+	}
+	if c.MetricsToken != "" && len(c.MetricsToken) < 16 {
+		bad("BEAMLEDGER_METRICS_TOKEN must be at least 16 characters")
 	}
 	if c.HashConcurrency < 1 {
 		bad("hash concurrency must be at least 1")
@@ -328,6 +344,8 @@ func (c Config) LogValue() slog.Value {
 		slog.String("ledger_origin", c.LedgerOrigin),
 		slog.String("ledger_key_id", signingKID(c.LedgerKey)),
 		slog.Duration("ledger_seal_interval", c.LedgerSealInterval),
+		slog.String("metrics_listen", c.MetricsListen),
+		slog.String("metrics_token", redactSecret(c.MetricsToken)),
 		slog.Bool("demo", c.Demo),
 	)
 }

@@ -51,7 +51,10 @@ func (s *Server) sealLedgerEvery(ctx context.Context) {
 
 // sealLedger seals what is committed now, signing a checkpoint if the tree grew.
 func (s *Server) sealLedger(ctx context.Context) (provenance.TreeHead, error) {
-	return s.store.SealLedger(ctx, s.ledger, s.now())
+	start := time.Now()
+	head, err := s.store.SealLedger(ctx, s.ledger, s.now())
+	s.jobDone(ctx, jobLedgerSeal, start, err)
+	return head, err
 }
 
 // signCheckpoint seals what is committed and returns the signed checkpoint of the

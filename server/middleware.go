@@ -1,6 +1,7 @@
 package server
 
 import (
+	"context"
 	"crypto/rand"
 	"encoding/hex"
 	"fmt"
@@ -32,8 +33,42 @@ func withRequestID(next echo.HandlerFunc) echo.HandlerFunc {
 		}
 		c.Set(requestIDHeader, id)
 		c.Response().Header().Set(requestIDHeader, id)
+		c.SetRequest(c.Request().WithContext(context.WithValue(c.Request().Context(), requestIDKey{}, id)))
 		return next(c)
 	}
+}
+
+// requestIDKey carries the request id in a request's context.Context, where code
+// below the handlers, which never sees echo.Context, still has it for its logs.
+type requestIDKey struct{}
+
+// requestIDLogHandler adds the request id to every record logged with a request's
+// context (the *Context logging calls) that does not already name one, so that an
+// error logged anywhere while answering a request can be found by the id its
+// client was given.
+type requestIDLogHandler struct{ slog.Handler }
+
+func (h requestIDLogHandler) Handle(ctx context.Context, r slog.Record) error {
+	if id, ok := ctx.Value(requestIDKey{}).(string); ok {
+		named := false
+		r.Attrs(func(a slog.Attr) bool {
+			named = a.Key == "request_id"
+			return !named
+		})
+		if !named {
+			r = r.Clone()
+			r.AddAttrs(slog.String("request_id", id))
+		}
+	}
+	return h.Handler.Handle(ctx, r)
+}
+
+func (h requestIDLogHandler) WithAttrs(as []slog.Attr) slog.Handler {
+	return requestIDLogHandler{h.Handler.WithAttrs(as)}
+}
+
+func (h requestIDLogHandler) WithGroup(name string) slog.Handler {
+	return requestIDLogHandler{h.Handler.WithGroup(name)}
 }
 
 func requestID(c echo.Context) string {
@@ -72,7 +107,7 @@ func (s *Server) recoverPanics(next echo.HandlerFunc) echo.HandlerFunc {
 			if r := recover(); r != nil {
 				buf := make([]byte, 8<<10)
 				buf = buf[:runtime.Stack(buf, false)]
-				s.log.Error("panic", slog.String("request_id", requestID(c)), slog.Any("panic", r), slog.String("stack", string(buf)))
+				s.log.ErrorContext(c.Request().Context(), "panic", slog.String("request_id", requestID(c)), slog.Any("panic", r), slog.String("stack", string(buf)))
 				err = fmt.Errorf("panic: %v", r)
 			}
 		}()

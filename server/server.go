@@ -12,6 +12,7 @@ import (
 	"github.com/labstack/echo/v4"
 
 	"beamledger/accounts"
+	"beamledger/metrics"
 	"beamledger/provenance"
 	"beamledger/storage/objects"
 	"beamledger/storage/postgres"
@@ -40,6 +41,9 @@ type Server struct {
 	uploads uploadGeometry
 	// ledger signs checkpoints; nil when the configuration has no ledger key.
 	ledger *provenance.CheckpointSigner
+	// metrics counts requests, uploads and background jobs, and reads the pool and
+	// the ledger when scraped.
+	metrics *metrics.Registry
 }
 
 // New builds a server. now is the clock (time.Now outside tests).
@@ -50,13 +54,14 @@ func New(cfg Config, store *postgres.DB, log *slog.Logger, now func() time.Time)
 	s := &Server{
 		cfg:    cfg,
 		store:  store,
-		log:    log,
+		log:    slog.New(requestIDLogHandler{log.Handler()}),
 		hasher: accounts.NewPasswordHasher(accounts.DefaultPasswordParams(), cfg.HashConcurrency),
 		tokens: newTokenSigner(cfg, now),
 		auth:   newAuthCache(cfg.AuthCacheTTL),
 		now:    now,
 		rules:  map[string]rule{},
 	}
+	s.metrics = s.newMetrics()
 	var err error
 	if s.ledger, err = newLedgerSigner(cfg); err != nil {
 		return nil, err
@@ -80,7 +85,7 @@ func New(cfg Config, store *postgres.DB, log *slog.Logger, now func() time.Time)
 	} else {
 		e.IPExtractor = echo.ExtractIPDirect()
 	}
-	e.Use(withRequestID, s.logRequests, s.recoverPanics, securityHeaders, limitBody(cfg.MaxBodyBytes, map[string]int64{
+	e.Use(withRequestID, s.countRequests, s.logRequests, s.recoverPanics, securityHeaders, limitBody(cfg.MaxBodyBytes, map[string]int64{
 		// Data files stream to the object store; JSON bodies stay small.
 		http.MethodPost + " /api/v1/files":               cfg.MaxFileBytes,
 		http.MethodPatch + " /api/v1/uploads/:upload_id": cfg.MaxFileBytes,
@@ -155,6 +160,10 @@ func Run(ctx context.Context, cfg Config, store *postgres.DB, log *slog.Logger, 
 	if err != nil {
 		return err
 	}
+	if err := s.listenMetrics(ctx); err != nil {
+		ln.Close()
+		return err
+	}
 	log.Info("listening", slog.String("addr", ln.Addr().String()))
 	if ready != nil {
 		ready(ln.Addr().String())
@@ -173,13 +182,17 @@ func (s *Server) markNoShows(ctx context.Context, every time.Duration) {
 		case <-ctx.Done():
 			return
 		case <-t.C:
+			start := time.Now()
 			ids, err := s.store.MarkNoShows(ctx, s.now())
+			s.jobDone(ctx, jobNoShows, start, err)
 			if err != nil && ctx.Err() == nil {
 				s.log.Warn("marking no-shows failed", slog.Any("error", err))
 			} else if len(ids) > 0 {
 				s.log.Info("no-shows marked", slog.Int("bookings", len(ids)))
 			}
+			start = time.Now()
 			lapsed, err := s.store.LapseOffers(ctx, s.now())
+			s.jobDone(ctx, jobWaitlistOffers, start, err)
 			if err != nil && ctx.Err() == nil {
 				s.log.Warn("lapsing waitlist offers failed", slog.Any("error", err))
 			} else if len(lapsed) > 0 {

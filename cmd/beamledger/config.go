@@ -101,6 +101,7 @@ func serverFlags(fs *flag.FlagSet, cfg *server.Config) func() error {
 	e.boolean(&cfg.TrustProxyHeaders, "trust-proxy-headers", "BEAMLEDGER_TRUST_PROXY_HEADERS", "take client addresses from X-Forwarded-For")
 	e.str(&cfg.LedgerOrigin, "ledger-origin", "BEAMLEDGER_LEDGER_ORIGIN", "the ledger's name in its checkpoints, e.g. ledger.facility.example.org")
 	e.duration(&cfg.LedgerSealInterval, "ledger-seal-interval", "BEAMLEDGER_LEDGER_SEAL_INTERVAL", "how often ledger events are sealed into the tree")
+	e.str(&cfg.MetricsListen, "metrics-listen", "BEAMLEDGER_METRICS_LISTEN", "separate host:port answering GET /metrics (empty: no metrics; a scrape token in $BEAMLEDGER_METRICS_TOKEN)")
 	hashN := int64(cfg.HashConcurrency)
 	e.integer(&hashN, "hash-concurrency", "BEAMLEDGER_HASH_CONCURRENCY", "password hashes computed at once")
 	level := "info"
@@ -166,6 +167,9 @@ func readSecrets(cfg *server.Config) error {
 			errs = append(errs, fmt.Errorf("BEAMLEDGER_LEDGER_KEY: %w", err))
 		}
 		cfg.LedgerKey = k
+	}
+	if v := get("BEAMLEDGER_METRICS_TOKEN"); v != "" {
+		cfg.MetricsToken = v
 	}
 	if v := get("BEAMLEDGER_S3_ACCESS_KEY"); v != "" {
 		cfg.S3.AccessKey = v
