@@ -4,7 +4,7 @@
 
 GO ?= go
 
-.PHONY: run test bench bench-files bench-ledger build fmt-check
+.PHONY: run test bench build fmt-check
 
 run:
 	$(GO) run ./cmd/beamledger demo
@@ -12,20 +12,13 @@ run:
 test: fmt-check
 	$(GO) run ./deploy/testenv -- sh -c '$(GO) vet ./... && $(GO) test -count=1 ./...'
 
-# The booking benchmark: raw inserts against bookings through the HTTP stack.
+# Every benchmark beside its anchor, in one run, written to BENCHMARKS.md with the
+# machine, versions, medians and ratios (deploy/benchreport). SUITES=booking,ledger
+# runs some; the suites are booking, files (about 12 GiB of disk), ledger and
+# ledger-append. The whole run takes about 25 minutes on 2 cores.
+SUITES ?=
 bench:
-	$(GO) run ./deploy/testenv -- $(GO) test -run '^$$' -bench BookingCreate -benchtime 3000x ./server/
-
-# The data-file benchmarks, in one harness against one S3 server: raw PutObject
-# against the upload endpoint, a plain SHA-256 pass against scrub, and the
-# server's peak memory while uploading 1 GiB and 4 GiB. Needs about 12 GiB of disk.
-bench-files:
-	$(GO) run ./deploy/testenv -- $(GO) test -run '^$$' -bench 'RawPutObject|FileUpload|UploadCommand|Scrub' -benchtime 1x -timeout 30m ./storage/objects/ ./server/ ./cmd/beamledger/
-
-# The ledger benchmark over a million events: verify against a plain SHA-256 pass
-# over the same bytes, and inclusion-proof latency. About five minutes.
-bench-ledger:
-	$(GO) run ./deploy/testenv -- $(GO) test -run '^$$' -bench Ledger -benchtime 3x -timeout 30m ./storage/postgres/
+	$(GO) run ./deploy/testenv -- $(GO) run ./deploy/benchreport -only '$(SUITES)'
 
 build:
 	$(GO) build -o bin/beamledger ./cmd/beamledger
