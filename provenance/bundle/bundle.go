@@ -78,7 +78,7 @@ type member struct {
 // store that returned other bytes is caught by the verifier.
 func Write(w io.Writer, c Contents) error {
 	t := c.Trace
-	if t.Ledger.Checkpoint == nil || !fileSealed(t) {
+	if !FileSealed(t) {
 		return ErrUnsealed
 	}
 	small, err := smallMembers(c)
@@ -134,8 +134,12 @@ func EventName(index int64) string { return EventDir + strconv.FormatInt(index, 
 // ProofName is the member holding the inclusion proof of the event at index.
 func ProofName(index int64) string { return ProofDir + strconv.FormatInt(index, 10) + ".json" }
 
-// fileSealed reports whether the checkpoint covers an event recording the file.
-func fileSealed(t provenance.Trace) bool {
+// FileSealed reports whether the trace's checkpoint covers an event recording the
+// file: what a bundle needs to prove the file's record.
+func FileSealed(t provenance.Trace) bool {
+	if t.Ledger.Checkpoint == nil {
+		return false
+	}
 	for _, r := range t.Ledger.Records {
 		if r.EntityType != provenance.EntityDataFile || r.EntityID != t.File.ID {
 			continue
