@@ -9,7 +9,9 @@
 // It starts a throwaway PostgreSQL cluster on a free 127.0.0.1 port (installing
 // the server with apt-get first when it is missing and testenv runs as root)
 // and a throwaway S3-compatible server (versitygw, built with `go install`
-// into .cache/bin on first use, which takes a few minutes), runs CMD with
+// into .cache/bin on first use, which takes a few minutes), finds the headless
+// Chromium the web tests drive (installing Debian's chromium package when it is
+// missing and testenv runs as root; BEAMLEDGER_TEST_CHROMIUM names it), runs CMD with
 // BEAMLEDGER_TEST_DATABASE_URL and BEAMLEDGER_TEST_S3_ENDPOINT,
 // BEAMLEDGER_TEST_S3_ACCESS_KEY, BEAMLEDGER_TEST_S3_SECRET_KEY and
 // BEAMLEDGER_TEST_S3_REGION pointing at them, stops both whatever happens,
@@ -28,9 +30,11 @@ import (
 	"os"
 	"os/exec"
 	"os/signal"
+	"strings"
 	"sync"
 	"syscall"
 
+	"beamledger/deploy/chromium"
 	"beamledger/deploy/pgcluster"
 	"beamledger/deploy/s3server"
 )
@@ -113,6 +117,11 @@ func plannedServices(logs io.Writer) []service {
 		fmt.Fprintf(os.Stderr, "testenv: using the S3 server in %s from the environment\n", envS3Endpoint)
 	} else {
 		services = append(services, &s3Service{log: logs})
+	}
+	if path := os.Getenv(envChromium); path != "" {
+		fmt.Fprintf(os.Stderr, "testenv: using the browser in %s from the environment\n", envChromium)
+	} else {
+		services = append(services, &chromiumService{})
 	}
 	return services
 }
@@ -283,3 +292,30 @@ func (s *s3Service) Stop() error {
 	}
 	return s.server.Stop()
 }
+
+// envChromium names the headless browser the web tests drive; envChromiumMissing
+// says why there is none, so that those tests fail with the reason instead of
+// skipping.
+const (
+	envChromium        = "BEAMLEDGER_TEST_CHROMIUM"
+	envChromiumMissing = "BEAMLEDGER_TEST_CHROMIUM_MISSING"
+)
+
+// chromiumService finds Debian's chromium, installing it with apt-get when root and
+// missing. A browser that cannot be had does not stop the other suites: its reason
+// is passed on, and only the browser tests fail.
+type chromiumService struct{}
+
+func (chromiumService) Name() string { return "Chromium" }
+
+func (chromiumService) Start(ctx context.Context) ([]string, error) {
+	path, err := chromium.Ensure(ctx, os.Stderr)
+	if err != nil {
+		fmt.Fprintf(os.Stderr, "testenv: no browser for the web tests: %v\n", err)
+		return []string{envChromiumMissing + "=" + strings.ReplaceAll(err.Error(), "\n", " ")}, nil
+	}
+	fmt.Fprintf(os.Stderr, "testenv: browser %s\n", path)
+	return []string{envChromium + "=" + path}, nil
+}
+
+func (chromiumService) Stop() error { return nil }
