@@ -5,10 +5,12 @@ import (
 	"log/slog"
 	"net/http"
 	"strconv"
+	"time"
 
 	"github.com/labstack/echo/v4"
 
 	"beamledger"
+	"beamledger/storage/postgres"
 )
 
 // errorBody is the one JSON shape of every error answer.
@@ -57,10 +59,19 @@ var echoStatusCodes = map[int]string{
 	http.StatusServiceUnavailable:    "unavailable",
 }
 
+// errDatabaseUnreachable answers a request that failed because the database could
+// not be reached: 503, for a client to try again once it is back.
+var errDatabaseUnreachable = &beamledger.Error{Kind: beamledger.ErrUnavailable,
+	Message: "the database cannot be reached just now; try again in a few seconds", RetryAfter: 2 * time.Second}
+
 // handleError is echo's HTTPErrorHandler: every error answer goes through here.
 func (s *Server) handleError(err error, c echo.Context) {
 	if c.Response().Committed {
 		return
+	}
+	if postgres.Unreachable(err) {
+		s.log.WarnContext(c.Request().Context(), "database unreachable", slog.String("request_id", requestID(c)), slog.Any("error", err))
+		err = errDatabaseUnreachable
 	}
 	status, body := s.describeError(err, c)
 	if d, ok := retryAfter(err); ok {

@@ -81,7 +81,12 @@ func newWorld(t testing.TB) *world {
 // newWorldPool is newWorld over a pool of maxConns database connections.
 func newWorldPool(t testing.TB, maxConns int32) *world {
 	t.Helper()
-	db := pgtest.OpenPool(t, maxConns)
+	return newWorldOn(t, pgtest.OpenPool(t, maxConns))
+}
+
+// newWorldOn is newWorld over a migrated database the caller provides.
+func newWorldOn(t testing.TB, db *postgres.DB) *world {
+	t.Helper()
 	cfg, key := testConfig("postgres://unused")
 	cfg.ObjectDir = t.TempDir()
 	// A low-cost hash keeps the suite fast; the production parameters are tested in accounts.

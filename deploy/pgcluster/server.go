@@ -323,3 +323,32 @@ func processAlive(pid int) bool {
 	}
 	return true
 }
+
+// Crash stops the server with an immediate shutdown, as a crash of the database
+// host would: sessions are cut without a goodbye and the next start replays the
+// WAL. For fault tests; Restart brings the server back on the same port.
+func (c *Cluster) Crash(ctx context.Context) error {
+	if c.pid == 0 || !processAlive(c.pid) {
+		return errors.New("pgcluster: the server is not running")
+	}
+	out := newTailBuffer(8 << 10)
+	cmd := c.acct.command(ctx, c.RealDir, c.Binaries.Path("pg_ctl"), "stop", "-D", c.RealDir, "-m", "immediate", "-w", "-s")
+	cmd.Stdout = io.MultiWriter(c.log, out)
+	cmd.Stderr = cmd.Stdout
+	if err := cmd.Run(); err != nil {
+		return fmt.Errorf("pgcluster: pg_ctl stop -m immediate: %w\n%s", err, out.lastLines(5))
+	}
+	for range 200 {
+		if !processAlive(c.pid) {
+			return nil
+		}
+		time.Sleep(25 * time.Millisecond)
+	}
+	return errors.New("pgcluster: the server outlived an immediate shutdown")
+}
+
+// Restart starts a stopped server again on its port and waits until it accepts
+// connections (after recovery, when it crashed).
+func (c *Cluster) Restart(ctx context.Context) error {
+	return c.start(ctx, c.Port)
+}

@@ -1,10 +1,13 @@
 package postgres
 
 import (
+	"context"
 	"errors"
 	"fmt"
+	"io"
 	"strings"
 	"testing"
+	"time"
 
 	"github.com/jackc/pgx/v5"
 	"github.com/jackc/pgx/v5/pgconn"
@@ -83,6 +86,40 @@ func TestMapErrorPassesUnknownErrorsThrough(t *testing.T) {
 		var e *beamledger.Error
 		if errors.As(got, &e) {
 			t.Errorf("mapError(%v) became a domain error %v", err, e)
+		}
+	}
+}
+
+// TestUnreachable separates a database that is gone from faults of a request.
+// SQLSTATE codes: [published: PostgreSQL 15 documentation, Appendix A].
+func TestUnreachable(t *testing.T) {
+	t.Parallel()
+	ctx, cancel := context.WithTimeout(context.Background(), 5*time.Second)
+	defer cancel()
+	// Nothing listens on port 1 of the loopback address.
+	_, dialErr := pgx.Connect(ctx, "postgres://nobody@127.0.0.1:1/none?connect_timeout=2")
+	for _, c := range []struct {
+		name string
+		err  error
+		want bool
+	}{
+		{"connection refused", dialErr, true},
+		{"admin shutdown 57P01", &pgconn.PgError{Code: "57P01"}, true},
+		{"crash shutdown 57P02", &pgconn.PgError{Code: "57P02"}, true},
+		{"starting up 57P03", &pgconn.PgError{Code: "57P03"}, true},
+		{"connection failure 08006", fmt.Errorf("query: %w", &pgconn.PgError{Code: "08006"}), true},
+		{"unexpected EOF", fmt.Errorf("read: %w", io.ErrUnexpectedEOF), true},
+		{"unique violation 23505", &pgconn.PgError{Code: "23505"}, false},
+		{"syntax error 42601", &pgconn.PgError{Code: "42601"}, false},
+		{"no rows", pgx.ErrNoRows, false},
+		{"a domain error", beamledger.Conflict("taken"), false},
+		{"nil", nil, false},
+	} {
+		if c.name == "connection refused" && c.err == nil {
+			t.Fatal("connecting to a closed port worked")
+		}
+		if got := Unreachable(c.err); got != c.want {
+			t.Errorf("%s: Unreachable(%v) = %v", c.name, c.err, got)
 		}
 	}
 }
