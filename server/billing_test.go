@@ -180,6 +180,69 @@ func TestStatementReferenceMonthThroughAPI(t *testing.T) {
 		t.Errorf("statement page shows no total of 1550.00: %.300s", r.Body)
 	}
 	w.expect(http.StatusNotFound, http.MethodGet, "/api/v1/statements/"+rec.ID, w.login(w.other.Email, testPassword).AccessToken, nil, nil)
+
+	checkReferenceUtilization(t, w)
+	checkReferenceRatesAndRecovery(t, w)
+}
+
+// checkReferenceUtilization reports March 2026 on the instrument that held REFERENCE
+// §3's month, plus the 1.5 h another project rebooked.
+func checkReferenceUtilization(t *testing.T, w *world) {
+	t.Helper()
+	path := "/api/v1/reports/utilization?instrument_id=" + w.instr.ID + "&from=2026-03-01&to=2026-04-01"
+	var rep scheduling.UtilizationReport
+	w.expect(http.StatusOK, http.MethodGet, path, w.tokens[accounts.RoleStaff], nil, &rep)
+	// [computed] 22 weekdays in March 2026 × 10 h of default opening hours = 13 200 min.
+	// [constructed] REFERENCE §3 month: booked 180 + 30 + 840 + 120 (and 90 rebooked by
+	// another project) = 1 260 min; used 165 + 40 + 840 + 120 = 1 165 min; the 4 h
+	// booking cancelled 10 h ahead is 240 min cancelled late.
+	want := scheduling.UtilizationFigures{BookedMinutes: 1260, UsedMinutes: 1165, CancelledLateMinutes: 240}
+	if rep.OpeningMinutes != 13200 || rep.AvailableMinutes != 13200 || rep.UptimePermille != 1000 || rep.UtilizationFigures != want {
+		t.Errorf("utilization %+v", rep)
+	}
+	for _, p := range rep.ByProject {
+		if p.ProjectID == w.own.ID && (p.BookedMinutes != 1170 || p.CancelledLateMinutes != 240) {
+			t.Errorf("own project's utilization %+v", p)
+		}
+	}
+	r := w.expect(http.StatusOK, http.MethodGet, path+"&format=csv", w.tokens[accounts.RoleAuditor], nil, nil)
+	recs, err := csv.NewReader(bytes.NewReader(r.Body)).ReadAll()
+	// One row for the instrument, three kinds (independent, assisted, unattended), two projects.
+	if err != nil || len(recs) != 7 || !slices.Equal(recs[0], scheduling.UtilizationCSVColumns()) {
+		t.Errorf("utilization CSV: %v %q", err, recs)
+	}
+}
+
+// checkReferenceRatesAndRecovery runs REFERENCE §3's rate-setting example through the
+// calculator, saves it as a schedule, and sets the year's cost pool against the
+// issued March statement.
+func checkReferenceRatesAndRecovery(t *testing.T, w *world) {
+	t.Helper()
+	manager := w.tokens[accounts.RoleManager]
+	body := refRateInputs()
+	body["save"] = map[string]any{"instrument_id": w.instr.ID, "effective_from": w.clock.Now().Add(time.Hour), "staff_hourly_minor": 6500}
+	var out rateCalculationAnswer
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/rate-calculations", manager, body, &out)
+	c := out.Calculation
+	// [constructed] REFERENCE §3: pool 224 000 over 1 600 h → 140.00; with the subsidy
+	// 120.00; external academic at 55 % F&A 217.00; commercial 1.5 × that 325.50.
+	if c.CostPoolMinor != 22400000 || c.FullCostHourlyMinor != 14000 || c.InternalHourlyMinor != 12000 ||
+		c.ExternalAcademicHourlyMinor != 21700 || c.CommercialHourlyMinor != 32550 {
+		t.Errorf("calculation %+v", c)
+	}
+	// [computed] staff 65.00 marked up as the instrument rate: × 1.55 = 100.75, × 1.5 = 151.125 → 151.13.
+	if s := out.Schedule; s == nil || len(s.Classes) != 3 || s.Classes[0].IndependentHourlyMinor != 12000 ||
+		s.Classes[1].StaffHourlyMinor != 10075 || s.Classes[2].IndependentHourlyMinor != 32550 || s.Classes[2].StaffHourlyMinor != 15113 {
+		t.Errorf("saved schedule %+v", out.Schedule)
+	}
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/cost-entries", manager,
+		map[string]any{"instrument_id": w.instr.ID, "fiscal_year": 2026, "category": "cost_pool", "amount_minor": 22400000}, nil)
+	var rep recoveryAnswer
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/reports/recovery?fiscal_year=2026", w.tokens[accounts.RoleAuditor], nil, &rep)
+	// [constructed] 224 000.00 of costs against the 1 550.00 issued for March.
+	if len(rep.Lines) != 1 || rep.Lines[0].CostsMinor != 22400000 || rep.Lines[0].ChargedMinor != 155000 || rep.Lines[0].BalanceMinor != 22245000 {
+		t.Errorf("recovery %+v", rep.Lines)
+	}
 }
 
 // checkIssuedIsFinal: an issued statement is not recomputed or issued again (the

@@ -75,6 +75,9 @@ func cmdDemo(ctx context.Context, args []string, stdout, stderr io.Writer) (err 
 	if err := demo.LoadAcquisitions(ctx, db, db, db, time.Now()); err != nil {
 		return fmt.Errorf("load demo acquisitions: %w", err)
 	}
+	if err := demo.LoadBilling(ctx, db, db, db, time.Now()); err != nil {
+		return fmt.Errorf("load demo billing: %w", err)
+	}
 	objs, err := server.OpenObjects(cfg)
 	if err != nil {
 		return err
