@@ -2,6 +2,7 @@ package server
 
 import (
 	"context"
+	"encoding/json"
 	"maps"
 	"net/http"
 	"net/url"
@@ -351,6 +352,14 @@ var routeMatrix = map[string]routeExpectation{
 		return map[string]string{":entity_type": "specimen", ":entity_id": extra[":specimen_id"]}
 	}},
 
+	// Traces of the matrix's file (on the foreign project's acquisition): hidden from
+	// the researcher, read by those who read everything, not by the agent. The POST
+	// sends the file's own bytes (the JSON of the body).
+	"GET /api/v1/trace/:sha256":        {who: bookingReaders, setup: matrixTrace},
+	"POST /api/v1/trace":               {who: bookingReaders, setup: matrixTrace, body: func(*world) any { return matrixTraceBody }},
+	"GET /api/v1/trace/:sha256/prov":   {who: bookingReaders, setup: matrixTrace},
+	"GET /api/v1/trace/:sha256/bundle": {who: bookingReaders, setup: matrixTrace},
+
 	// Feed tokens are each person's own: a manager neither sees nor revokes anyone
 	// else's, and the token named here is the researcher's.
 	"GET /api/v1/me/feed-tokens":                   {who: usersOnly},
@@ -644,6 +653,25 @@ func matrixSealed(w *world) map[string]string {
 	if _, err := w.srv.signCheckpoint(context.Background()); err != nil {
 		w.t.Fatal(err)
 	}
+	return extra
+}
+
+// matrixTraceBody is the matrix trace file's content, sent as JSON.
+var matrixTraceBody = map[string]int{"traced": 1}
+
+// matrixTrace is a file on the matrix's acquisition whose bytes are the JSON of
+// matrixTraceBody, uploaded by staff, with its ledger event under a signed checkpoint.
+func matrixTrace(w *world) map[string]string {
+	extra := matrixAcquisition(w)
+	body, _ := json.Marshal(matrixTraceBody)
+	var f provenance.DataFile
+	if r := w.upload("/api/v1/files?acquisition_id="+extra[":acquisition_id"]+"&name=traced.json", w.tokens[accounts.RoleStaff], body, nil, &f); r.StatusCode != http.StatusCreated {
+		w.t.Fatalf("matrix trace file: %d %s", r.StatusCode, r.Body)
+	}
+	if _, err := w.srv.signCheckpoint(context.Background()); err != nil {
+		w.t.Fatal(err)
+	}
+	extra[":sha256"] = f.SHA256
 	return extra
 }
 

@@ -290,6 +290,7 @@ func TestOpenAPIExamplesExercise(t *testing.T) {
 	exerciseAcquisitions(t, w)
 	exerciseFiles(t, w)
 	exerciseLedger(t, w)
+	exerciseTrace(t, w)
 	exerciseUploads(t, w)
 	exerciseBilling(t, w)
 

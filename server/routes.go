@@ -164,6 +164,14 @@ func (s *Server) routes() error {
 	add(http.MethodGet, v1+"/ledger/events/:index", users(readersAll...), s.handleLedgerEvent)
 	add(http.MethodGet, v1+"/ledger/entities/:entity_type/:entity_id/events", users(readersAll...), s.handleLedgerEntityEvents)
 
+	// Traces: everything behind a data file, found by its SHA-256 (or its bytes), as
+	// JSON, as W3C PROV-JSON and as a provenance bundle. Those who read everything
+	// and the members of the file's project; to anyone else the file does not exist.
+	add(http.MethodGet, v1+"/trace/:sha256", users(everyone...), s.handleTrace)
+	add(http.MethodPost, v1+"/trace", users(everyone...), s.handleTraceBytes)
+	add(http.MethodGet, v1+"/trace/:sha256/prov", users(everyone...), s.handleTraceProv)
+	add(http.MethodGet, v1+"/trace/:sha256/bundle", users(everyone...), s.handleTraceBundle)
+
 	add(http.MethodGet, v1+"/me/feed-tokens", users(everyone...), s.handleFeedTokenList)
 	add(http.MethodPost, v1+"/me/feed-tokens", users(everyone...), s.handleFeedTokenCreate)
 	add(http.MethodDelete, v1+"/me/feed-tokens/:feed_token_id", users(everyone...), s.handleFeedTokenRevoke)

@@ -1,52 +1,35 @@
-// Start page: sign in through the API, keep the tokens for this tab only, and show the
-// signed-in user's projects and instruments.
+// Overview: the fair-share report of the month as a bar chart (Chart.js), with the
+// same figures in a table for those who do not read charts.
 "use strict";
-const store = window.sessionStorage;
-
-async function api(path, opts = {}) {
-  const headers = { "Content-Type": "application/json" };
-  const token = store.getItem("access_token");
-  if (token) headers["Authorization"] = "Bearer " + token;
-  const res = await fetch(path, { ...opts, headers });
-  const body = res.status === 204 ? null : await res.json();
-  if (!res.ok) throw new Error(body && body.error ? body.error.message : res.statusText);
-  return body;
-}
-
-function text(tag, s) { const e = document.createElement(tag); e.textContent = s; return e; }
-
-async function showOverview() {
-  const me = await api("/api/v1/me");
-  document.getElementById("greeting").textContent = me.display_name + " · " + me.role;
-  const projects = await api("/api/v1/projects");
-  const pl = document.getElementById("projects"); pl.replaceChildren();
-  for (const p of projects.items) pl.append(text("li", p.code + " — " + p.title + " (" + p.rate_class + ")"));
-  const instruments = await api("/api/v1/instruments");
-  const il = document.getElementById("instruments"); il.replaceChildren();
-  for (const i of instruments.items) il.append(text("li", i.code + " — " + i.name));
-  document.getElementById("sign-in").hidden = true;
-  document.getElementById("overview").hidden = false;
-  document.getElementById("sign-out").hidden = false;
-}
-
-document.addEventListener("DOMContentLoaded", () => {
-  document.getElementById("sign-in-form").addEventListener("submit", async (ev) => {
-    ev.preventDefault();
-    const f = new FormData(ev.target);
-    try {
-      const t = await api("/api/v1/auth/login", { method: "POST", body: JSON.stringify({ email: f.get("email"), password: f.get("password") }) });
-      store.setItem("access_token", t.access_token);
-      store.setItem("refresh_token", t.refresh_token);
-      await showOverview();
-    } catch (e) {
-      document.getElementById("sign-in-error").textContent = e.message;
-    }
+(function () {
+  document.addEventListener("DOMContentLoaded", async () => {
+    const [share, projects, instruments] = await Promise.all([BL.api("/api/v1/reports/fair-share?period=month"),
+      BL.api("/api/v1/projects"), BL.api("/api/v1/instruments")]);
+    if (!share.ok || !projects.ok || !instruments.ok) return;
+    const pc = new Map(projects.body.items.map((p) => [p.id, p.code]));
+    const ic = new Map(instruments.body.items.map((i) => [i.id, i.code]));
+    const lines = share.body.items;
+    if (!lines.length) return;
+    const labels = lines.map((l) => (pc.get(l.project_id) || "project") + " · " + (ic.get(l.instrument_id) || "instrument"));
+    const h = (m) => Math.round((m / 60) * 10) / 10;
+    const tb = document.querySelector("#share-table tbody");
+    tb.replaceChildren(...lines.map((l, i) => BL.el("tr", {}, BL.el("th", { scope: "row", text: labels[i] }),
+      BL.el("td", { text: String(h(l.allocated_minutes)) }), BL.el("td", { text: String(h(l.booked_minutes)) }), BL.el("td", { text: String(h(l.used_minutes)) }))));
+    document.querySelector("#share-table").hidden = false;
+    if (!window.Chart) return;
+    // Colours differ in lightness as well as hue, and the bars carry a pattern-free
+    // legend plus the table above, so colour is never the only cue.
+    new Chart(document.getElementById("share-chart"), {
+      type: "bar",
+      data: {
+        labels,
+        datasets: [
+          { label: "allocated h", data: lines.map((l) => h(l.allocated_minutes)), backgroundColor: "#c9c2b0" },
+          { label: "booked h", data: lines.map((l) => h(l.booked_minutes)), backgroundColor: "#2f7d8c" },
+          { label: "used h", data: lines.map((l) => h(l.used_minutes)), backgroundColor: "#17344a" },
+        ],
+      },
+      options: { responsive: true, maintainAspectRatio: false, animation: false, scales: { y: { beginAtZero: true, title: { display: true, text: "hours" } } } },
+    });
   });
-  document.getElementById("sign-out").addEventListener("click", async () => {
-    const r = store.getItem("refresh_token");
-    store.clear();
-    if (r) { try { await api("/api/v1/auth/logout", { method: "POST", body: JSON.stringify({ refresh_token: r }) }); } catch (e) {} }
-    location.reload();
-  });
-  if (store.getItem("access_token")) showOverview().catch(() => store.clear());
-});
+})();

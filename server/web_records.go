@@ -1,0 +1,94 @@
+package server
+
+import (
+	"net/http"
+	"time"
+
+	"github.com/labstack/echo/v4"
+
+	"beamledger/accounts"
+	"beamledger/provenance"
+	"beamledger/scheduling"
+	"beamledger/web"
+)
+
+// handleAcquirePage is the acquisition form: the bookings the viewer may record on
+// (the last fortnight and the coming week) and the specimens of their projects. The
+// form's script fills the conditions from the chosen booking's instrument.
+func (s *Server) handleAcquirePage(c echo.Context, me accounts.Principal, pg web.Page) error {
+	ctx := c.Request().Context()
+	pg.Title, pg.Nav, pg.Script = "Record acquisition", "acquire", "acquire.js"
+	d := web.AcquireData{Page: pg}
+	loc, err := s.facilityLocation(ctx)
+	if err != nil {
+		return err
+	}
+	names, err := s.instrumentCodes(ctx)
+	if err != nil {
+		return err
+	}
+	now := s.now()
+	f := scheduling.BookingFilter{From: now.AddDate(0, 0, -14), To: now.AddDate(0, 0, 7)}
+	if !me.FacilityWide() {
+		f.UserID = me.UserID
+	}
+	bs, err := s.store.Bookings(ctx, f)
+	if err != nil {
+		return err
+	}
+	codes := map[string]string{}
+	for i := len(bs) - 1; i >= 0; i-- { // latest first
+		b := bs[i]
+		if b.Kind == scheduling.KindService {
+			continue
+		}
+		if _, ok := codes[b.ProjectID]; !ok {
+			codes[b.ProjectID] = s.projectCode(ctx, b.ProjectID)
+		}
+		st := b.Start.In(loc)
+		d.Bookings = append(d.Bookings, web.AcquireBooking{ID: b.ID, InstrumentID: b.InstrumentID, ProjectID: b.ProjectID,
+			Start: st.Format(time.RFC3339), End: b.End.In(loc).Format(time.RFC3339),
+			Label: names[b.InstrumentID] + " · " + st.Format("Mon 2 Jan 15:04") + "–" + b.End.In(loc).Format("15:04") + " · " + codes[b.ProjectID]})
+	}
+	sf := provenance.SpecimenFilter{}
+	if sf.ProjectIDs, err = s.readableProjectIDs(ctx); err != nil {
+		return err
+	}
+	sps, err := s.store.Specimens(ctx, sf)
+	if err != nil {
+		return err
+	}
+	for _, sp := range sps {
+		d.Specimens = append(d.Specimens, web.Option{Value: sp.ID, Label: sp.Code + " — " + sp.Description})
+	}
+	return s.render(c, http.StatusOK, "acquire", "layout", d)
+}
+
+// handleFilesPage is the data-file page: resumable upload into an acquisition, the
+// files the viewer may read, and a file's lineage.
+func (s *Server) handleFilesPage(c echo.Context, me accounts.Principal, pg web.Page) error {
+	ctx := c.Request().Context()
+	pg.Title, pg.Nav, pg.Script = "Data files", "files", "files.js"
+	d := web.FilesData{Page: pg, Selected: c.QueryParam("file")}
+	loc, err := s.facilityLocation(ctx)
+	if err != nil {
+		return err
+	}
+	names, err := s.instrumentCodes(ctx)
+	if err != nil {
+		return err
+	}
+	f := provenance.AcquisitionFilter{Limit: 50}
+	if f.ProjectIDs, err = s.readableProjectIDs(ctx); err != nil {
+		return err
+	}
+	as, err := s.store.Acquisitions(ctx, f)
+	if err != nil {
+		return err
+	}
+	for _, a := range as {
+		d.Acquisitions = append(d.Acquisitions, web.Option{Value: a.ID, Selected: a.ID == c.QueryParam("acquisition"),
+			Label: names[a.InstrumentID] + " · " + a.StartedAt.In(loc).Format("Mon 2 Jan 15:04") + " · " + s.projectCode(ctx, a.ProjectID)})
+	}
+	return s.render(c, http.StatusOK, "files", "layout", d)
+}

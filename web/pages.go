@@ -1,0 +1,73 @@
+package web
+
+// Option is one choice of a select.
+type Option struct {
+	Value, Label string
+	Selected     bool
+}
+
+// StartData is the signed-in user's overview.
+type StartData struct {
+	Page
+	Bookings       []StartBooking
+	Qualifications []StartQualification
+	Projects       []StartProject
+	Acquisitions   []StartAcquisition
+}
+
+// StartBooking is one of the user's coming bookings.
+type StartBooking struct {
+	When, Instrument, Kind, Project, Status, CalendarLink string
+}
+
+// StartQualification is the user's standing on one instrument.
+type StartQualification struct {
+	Instrument, Level, Granted, Expiry string
+}
+
+// StartProject is a project the user belongs to.
+type StartProject struct {
+	Code, Title, RateClass, Part string
+}
+
+// StartAcquisition is one recent acquisition in the user's projects.
+type StartAcquisition struct {
+	ID, When, Instrument, Project, Voltage string
+}
+
+// CalendarData is an instrument's day or week, or the facility's day.
+type CalendarData struct {
+	Page
+	// View is "day", "week" or "facility".
+	View         string
+	Date         string // YYYY-MM-DD, local
+	RangeLabel   string
+	InstrumentID string
+	Instruments  []Option
+	Projects     []Option
+	Kinds        []string
+	Columns      []Column
+	// GridURL reloads the grid as it stands; Prev, Next and Today move it.
+	GridURL, PrevURL, NextURL, TodayURL string
+	DayURL, WeekURL, FacilityURL        string
+}
+
+// AcquireData is the acquisition form.
+type AcquireData struct {
+	Page
+	Bookings  []AcquireBooking
+	Specimens []Option
+}
+
+// AcquireBooking is a booking an acquisition may be recorded on.
+type AcquireBooking struct {
+	ID, Label, InstrumentID, ProjectID, Start, End string
+}
+
+// FilesData is the files page.
+type FilesData struct {
+	Page
+	Acquisitions []Option
+	// Selected is a file whose lineage to draw on arrival.
+	Selected string
+}
