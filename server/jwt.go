@@ -40,8 +40,13 @@ type tokenSigner struct {
 	verified *verifiedTokens
 }
 
-// tokenLeeway is the clock skew allowed between servers when checking exp, nbf and iat.
-const tokenLeeway = 30 * time.Second
+// tokenLeeway is the clock skew allowed between servers when checking exp, nbf and
+// iat. Processes behind one load balancer must take each other's tokens while
+// their clocks disagree by a few minutes (a host whose time service failed): three
+// minutes, under the five that Kerberos allows by default [practice]. It lengthens
+// a token's life by as much; sign-out and password changes end tokens through the
+// token version, not through exp.
+const tokenLeeway = 3 * time.Minute
 
 func newTokenSigner(c Config, now func() time.Time) *tokenSigner {
 	s := &tokenSigner{
