@@ -208,9 +208,9 @@ func (c Config) Validate() error {
 		bad("ledger seal interval %s must be between 10ms and 1m", c.LedgerSealInterval)
 	}
 	if c.MetricsListen != "" {
-		if _, _, err := net.SplitHostPort(c.MetricsListen); err != nil {
+		if _, port, err := net.SplitHostPort(c.MetricsListen); err != nil {
 			bad("metrics listen address %q is not host:port", c.MetricsListen)
-		} else if c.MetricsListen == c.ListenAddr {
+		} else if c.MetricsListen == c.ListenAddr && port != "0" {
 			bad("metrics listen address must differ from the API's listen address")
 		}
 	}

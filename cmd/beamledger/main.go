@@ -9,6 +9,8 @@
 //	beamledger upload -server URL -acquisition ID PATH...   resumable upload of data files
 //	beamledger scrub                       check stored objects against their SHA-256
 //	beamledger ledger verify|checkpoint|key check the ledger, sign a checkpoint, print the key
+//	beamledger backup DIR                  dump, object manifest and objects from one snapshot
+//	beamledger restore DIR                 into an empty database and object store
 //	beamledger version
 //
 // Settings come from flags or BEAMLEDGER_* environment variables; secrets also from
@@ -67,6 +69,8 @@ commands:
                                           resumable upload of data files (token in $BEAMLEDGER_TOKEN)
   scrub                                   re-read stored objects and check their SHA-256
   ledger verify|checkpoint|key            check the ledger, sign a checkpoint now, print the verifier key
+  backup [-with-objects=false] DIR        database dump, object manifest and objects, from one snapshot
+  restore DIR                             restore a backup into an empty database and object store
   version                                 print the version
 `
 
@@ -103,6 +107,10 @@ func runWithStdin(ctx context.Context, args []string, stdin io.Reader, stdout, s
 		return cmdScrub(ctx, rest, stdout, stderr)
 	case "ledger":
 		return cmdLedger(ctx, rest, stdout, stderr)
+	case "backup":
+		return cmdBackup(ctx, rest, stdout, stderr)
+	case "restore":
+		return cmdRestore(ctx, rest, stdout, stderr)
 	case "version":
 		fmt.Fprintln(stdout, "beamledger", buildVersion())
 		return nil
