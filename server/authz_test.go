@@ -72,6 +72,10 @@ var (
 	// usersAndAgent is usersOrAgent(instrument:read, everyone...).
 	usersAndAgent = access{wUnauth, wAllow, wAllow, wAllow, wAllow, wAllow}
 	managerOnly   = access{wUnauth, wAllow, wDeny, wDeny, wDeny, wDeny}
+	// pagesOnly is a web page: any signed-in person; agents are no page users.
+	pagesOnly = access{wUnauth, wAllow, wAllow, wAllow, wAllow, wDeny}
+	// csrfRefused is a browser form post sent without the page's CSRF token.
+	csrfRefused = access{wDeny, wDeny, wDeny, wDeny, wDeny, wDeny}
 	// uploadWriters is who reaches staff's resumable upload.
 	uploadWriters = access{wUnauth, wAllow, wAllow, wHidden, wDeny, wHidden}
 )
@@ -83,8 +87,17 @@ var routeMatrix = map[string]routeExpectation{
 	"GET /healthz":          {who: openToAll},
 	"GET /readyz":           {who: openToAll},
 	"GET /api/openapi.json": {who: openToAll},
-	"GET /":                 {who: openToAll},
 	"GET /static/*":         {who: openToAll},
+	// Pages: people only; without the page's CSRF token the session posts refuse
+	// everyone (the browser flow is in web/browsertest and exerciseWeb).
+	"GET /":                 {who: pagesOnly},
+	"GET /calendar":         {who: pagesOnly},
+	"GET /acquire":          {who: pagesOnly},
+	"GET /files":            {who: pagesOnly},
+	"GET /signin":           {who: openToAll},
+	"POST /signin":          {who: csrfRefused},
+	"POST /signout":         {who: csrfRefused},
+	"POST /session/refresh": {who: csrfRefused},
 
 	"POST /api/v1/auth/login": {who: openToAll, body: func(w *world) any {
 		return map[string]string{"email": w.users[accounts.RoleResearcher].Email, "password": testPassword}
