@@ -162,10 +162,14 @@ func loadFunding(ctx context.Context, fst BillingStores, code, projectID, manage
 }
 
 // loadLastMonth books last month's sessions with their usage, skipping any that would
-// overlap a booking the demo made already.
+// overlap a booking the demo made already. Sessions end before the week ahead of the
+// demo week (which holds last week's acquisition session), so the calendar around now
+// shows the demo week as it was.
 func loadLastMonth(ctx context.Context, bst BookingStores, fst BillingStores, users, projects, instruments map[string]string,
 	from, to time.Time, loc *time.Location, now time.Time) error {
 	staff := users["staff@demo.example"]
+	monday, _ := scheduling.PeriodBounds(scheduling.PeriodWeek, now, loc)
+	cutoff := monday.In(loc).AddDate(0, 0, -7)
 	for day := from.In(loc); day.Before(to); day = day.AddDate(0, 0, 1) {
 		wd := (int(day.Weekday()) + 6) % 7
 		for _, s := range lastMonth {
@@ -174,7 +178,7 @@ func loadLastMonth(ctx context.Context, bst BookingStores, fst BillingStores, us
 			}
 			start := time.Date(day.Year(), day.Month(), day.Day(), s.from, 0, 0, 0, loc)
 			end := start.Add(time.Duration(s.hours) * time.Hour)
-			if !end.Before(now) {
+			if end.After(cutoff) {
 				continue
 			}
 			nb := scheduling.NewBooking{InstrumentID: instruments[s.instrument], ProjectID: projects[s.project], UserID: users[s.user],
