@@ -7,6 +7,7 @@
 //	beamledger token create|revoke         instrument-agent tokens
 //	beamledger derive < conditions.json    derived optics quantities (exit 2 on bad input)
 //	beamledger upload -server URL -acquisition ID PATH...   resumable upload of data files
+//	beamledger verify-bundle BUNDLE.zip --key KEY   check a provenance bundle offline
 //	beamledger scrub                       check stored objects against their SHA-256
 //	beamledger ledger verify|checkpoint|key check the ledger, sign a checkpoint, print the key
 //	beamledger backup DIR                  dump, object manifest and objects from one snapshot
@@ -67,6 +68,7 @@ commands:
   derive [-settings FILE] < conditions    derived optics quantities as JSON (exit 2 on bad input)
   upload -server URL (-acquisition ID | -project ID) FILE-OR-FOLDER...
                                           resumable upload of data files (token in $BEAMLEDGER_TOKEN)
+  verify-bundle BUNDLE.zip --key KEY      check a provenance bundle offline, no server needed
   scrub                                   re-read stored objects and check their SHA-256
   ledger verify|checkpoint|key            check the ledger, sign a checkpoint now, print the verifier key
   backup [-with-objects=false] DIR        database dump, object manifest and objects, from one snapshot
@@ -103,6 +105,8 @@ func runWithStdin(ctx context.Context, args []string, stdin io.Reader, stdout, s
 		return cmdDerive(rest, stdin, stdout, stderr)
 	case "upload":
 		return cmdUpload(ctx, rest, stdout, stderr)
+	case "verify-bundle":
+		return cmdVerifyBundle(rest, stdout, stderr)
 	case "scrub":
 		return cmdScrub(ctx, rest, stdout, stderr)
 	case "ledger":
