@@ -69,7 +69,9 @@ func (s *Server) handleError(err error, c echo.Context) {
 	if c.Response().Committed {
 		return
 	}
-	if postgres.Unreachable(err) {
+	// Errors already worded (an object store that is away, say) keep their words.
+	var worded *beamledger.Error
+	if !errors.As(err, &worded) && postgres.Unreachable(err) {
 		s.log.WarnContext(c.Request().Context(), "database unreachable", slog.String("request_id", requestID(c)), slog.Any("error", err))
 		err = errDatabaseUnreachable
 	}

@@ -6,6 +6,7 @@ import (
 	"io"
 	"net"
 	"net/http"
+	"os"
 	"strings"
 	"sync"
 	"testing"
@@ -159,8 +160,31 @@ func TestObjectStoreOutage(t *testing.T) {
 		t.Errorf("the failed uploads left records: %+v", files.Items)
 	}
 
+	// The outage lasts BEAMLEDGER_FAULT_OUTAGE (make faults sets 60 s): requests keep
+	// coming; those that need the store are 503, the others are served.
+	hold := time.Duration(0)
+	if v := os.Getenv("BEAMLEDGER_FAULT_OUTAGE"); v != "" {
+		if hold, err = time.ParseDuration(v); err != nil {
+			t.Fatalf("BEAMLEDGER_FAULT_OUTAGE=%q: %v", v, err)
+		}
+	}
+	down := time.Now()
+	refused, served := 0, 0
+	for time.Since(down) < hold {
+		if r := upload(bytes.NewReader([]byte("during"))); r.StatusCode != http.StatusServiceUnavailable {
+			t.Fatalf("an upload %v into the outage: %d %s", time.Since(down).Round(time.Second), r.StatusCode, r.Body)
+		}
+		refused++
+		if r := w.do(http.MethodGet, "/api/v1/acquisitions/"+acq, researcher, nil, nil); r.StatusCode != http.StatusOK {
+			t.Fatalf("a read %v into the outage: %d", time.Since(down).Round(time.Second), r.StatusCode)
+		}
+		served++
+		time.Sleep(time.Second)
+	}
+
 	// The store returns: uploads work again.
 	proxy.up()
+	back := time.Now()
 	var f provenance.DataFile
 	if r := w.upload(path, researcher, []byte("after the outage"), nil, &f); r.StatusCode != http.StatusCreated {
 		t.Fatalf("upload after the outage: %d %s", r.StatusCode, r.Body)
@@ -168,6 +192,8 @@ func TestObjectStoreOutage(t *testing.T) {
 	if got := w.get("/api/v1/files/"+f.ID+"/content", researcher, nil); string(got.Body) != "after the outage" {
 		t.Errorf("download after the outage: %d %q", got.StatusCode, got.Body)
 	}
+	t.Logf("figure: S3 server down for %v: %d more uploads answered 503, %d reads served meanwhile; the first upload after its return stored in %v",
+		max(hold, time.Duration(0)).Round(time.Second), refused, served, time.Since(back).Round(time.Millisecond))
 	// Nothing of the interrupted upload became an object: the bucket holds only the
 	// stored file. Its parts could not be aborted while the store was away; they wait
 	// under incoming/ for the cleanup of abandoned uploads.

@@ -243,7 +243,7 @@ func TestThreeProcesses(t *testing.T) {
 	if created.Load() == 0 || conflicts.Load() == 0 {
 		t.Fatalf("created %d, conflicts %d: the race needs both", created.Load(), conflicts.Load())
 	}
-	t.Logf("bookings: %d created, %d conflicts; %d specimens; %d files", created.Load(), conflicts.Load(), specimens.Load(), files.Load())
+	t.Logf("figure: three processes: %d bookings created and %d refused as conflicts with zero overlaps; %d specimens; %d uploads hopping between processes", created.Load(), conflicts.Load(), specimens.Load(), files.Load())
 
 	// Zero overlaps, and exactly the bookings answered 201 exist.
 	var active, overlaps int64
@@ -394,7 +394,7 @@ func (c *cluster) checkLedger(ctx context.Context, atLeast int64) {
 			t.Fatalf("checkpoint of size %d is not a prefix of the newest: %v", old.Size, err)
 		}
 	}
-	t.Logf("ledger: %d events, %d checkpoints, every proof checked", n, len(cps.Items))
+	t.Logf("figure: three processes: ledger of %d events without gaps, %d checkpoints consistent, every inclusion proof checked against a checkpoint another process signed", n, len(cps.Items))
 
 	cmd := exec.Command(c.procs[0].cmd.Path, "ledger", "verify", "-key", key.VerifierKey)
 	cmd.Env = append(os.Environ(), "BEAMLEDGER_DATABASE_URL="+c.url)

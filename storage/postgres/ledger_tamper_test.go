@@ -118,4 +118,7 @@ func TestLedgerAuditCatchesSQLTampering(t *testing.T) {
 			}
 		})
 	}
+	if !t.Failed() {
+		t.Logf("figure: %d kinds of SQL tampering (edits, deletions, insertions, reorderings, rewritten hashes and heads) each caught at the first bad event", len(cases)-1)
+	}
 }
