@@ -44,14 +44,14 @@ func (s *Server) traceFor(ctx context.Context, digest, fileID string) (provenanc
 	if err != nil {
 		return provenance.Trace{}, err
 	}
-	fs, err := s.store.DataFiles(ctx, provenance.FileFilter{SHA256: digest, ProjectIDs: readable, Limit: 1000})
+	fs, err := s.store.FilesByDigest(ctx, digest, readable)
 	if err != nil {
 		return provenance.Trace{}, err
 	}
 	if len(fs) == 0 {
 		return provenance.Trace{}, errNoTrace
 	}
-	chosen := fs[len(fs)-1] // the list is newest first
+	chosen := fs[0] // the first recorded
 	if fileID != "" {
 		found := false
 		for _, f := range fs {
@@ -67,9 +67,9 @@ func (s *Server) traceFor(ctx context.Context, digest, fileID string) (provenanc
 	if err != nil {
 		return t, err
 	}
-	for i := len(fs) - 1; i >= 0; i-- {
-		if fs[i].ID != chosen.ID {
-			t.OtherRecords = append(t.OtherRecords, fs[i].ID)
+	for _, f := range fs {
+		if f.ID != chosen.ID {
+			t.OtherRecords = append(t.OtherRecords, f.ID)
 		}
 	}
 	t.Ledger.VerifierKey = s.ledgerVerifierKey()

@@ -2,6 +2,7 @@ package postgres
 
 import (
 	"context"
+	"encoding/hex"
 	"errors"
 	"fmt"
 	"slices"
@@ -44,6 +45,27 @@ func (db *DB) Trace(ctx context.Context, fileID string) (provenance.Trace, error
 		return t, err
 	}
 	return t, db.traceLedger(ctx, &t)
+}
+
+// FilesByDigest implements provenance.TraceStore. The condition on status lets the
+// partial index on stored files' digests answer, however many files there are.
+func (db *DB) FilesByDigest(ctx context.Context, sha256Hex string, projectIDs []string) ([]provenance.DataFile, error) {
+	digest, err := hex.DecodeString(sha256Hex)
+	if err != nil || len(digest) != 32 {
+		return nil, beamledger.InvalidField("sha256", "must be 64 hex digits")
+	}
+	q := `SELECT ` + fileColumns + ` FROM data_files f WHERE f.status = 'stored' AND f.sha256 = $1`
+	args := []any{digest}
+	if projectIDs != nil {
+		q += ` AND f.project_id = ANY($2::uuid[])`
+		args = append(args, projectIDs)
+	}
+	rows, err := db.pool.Query(ctx, q+` ORDER BY f.created_at, f.id LIMIT 1000`, args...)
+	if err != nil {
+		return nil, mapError(err, "data file")
+	}
+	out, err := pgx.CollectRows(rows, func(r pgx.CollectableRow) (provenance.DataFile, error) { return scanFile(r) })
+	return out, mapError(err, "data file")
 }
 
 // traceAcquisition reads the acquisition, its versions, booking, instrument,
