@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"sync"
 	"time"
 
 	"github.com/google/uuid"
@@ -34,22 +35,25 @@ type StatementSummary struct {
 // after its cancellation (active bookings of one instrument never overlap, so the sum
 // is their union), and the booking's own split.
 func billableBookings(ctx context.Context, q querier, projectID string, from, to time.Time) ([]scheduling.BillableBooking, error) {
+	// One row per booking and usage (NULL usage for a booking without), in booking
+	// order: a flat join the planner can hash, with binary timestamps.
 	const sql = `
 SELECT b.id::text, b.instrument_id::text, b.user_id::text, b.kind, lower(b.during), upper(b.during), b.status, b.cancelled_at,
-       b.displaced_by IS NOT NULL,
-       EXISTS (SELECT 1 FROM no_shows n WHERE n.booking_id = b.id),
+       b.displaced_by IS NOT NULL, n.booking_id IS NOT NULL,
        CASE WHEN b.status = 'cancelled' THEN coalesce((
            SELECT sum(extract(epoch FROM upper(b.during * c.during) - lower(b.during * c.during)))::bigint / 60
            FROM bookings c
            WHERE c.instrument_id = b.instrument_id AND c.status = 'active' AND c.kind <> 'service' AND c.id <> b.id
              AND c.during && b.during AND c.created_at >= b.cancelled_at), 0) ELSE 0 END,
-       coalesce((SELECT json_agg(json_build_object('started_at', u.started_at, 'ended_at', u.ended_at) ORDER BY u.started_at)
-                 FROM usages u WHERE u.booking_id = b.id), '[]'),
-       coalesce((SELECT json_agg(json_build_object('account_id', f.account_id, 'basis_points', f.basis_points) ORDER BY f.position)
-                 FROM booking_funding f WHERE f.booking_id = b.id), '[]')
+       CASE WHEN EXISTS (SELECT 1 FROM booking_funding f WHERE f.booking_id = b.id) THEN
+           (SELECT json_agg(json_build_object('account_id', f.account_id, 'basis_points', f.basis_points) ORDER BY f.position)
+            FROM booking_funding f WHERE f.booking_id = b.id) END,
+       u.started_at, u.ended_at
 FROM bookings b
+LEFT JOIN no_shows n ON n.booking_id = b.id
+LEFT JOIN usages u ON u.booking_id = b.id
 WHERE b.project_id = $1 AND b.kind <> 'service' AND lower(b.during) >= $2 AND lower(b.during) < $3
-ORDER BY lower(b.during), b.id`
+ORDER BY lower(b.during), b.id, u.started_at`
 	rows, err := q.Query(ctx, sql, projectID, from, to)
 	if err != nil {
 		return nil, err
@@ -58,20 +62,26 @@ ORDER BY lower(b.during), b.id`
 	var bb scheduling.BillableBooking
 	var kind, status string
 	var rebooked int64
-	var usages, funding []byte
+	var funding []byte
+	var started, ended *time.Time
 	b := &bb.Booking
 	_, err = pgx.ForEachRow(rows, []any{&b.ID, &b.InstrumentID, &b.UserID, &kind, &b.Start, &b.End, &status, &b.CancelledAt,
-		&bb.DisplacedByService, &bb.NoShow, &rebooked, &usages, &funding}, func() error {
-		b.ProjectID, b.Kind, b.Status, bb.RebookedMinutes = projectID, scheduling.BookingKind(kind), scheduling.BookingStatus(status), int(rebooked)
-		b.Start, b.End = b.Start.UTC(), b.End.UTC()
-		bb.Usages, bb.Funding = nil, nil
-		if err := json.Unmarshal(usages, &bb.Usages); err != nil {
-			return err
+		&bb.DisplacedByService, &bb.NoShow, &rebooked, &funding, &started, &ended}, func() error {
+		if n := len(out); n == 0 || out[n-1].Booking.ID != b.ID {
+			b.ProjectID, b.Kind, b.Status, bb.RebookedMinutes = projectID, scheduling.BookingKind(kind), scheduling.BookingStatus(status), int(rebooked)
+			b.Start, b.End = b.Start.UTC(), b.End.UTC()
+			bb.Usages, bb.Funding = nil, nil
+			if funding != nil {
+				if err := json.Unmarshal(funding, &bb.Funding); err != nil {
+					return err
+				}
+			}
+			out = append(out, bb)
 		}
-		if err := json.Unmarshal(funding, &bb.Funding); err != nil {
-			return err
+		if started != nil {
+			last := &out[len(out)-1]
+			last.Usages = append(last.Usages, scheduling.Usage{BookingID: b.ID, StartedAt: *started, EndedAt: ended})
 		}
-		out = append(out, bb)
 		return nil
 	})
 	return out, err
@@ -381,4 +391,41 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, nullif($8, '')::uuid)`
 		return appendChange(ctx, tx, a.By, provenance.ActionCreate, provenance.EntityAdjustment, a.ID, a.At, a)
 	})
 	return a, mapError(err, "adjustment")
+}
+
+// ComputeStatements computes the drafts of many projects for [from, to), as
+// ComputeStatement does for one, several at a time (as many as the pool has
+// connections), each in its own transaction. It returns the drafts in the order of
+// projectIDs; a project whose statement for the period was issued is left as issued
+// and has no draft (a zero Statement). It stops at the first other error.
+func (db *DB) ComputeStatements(ctx context.Context, projectIDs []string, from, to time.Time, actor string, now time.Time) ([]scheduling.Statement, error) {
+	out := make([]scheduling.Statement, len(projectIDs))
+	ctx, cancel := context.WithCancelCause(ctx)
+	defer cancel(nil)
+	slots := make(chan struct{}, max(int(db.pool.Config().MaxConns), 1))
+	var wg sync.WaitGroup
+	for i, id := range projectIDs {
+		select {
+		case slots <- struct{}{}:
+		case <-ctx.Done():
+		}
+		if ctx.Err() != nil {
+			break
+		}
+		wg.Add(1)
+		go func() {
+			defer func() { <-slots; wg.Done() }()
+			st, _, err := db.ComputeStatement(ctx, id, from, to, actor, now)
+			if err != nil && !errors.Is(err, beamledger.ErrConflict) {
+				cancel(err)
+				return
+			}
+			out[i] = st
+		}()
+	}
+	wg.Wait()
+	if err := context.Cause(ctx); err != nil && !errors.Is(err, context.Canceled) {
+		return nil, err
+	}
+	return out, ctx.Err()
 }

@@ -1,0 +1,234 @@
+package postgres_test
+
+import (
+	"context"
+	"maps"
+	"os"
+	"strconv"
+	"testing"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+
+	"beamledger/accounts"
+	"beamledger/scheduling"
+	"beamledger/storage/postgres"
+	"beamledger/storage/postgres/pgtest"
+)
+
+// benchYear is the generated year the cost-recovery benchmark bills, in UTC.
+var benchYear = time.Date(2031, 1, 1, 0, 0, 0, 0, time.UTC)
+
+// BenchmarkCostRecovery times, over one generated year (40 instruments, 300 projects,
+// BEAMLEDGER_BENCH_BOOKINGS bookings, 1 000 000 unless set, each with one usage),
+// every project's statement for one month and every instrument's utilization report
+// for the year, each beside the single SQL aggregate that gives the same totals (the
+// anchor, "raw_sql"). The beamledger side prices line by line, splits across funding
+// accounts and stores every statement with its lines and ledger event; the anchor only
+// sums. Each side's totals are checked against the other's before timing.
+//
+//	go run ./deploy/testenv -- go test -run '^$' -bench CostRecovery -benchtime 3x -timeout 60m ./storage/postgres/
+func BenchmarkCostRecovery(b *testing.B) {
+	ctx := context.Background()
+	url := pgtest.NewDatabase(b)
+	db, err := postgres.Open(ctx, url, 8)
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.Cleanup(db.Close)
+	conn, err := pgx.Connect(ctx, url)
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.Cleanup(func() { conn.Close(context.Background()) })
+	n := 1_000_000
+	if v, err := strconv.Atoi(os.Getenv("BEAMLEDGER_BENCH_BOOKINGS")); err == nil && v > 0 {
+		n = v
+	}
+	start := time.Now()
+	projects, instruments := generateBillingYear(b, db, conn, n)
+	b.Logf("generated %d bookings with usage in %s", n, time.Since(start).Round(time.Second))
+
+	from, to := time.Date(2031, 3, 1, 0, 0, 0, 0, time.UTC), time.Date(2031, 4, 1, 0, 0, 0, 0, time.UTC)
+	manager := benchMust(db.CreateUser(ctx, accounts.NewUser{Email: "bench-manager@example.org", DisplayName: "M", Role: accounts.RoleManager}, "h"))(b).ID
+	statements := func() map[string]int64 {
+		sts, err := db.ComputeStatements(ctx, projects, from, to, manager, benchYear.AddDate(1, 0, 0))
+		if err != nil {
+			b.Fatal(err)
+		}
+		out := map[string]int64{}
+		for _, st := range sts {
+			if r := st.Record(); r.TotalMinor != 0 {
+				out[r.ProjectID] = r.TotalMinor
+			}
+		}
+		return out
+	}
+	rawStatements := func() map[string]int64 { return rawMonthTotals(b, conn, from, to) }
+	if got, want := statements(), rawStatements(); !maps.Equal(got, want) {
+		b.Fatalf("statement totals differ from the SQL aggregate's (%d and %d projects)", len(got), len(want))
+	}
+	b.Run("statements_month/raw_sql", func(b *testing.B) {
+		for b.Loop() {
+			rawStatements()
+		}
+	})
+	b.Run("statements_month/beamledger", func(b *testing.B) {
+		for b.Loop() {
+			statements()
+		}
+	})
+
+	yearTo := benchYear.AddDate(1, 0, 0)
+	utilization := func() map[string][2]int {
+		out := map[string][2]int{}
+		for _, id := range instruments {
+			in, err := db.UtilizationInputs(ctx, id, benchYear, yearTo)
+			if err != nil {
+				b.Fatal(err)
+			}
+			r := scheduling.Utilization(id, benchYear, yearTo, time.UTC, in.Rules.OpeningHours,
+				time.Duration(in.Policy.CancellationWindowMinutes)*time.Minute, in.Bookings, in.Quotas, yearTo)
+			out[id] = [2]int{r.BookedMinutes, r.UsedMinutes}
+		}
+		return out
+	}
+	rawUtilization := func() map[string][2]int { return rawYearUtilization(b, conn, benchYear, yearTo) }
+	if got, want := utilization(), rawUtilization(); !maps.Equal(got, want) {
+		b.Fatalf("utilization totals differ from the SQL aggregate's")
+	}
+	b.Run("utilization_year/raw_sql", func(b *testing.B) {
+		for b.Loop() {
+			rawUtilization()
+		}
+	})
+	b.Run("utilization_year/beamledger", func(b *testing.B) {
+		for b.Loop() {
+			utilization()
+		}
+	})
+}
+
+// generateBillingYear makes the facility, 40 instruments each with one rate schedule,
+// 300 internal projects each with one funding account as its default split, and n
+// independent bookings of 15 or 20 minutes spread evenly over the instruments and the
+// year (one every 21 minutes on each instrument at a million), each with one usage that starts up to
+// 7 minutes late and ends up to 2 minutes early or 5 late. The bookings and usage are
+// written by SQL in the database, as a year of use would have left them.
+func generateBillingYear(b *testing.B, db *postgres.DB, conn *pgx.Conn, n int) (projects, instruments []string) {
+	ctx := context.Background()
+	if _, err := db.SetFacility(ctx, scheduling.Facility{Name: "Bench", TimeZone: "UTC", Currency: "EUR"}); err != nil {
+		b.Fatal(err)
+	}
+	pi := benchMust(db.CreateUser(ctx, accounts.NewUser{Email: "bench-pi@example.org", DisplayName: "PI", Role: accounts.RoleResearcher}, "h"))(b)
+	for i := range 40 {
+		in := benchMust(db.CreateInstrument(ctx, scheduling.Instrument{Code: "BENCH-" + strconv.Itoa(i), Name: "Bench " + strconv.Itoa(i), Kind: scheduling.KindSTEM, Bookable: true, AcceleratingVoltagesV: []float64{300e3}, Corrector: scheduling.CorrectorProbe}))(b)
+		instruments = append(instruments, in.ID)
+		if _, err := db.CreateRateSchedule(ctx, scheduling.RateSchedule{InstrumentID: in.ID, EffectiveFrom: benchYear.AddDate(0, 0, -1), Currency: "EUR",
+			Classes: []scheduling.ClassRates{{RateClass: accounts.RateInternal, IndependentHourlyMinor: int64(9000 + 250*i)}}}, pi.ID, benchYear); err != nil {
+			b.Fatal(err)
+		}
+	}
+	for i := range 300 {
+		p := benchMust(db.CreateProject(ctx, accounts.NewProject{Code: "BP-" + strconv.Itoa(i), Title: "Bench", PrincipalInvestigatorID: pi.ID, RateClass: accounts.RateInternal}))(b)
+		projects = append(projects, p.ID)
+		a, err := db.SaveFundingAccount(ctx, scheduling.FundingAccount{ProjectID: p.ID, Code: "G-" + strconv.Itoa(i)}, pi.ID, benchYear)
+		if err != nil {
+			b.Fatal(err)
+		}
+		if err := db.SetProjectFunding(ctx, p.ID, []scheduling.FundingShare{{AccountID: a.ID, BasisPoints: 10000}}, pi.ID, benchYear); err != nil {
+			b.Fatal(err)
+		}
+	}
+	const bookings = `
+INSERT INTO bookings (instrument_id, project_id, user_id, kind, during, created_at, created_by, updated_at)
+SELECT i.id, p.id, $1, 'independent',
+       tstzrange($2::timestamptz + make_interval(mins => k * $4), $2::timestamptz + make_interval(mins => k * $4 + 15 + (k % 2) * 5), '[)'),
+       $2, 'bench', $2
+FROM (SELECT id, row_number() OVER (ORDER BY code) - 1 AS n FROM instruments) i
+CROSS JOIN generate_series(0, $3 - 1) k
+JOIN (SELECT id, row_number() OVER (ORDER BY code) - 1 AS n FROM projects) p ON p.n = (k * 7 + i.n) % 300`
+	per := n / 40
+	spacing := max(21, 365*24*60/per) // minutes between starts on one instrument
+	if _, err := conn.Exec(ctx, bookings, pi.ID, benchYear, per, spacing); err != nil {
+		b.Fatal(err)
+	}
+	const usages = `
+INSERT INTO usages (booking_id, started_at, ended_at, started_by, ended_by, source)
+SELECT id, lower(during) + make_interval(mins => (hashtext(id::text) & 7)),
+       upper(during) + make_interval(mins => ((hashtext(id::text) >> 3) & 7) - 2), 'bench', 'bench', 'user'
+FROM bookings`
+	if _, err := conn.Exec(ctx, usages); err != nil {
+		b.Fatal(err)
+	}
+	if _, err := conn.Exec(ctx, `ANALYZE`); err != nil {
+		b.Fatal(err)
+	}
+	return projects, instruments
+}
+
+// rawMonthTotals is the anchor for statements: one aggregate pricing every booking of
+// the month under the default policy (the greater of booked and used time, each in
+// whole minutes rounded up to 15, at least 60) at its instrument's internal rate,
+// rounded half up per line, summed per project.
+func rawMonthTotals(b *testing.B, conn *pgx.Conn, from, to time.Time) map[string]int64 {
+	const q = `
+SELECT b.project_id::text, sum((greatest(
+        (ceil(extract(epoch FROM upper(b.during) - lower(b.during)) / 60)::bigint + 14) / 15 * 15,
+        (ceil(extract(epoch FROM u.ended_at - u.started_at) / 60)::bigint + 14) / 15 * 15,
+        60) * r.independent_hourly_minor * 2 + 60) / 120)::bigint
+FROM bookings b
+JOIN usages u ON u.booking_id = b.id
+JOIN rate_schedules s ON s.instrument_id = b.instrument_id
+JOIN rate_schedule_rates r ON r.schedule_id = s.id AND r.rate_class = 'internal'
+WHERE lower(b.during) >= $1 AND lower(b.during) < $2 AND b.kind <> 'service'
+GROUP BY b.project_id`
+	rows, err := conn.Query(context.Background(), q, from, to)
+	if err != nil {
+		b.Fatal(err)
+	}
+	out := map[string]int64{}
+	var id string
+	var total int64
+	if _, err := pgx.ForEachRow(rows, []any{&id, &total}, func() error { out[id] = total; return nil }); err != nil {
+		b.Fatal(err)
+	}
+	return out
+}
+
+// rawYearUtilization is the anchor for utilization: booked and used minutes per
+// instrument over [from, to) in one aggregate.
+func rawYearUtilization(b *testing.B, conn *pgx.Conn, from, to time.Time) map[string][2]int {
+	const q = `
+SELECT b.instrument_id::text,
+       sum(extract(epoch FROM upper(b.during * tstzrange($1, $2)) - lower(b.during * tstzrange($1, $2)))::bigint / 60)::bigint,
+       sum(extract(epoch FROM least(u.ended_at, $2) - greatest(u.started_at, $1))::bigint / 60)::bigint
+FROM bookings b JOIN usages u ON u.booking_id = b.id
+WHERE b.during && tstzrange($1, $2) AND b.status = 'active' AND b.kind <> 'service'
+GROUP BY b.instrument_id`
+	rows, err := conn.Query(context.Background(), q, from, to)
+	if err != nil {
+		b.Fatal(err)
+	}
+	out := map[string][2]int{}
+	var id string
+	var booked, used int64
+	if _, err := pgx.ForEachRow(rows, []any{&id, &booked, &used}, func() error {
+		out[id] = [2]int{int(booked), int(used)}
+		return nil
+	}); err != nil {
+		b.Fatal(err)
+	}
+	return out
+}
+
+// benchMust turns a value and an error into the value, failing the benchmark on error.
+func benchMust[T any](v T, err error) func(*testing.B) T {
+	return func(b *testing.B) T {
+		b.Helper()
+		if err != nil {
+			b.Fatal(err)
+		}
+		return v
+	}
+}
