@@ -4,7 +4,7 @@
 
 GO ?= go
 
-.PHONY: run test bench build fmt-check
+.PHONY: run test bench faults build fmt-check
 
 run:
 	$(GO) run ./cmd/beamledger demo
@@ -19,6 +19,14 @@ test: fmt-check
 SUITES ?=
 bench:
 	$(GO) run ./deploy/testenv -- $(GO) run ./deploy/benchreport -only '$(SUITES)'
+
+# The fault suite, one fault at a time, written to RELIABILITY.md with each test's
+# figures (deploy/faultreport). FUZZTIME is per fuzz target; the default keeps the
+# whole run near 30 minutes on 2 cores; FUZZTIME=10m fuzzes each parser for ten.
+FUZZTIME ?= 4m
+FAULTS ?=
+faults:
+	$(GO) run ./deploy/testenv -- $(GO) run ./deploy/faultreport -fuzztime $(FUZZTIME) -only '$(FAULTS)'
 
 build:
 	$(GO) build -o bin/beamledger ./cmd/beamledger
