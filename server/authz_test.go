@@ -94,6 +94,7 @@ var routeMatrix = map[string]routeExpectation{
 	"GET /calendar":         {who: pagesOnly},
 	"GET /acquire":          {who: pagesOnly},
 	"GET /files":            {who: pagesOnly},
+	"GET /trace":            {who: pagesOnly},
 	"GET /signin":           {who: openToAll},
 	"POST /signin":          {who: csrfRefused},
 	"POST /signout":         {who: csrfRefused},

@@ -31,6 +31,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 	page("/calendar", s.handleCalendarPage)
 	page("/acquire", s.handleAcquirePage)
 	page("/files", s.handleFilesPage)
+	page("/trace", s.handleTracePage)
 	add(http.MethodGet, "/signin", open(), s.handleSignInPage)
 	add(http.MethodPost, "/signin", open(), s.handleSignIn)
 	add(http.MethodPost, "/signout", open(), s.handleSignOut)
@@ -51,7 +52,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 // sign-in form.
 func isPagePath(p string) bool {
 	switch p {
-	case "/", "/calendar", "/acquire", "/files":
+	case "/", "/calendar", "/acquire", "/files", "/trace":
 		return true
 	}
 	return false

@@ -2,6 +2,7 @@ package server
 
 import (
 	"net/http"
+	"strings"
 	"time"
 
 	"github.com/labstack/echo/v4"
@@ -62,6 +63,16 @@ func (s *Server) handleAcquirePage(c echo.Context, me accounts.Principal, pg web
 		d.Specimens = append(d.Specimens, web.Option{Value: sp.ID, Label: sp.Code + " — " + sp.Description})
 	}
 	return s.render(c, http.StatusOK, "acquire", "layout", d)
+}
+
+// handleTracePage finds a data file by its SHA-256 (the script fetches the trace).
+func (s *Server) handleTracePage(c echo.Context, _ accounts.Principal, pg web.Page) error {
+	pg.Title, pg.Nav, pg.Script = "Trace", "trace", "trace.js"
+	d := web.TraceData{Page: pg}
+	if v := strings.ToLower(c.QueryParam("sha256")); provenance.ValidSHA256(v) {
+		d.Digest = v
+	}
+	return s.render(c, http.StatusOK, "trace", "layout", d)
 }
 
 // handleFilesPage is the data-file page: resumable upload into an acquisition, the

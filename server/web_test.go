@@ -70,7 +70,7 @@ func csrfOf(t *testing.T, page response) string {
 func exerciseWeb(t *testing.T, w *world) {
 	researcher := w.users[accounts.RoleResearcher].Email
 	// Pages answer people, refuse instrument agents, and ask for credentials.
-	for _, p := range []string{"/", "/calendar", "/calendar?view=day", "/calendar?view=facility", "/acquire", "/files"} {
+	for _, p := range []string{"/", "/calendar", "/calendar?view=day", "/calendar?view=facility", "/acquire", "/files", "/trace", "/trace?sha256=" + strings.Repeat("ab", 32)} {
 		if r := w.expect(http.StatusOK, http.MethodGet, p, w.tokens[accounts.RoleResearcher], nil, nil); !bytes.Contains(r.Body, []byte("Test Facility")) {
 			t.Errorf("GET %s does not name the facility: %.200s", p, r.Body)
 		}
@@ -154,14 +154,14 @@ func exerciseWeb(t *testing.T, w *world) {
 		t.Errorf("renewal without the CSRF token: %d, want 403", r.StatusCode)
 	}
 	before := b.cookies[cookieAccess].Value
-	w.clock.Advance(w.srv.cfg.AccessTTL + time.Minute)
+	w.clock.Advance(w.srv.cfg.AccessTTL + 5*time.Minute) // past the allowance for clock skew
 	if r := b.do(http.MethodGet, "/api/v1/me", "", nil); r.StatusCode != http.StatusUnauthorized {
 		t.Errorf("an expired access cookie should be refused by the API: %d", r.StatusCode)
 	}
 	if r := b.do(http.MethodPost, "/session/refresh", "", nil, headerCSRF, token); r.StatusCode != http.StatusNoContent || b.cookies[cookieAccess].Value == before {
 		t.Errorf("renewal: %d, cookie renewed %v", r.StatusCode, b.cookies[cookieAccess].Value != before)
 	}
-	w.clock.Advance(w.srv.cfg.AccessTTL + time.Minute)
+	w.clock.Advance(w.srv.cfg.AccessTTL + 5*time.Minute) // past the allowance for clock skew
 	if r := b.do(http.MethodGet, "/files", "", nil); r.StatusCode != http.StatusOK {
 		t.Errorf("a page opened with an expired access cookie should renew the session: %d", r.StatusCode)
 	}

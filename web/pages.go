@@ -64,6 +64,12 @@ type AcquireBooking struct {
 	ID, Label, InstrumentID, ProjectID, Start, End string
 }
 
+// TraceData is the trace page; Digest, when set, is traced on arrival.
+type TraceData struct {
+	Page
+	Digest string
+}
+
 // FilesData is the files page.
 type FilesData struct {
 	Page

@@ -4,11 +4,15 @@ import (
 	"bytes"
 	"context"
 	"crypto/ed25519"
+	"encoding/json"
+	"errors"
 	"io"
 	"log/slog"
+	"net/http"
 	"net/http/httptest"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -152,7 +156,7 @@ func run(t *testing.T, ctx context.Context, what string, actions ...chromedp.Act
 // eval evaluates a script in the page and returns its value.
 func eval[T any](t *testing.T, ctx context.Context, what, script string) T {
 	t.Helper()
-	v, err := chromedp.Run(ctx, chromedp.Evaluate[T](script))
+	v, err := chromedp.Run(ctx, chromedp.Evaluate[T](script, chromedp.EvalAwaitPromise))
 	if err != nil {
 		t.Fatalf("%s: %v", what, err)
 	}
@@ -238,4 +242,81 @@ func retype(sel, v string) chromedp.Action[chromedp.Void] {
 		}),
 		chromedp.SendKeys(css(sel), v),
 	)
+}
+
+// api calls the JSON API as role's demo account (signing in once per call, which
+// is cheap next to a browser) and decodes the answer into out.
+func (s *site) api(t *testing.T, role accounts.Role, method, path string, body, out any) int {
+	t.Helper()
+	token := ""
+	if role != "" {
+		var tok struct {
+			AccessToken string `json:"access_token"`
+		}
+		a := s.accounts[role]
+		if code := s.call(t, "", http.MethodPost, "/api/v1/auth/login", map[string]string{"email": a.Email, "password": a.Password}, &tok); code != http.StatusOK {
+			t.Fatalf("API sign-in as %s: %d", role, code)
+		}
+		token = tok.AccessToken
+	}
+	return s.call(t, token, method, path, body, out)
+}
+
+func (s *site) call(t *testing.T, token, method, path string, body, out any) int {
+	t.Helper()
+	var rd io.Reader
+	if body != nil {
+		b, err := json.Marshal(body)
+		if err != nil {
+			t.Fatal(err)
+		}
+		rd = bytes.NewReader(b)
+	}
+	req, err := http.NewRequest(method, s.url+path, rd)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if body != nil {
+		req.Header.Set("Content-Type", "application/json")
+	}
+	if token != "" {
+		req.Header.Set("Authorization", "Bearer "+token)
+	}
+	res, err := http.DefaultClient.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer res.Body.Close()
+	b, err := io.ReadAll(res.Body)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if out != nil && res.StatusCode/100 == 2 {
+		if raw, ok := out.(*[]byte); ok {
+			*raw = b
+		} else if err := json.Unmarshal(b, out); err != nil {
+			t.Fatalf("%s %s: %v in %.200s", method, path, err, b)
+		}
+	}
+	return res.StatusCode
+}
+
+// fmtSscan reads the numbers of a sentence in order, whatever the words between.
+func fmtSscan(s string, into ...*int) (int, error) {
+	n := 0
+	for _, f := range strings.FieldsFunc(s, func(r rune) bool { return r < '0' || r > '9' }) {
+		if n == len(into) {
+			break
+		}
+		v, err := strconv.Atoi(f)
+		if err != nil {
+			return n, err
+		}
+		*into[n] = v
+		n++
+	}
+	if n < len(into) {
+		return n, errors.New("too few numbers")
+	}
+	return n, nil
 }
