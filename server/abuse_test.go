@@ -33,9 +33,9 @@ func TestHugeBodiesAndPages(t *testing.T) {
 	}
 	t.Logf("figure: a 10 MiB JSON body is answered 413 (limit %d bytes)", w.srv.cfg.MaxBodyBytes)
 	for path, field := range map[string]string{
-		"/api/v1/files?limit=100000000":            "limit",
-		"/api/v1/acquisitions?limit=100000000":     "limit",
-		"/api/v1/ledger/checkpoints?limit=1000000": "limit",
+		"/api/v1/files?limit=100000000":                                      "limit",
+		"/api/v1/acquisitions?limit=100000000":                               "limit",
+		"/api/v1/ledger/checkpoints?limit=1000000":                           "limit",
 		"/api/v1/bookings?from=2020-01-01T00:00:00Z&to=2030-01-01T00:00:00Z": "to",
 	} {
 		r := w.get(path, token, nil)
