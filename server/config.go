@@ -81,6 +81,11 @@ type Config struct {
 	// LedgerSealInterval is how often each process seals committed ledger events,
 	// which bounds how long an event stays unsealed.
 	LedgerSealInterval time.Duration
+	// LedgerCheckpointRetention, when set, publishes every checkpoint the sealer
+	// signs to the object store as well (ledger/checkpoints/…), protected in
+	// compliance mode for this long where the store locks objects: a copy of the
+	// signed roots that nobody with database access can rewrite.
+	LedgerCheckpointRetention time.Duration
 
 	// MetricsListen, when set, is a separate host:port answering GET /metrics in the
 	// Prometheus text format; empty serves no metrics. MetricsToken, when set, is the
@@ -206,6 +211,9 @@ func (c Config) Validate() error {
 	}
 	if c.LedgerSealInterval < 10*time.Millisecond || c.LedgerSealInterval > time.Minute {
 		bad("ledger seal interval %s must be between 10ms and 1m", c.LedgerSealInterval)
+	}
+	if c.LedgerCheckpointRetention < 0 || c.LedgerCheckpointRetention > 100*365*24*time.Hour {
+		bad("ledger checkpoint retention %s must be between 0 and 100 years", c.LedgerCheckpointRetention)
 	}
 	if c.MetricsListen != "" {
 		if _, port, err := net.SplitHostPort(c.MetricsListen); err != nil {
@@ -344,6 +352,7 @@ func (c Config) LogValue() slog.Value {
 		slog.String("ledger_origin", c.LedgerOrigin),
 		slog.String("ledger_key_id", signingKID(c.LedgerKey)),
 		slog.Duration("ledger_seal_interval", c.LedgerSealInterval),
+		slog.Duration("ledger_checkpoint_retention", c.LedgerCheckpointRetention),
 		slog.String("metrics_listen", c.MetricsListen),
 		slog.String("metrics_token", redactSecret(c.MetricsToken)),
 		slog.Bool("demo", c.Demo),

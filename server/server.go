@@ -7,6 +7,7 @@ import (
 	"log/slog"
 	"net"
 	"net/http"
+	"sync/atomic"
 	"time"
 
 	"github.com/labstack/echo/v4"
@@ -41,6 +42,9 @@ type Server struct {
 	uploads uploadGeometry
 	// ledger signs checkpoints; nil when the configuration has no ledger key.
 	ledger *provenance.CheckpointSigner
+	// published is the largest tree size whose checkpoint this process has seen in
+	// the object store (LedgerCheckpointRetention).
+	published atomic.Int64
 	// metrics counts requests, uploads and background jobs, and reads the pool and
 	// the ledger when scraped.
 	metrics *metrics.Registry

@@ -56,6 +56,10 @@ type PutOptions struct {
 	// RetainUntil, when set and the store supports object locking, protects the object
 	// in governance mode until then (a privileged caller may still lift it).
 	RetainUntil time.Time
+	// Compliance makes RetainUntil's protection compliance mode: nobody, an
+	// administrator included, can delete the object or shorten its retention before
+	// then. For records that must outlive any account's mistakes (signed checkpoints).
+	Compliance bool
 }
 
 // Part is one uploaded part of a multipart upload.

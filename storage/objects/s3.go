@@ -190,13 +190,17 @@ func (s *S3) partSizeFor(size int64) uint64 {
 	return ps
 }
 
-// retention returns the lock options for RetainUntil: governance mode when
-// the bucket locks, nothing otherwise (documented on PutOptions).
-func (s *S3) retention(until time.Time) (minio.RetentionMode, time.Time) {
-	if !s.locking || until.IsZero() {
+// retention returns the lock options for RetainUntil: governance mode (or
+// compliance mode when asked) when the bucket locks, nothing otherwise
+// (documented on PutOptions).
+func (s *S3) retention(opts PutOptions) (minio.RetentionMode, time.Time) {
+	if !s.locking || opts.RetainUntil.IsZero() {
 		return "", time.Time{}
 	}
-	return minio.Governance, until.UTC()
+	if opts.Compliance {
+		return minio.Compliance, opts.RetainUntil.UTC()
+	}
+	return minio.Governance, opts.RetainUntil.UTC()
 }
 
 // Put uploads r. The reader is wrapped, which also hides any io.ReaderAt
@@ -224,7 +228,7 @@ func (s *S3) Put(ctx context.Context, key string, r io.Reader, size int64, opts 
 		// more threads would only add buffers.
 		NumThreads: 1,
 	}
-	po.Mode, po.RetainUntilDate = s.retention(opts.RetainUntil)
+	po.Mode, po.RetainUntilDate = s.retention(opts)
 	if _, err := s.client.PutObject(ctx, s.bucket, key, r, size, po); err != nil {
 		return Info{}, mapS3Error(err, "object "+key)
 	}

@@ -75,7 +75,7 @@ func (s *S3) CompleteMultipart(ctx context.Context, key, uploadID string, parts 
 	if err != nil {
 		return Info{}, mapS3Error(err, "upload "+uploadID)
 	}
-	if mode, until := s.retention(opts.RetainUntil); mode != "" {
+	if mode, until := s.retention(opts); mode != "" {
 		err := s.client.PutObjectRetention(ctx, s.bucket, key, minio.PutObjectRetentionOptions{
 			Mode: &mode, RetainUntilDate: &until, VersionID: up.VersionID,
 		})

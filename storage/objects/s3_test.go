@@ -121,6 +121,22 @@ func TestS3ObjectLock(t *testing.T) {
 	}
 	wantRetention(t, st, "mp", until)
 
+	// Compliance mode: even the governance bypass the store's own deletes use
+	// cannot remove the object before its time.
+	if _, err := st.Put(ctx, "ledger/checkpoints/1", strings.NewReader("note"), 4, PutOptions{RetainUntil: until, Compliance: true}); err != nil {
+		t.Fatal(err)
+	}
+	if oi, err := st.client.StatObject(ctx, st.bucket, "ledger/checkpoints/1", minio.StatObjectOptions{}); err != nil {
+		t.Fatal(err)
+	} else if mode, got := retentionOf(oi); mode != minio.Compliance || !got.Equal(until) {
+		t.Errorf("compliance retention: %v until %v, want COMPLIANCE until %v", mode, got, until)
+	}
+	if err := st.Delete(ctx, "ledger/checkpoints/1"); err == nil {
+		if _, serr := st.Stat(ctx, "ledger/checkpoints/1"); serr != nil {
+			t.Errorf("an object under compliance retention was deleted: %v", serr)
+		}
+	}
+
 	put(t, st, "plain", []byte("x"))
 	if oi, err := st.client.StatObject(ctx, st.bucket, "plain", minio.StatObjectOptions{}); err != nil {
 		t.Fatal(err)
