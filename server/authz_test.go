@@ -95,6 +95,7 @@ var routeMatrix = map[string]routeExpectation{
 	"GET /acquire":          {who: pagesOnly},
 	"GET /files":            {who: pagesOnly},
 	"GET /trace":            {who: pagesOnly},
+	"GET /statements":       {who: pagesOnly},
 	"GET /signin":           {who: openToAll},
 	"POST /signin":          {who: csrfRefused},
 	"POST /signout":         {who: csrfRefused},

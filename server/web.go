@@ -32,6 +32,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 	page("/acquire", s.handleAcquirePage)
 	page("/files", s.handleFilesPage)
 	page("/trace", s.handleTracePage)
+	page("/statements", s.handleStatementsPage)
 	add(http.MethodGet, "/signin", open(), s.handleSignInPage)
 	add(http.MethodPost, "/signin", open(), s.handleSignIn)
 	add(http.MethodPost, "/signout", open(), s.handleSignOut)
@@ -52,7 +53,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 // sign-in form.
 func isPagePath(p string) bool {
 	switch p {
-	case "/", "/calendar", "/acquire", "/files", "/trace":
+	case "/", "/calendar", "/acquire", "/files", "/trace", "/statements":
 		return true
 	}
 	return false

@@ -2,6 +2,7 @@ package server
 
 import (
 	"net/http"
+	"slices"
 	"strings"
 	"time"
 
@@ -63,6 +64,31 @@ func (s *Server) handleAcquirePage(c echo.Context, me accounts.Principal, pg web
 		d.Specimens = append(d.Specimens, web.Option{Value: sp.ID, Label: sp.Code + " — " + sp.Description})
 	}
 	return s.render(c, http.StatusOK, "acquire", "layout", d)
+}
+
+// handleStatementsPage lists the statements of the projects the viewer may read;
+// managers also compute drafts and issue them.
+func (s *Server) handleStatementsPage(c echo.Context, me accounts.Principal, pg web.Page) error {
+	ctx := c.Request().Context()
+	pg.Title, pg.Nav, pg.Script = "Statements", "statements", "statements.js"
+	loc, err := s.facilityLocation(ctx)
+	if err != nil {
+		return err
+	}
+	d := web.StatementsData{Page: pg, Month: s.now().In(loc).Format("2006-01"), Manage: me.Role == accounts.RoleManager}
+	f := accounts.ProjectFilter{MemberID: me.UserID}
+	if me.CanReadEverything() {
+		f = accounts.ProjectFilter{}
+	}
+	ps, err := s.store.Projects(ctx, f)
+	if err != nil {
+		return err
+	}
+	slices.SortFunc(ps, func(a, b accounts.Project) int { return strings.Compare(a.Code, b.Code) })
+	for _, p := range ps {
+		d.Projects = append(d.Projects, web.Option{Value: p.ID, Label: p.Code + " — " + p.Title})
+	}
+	return s.render(c, http.StatusOK, "statements", "layout", d)
 }
 
 // handleTracePage finds a data file by its SHA-256 (the script fetches the trace).

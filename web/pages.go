@@ -64,6 +64,14 @@ type AcquireBooking struct {
 	ID, Label, InstrumentID, ProjectID, Start, End string
 }
 
+// StatementsData is the statements page; Manage shows managers' compute and issue.
+type StatementsData struct {
+	Page
+	Projects []Option
+	Month    string // YYYY-MM, the facility's current month
+	Manage   bool
+}
+
 // TraceData is the trace page; Digest, when set, is traced on arrival.
 type TraceData struct {
 	Page

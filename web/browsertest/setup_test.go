@@ -69,6 +69,9 @@ func newSite(t *testing.T) *site {
 	if err := demo.LoadAcquisitions(ctx, db, db, db, now); err != nil {
 		t.Fatalf("demo acquisitions: %v", err)
 	}
+	if err := demo.LoadBilling(ctx, db, db, db, now); err != nil {
+		t.Fatalf("demo billing: %v", err)
+	}
 	objs, err := server.OpenObjects(cfg)
 	if err != nil {
 		t.Fatal(err)
