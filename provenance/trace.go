@@ -180,9 +180,10 @@ func SplitLineage(l Lineage, fileID string) (upstream, downstream []Derivation) 
 
 // TraceStore gathers traces.
 type TraceStore interface {
-	// FilesByDigest lists the stored records of the bytes with this SHA-256 (hex),
-	// oldest first, limited to the given projects when projectIDs is not nil. An
-	// empty list when none.
+	// FilesByDigest lists the stored records of the bytes with this SHA-256 (hex):
+	// records of acquisitions first, then processed files, each oldest first;
+	// limited to the given projects when projectIDs is not nil. An empty list when
+	// none.
 	FilesByDigest(ctx context.Context, sha256Hex string, projectIDs []string) ([]DataFile, error)
 	// Trace gathers the trace of the stored data-file record fileID, its ledger
 	// events with proofs against the latest checkpoint. ErrNotFound when there is

@@ -36,7 +36,8 @@ func traceDigest(c echo.Context) (string, error) {
 }
 
 // traceFor gathers the trace of the stored record of digest that the caller may
-// read: the one named by file_id, or else the first one recorded. Auditors, staff
+// read: the one named by file_id, or else the first an acquisition recorded (the
+// record that says how the bytes were made), or the oldest. Auditors, staff
 // and managers read every record; researchers those of their projects, and within
 // the trace only the files of their projects (others stay as ids in derivations).
 func (s *Server) traceFor(ctx context.Context, digest, fileID string) (provenance.Trace, error) {
@@ -51,7 +52,7 @@ func (s *Server) traceFor(ctx context.Context, digest, fileID string) (provenanc
 	if len(fs) == 0 {
 		return provenance.Trace{}, errNoTrace
 	}
-	chosen := fs[0] // the first recorded
+	chosen := fs[0] // an acquisition's record if any, else the oldest
 	if fileID != "" {
 		found := false
 		for _, f := range fs {

@@ -118,6 +118,20 @@ func TestTraceByDigest(t *testing.T) {
 	}
 	w.expect(http.StatusForbidden, http.MethodGet, path, w.agent, nil, nil)
 
+	// The same bytes recorded again as a processed file: the first record is traced,
+	// the other listed, and file_id picks it.
+	var again provenance.DataFile
+	w.upload("/api/v1/files?project_id="+w.own.ID+"&name=copy.raw", researcher, tw.rawBytes, nil, &again)
+	var first, picked provenance.Trace
+	w.expect(http.StatusOK, http.MethodGet, path, researcher, nil, &first)
+	w.expect(http.StatusOK, http.MethodGet, path+"?file_id="+again.ID, researcher, nil, &picked)
+	if first.File.ID != tw.raw.ID || len(first.OtherRecords) != 1 || first.OtherRecords[0] != again.ID || picked.File.ID != again.ID || picked.Acquisition != nil {
+		t.Errorf("records of the same bytes: first %s (others %v), picked %s", first.File.ID, first.OtherRecords, picked.File.ID)
+	}
+	if r := w.expect(http.StatusBadRequest, http.MethodGet, path+"?file_id="+tw.out.ID, researcher, nil, nil); !fieldNamed(r, "file_id") {
+		t.Errorf("file_id of other bytes: %s", r.Body)
+	}
+
 	// By the bytes: the same trace.
 	var byBytes provenance.Trace
 	if r := w.upload("/api/v1/trace", researcher, tw.rawBytes, nil, &byBytes); r.StatusCode != http.StatusOK || byBytes.File.ID != tw.raw.ID {

@@ -49,6 +49,7 @@ func (db *DB) Trace(ctx context.Context, fileID string) (provenance.Trace, error
 
 // FilesByDigest implements provenance.TraceStore. The condition on status lets the
 // partial index on stored files' digests answer, however many files there are.
+// Records of acquisitions come first: they say how the bytes were made.
 func (db *DB) FilesByDigest(ctx context.Context, sha256Hex string, projectIDs []string) ([]provenance.DataFile, error) {
 	digest, err := hex.DecodeString(sha256Hex)
 	if err != nil || len(digest) != 32 {
@@ -60,7 +61,7 @@ func (db *DB) FilesByDigest(ctx context.Context, sha256Hex string, projectIDs []
 		q += ` AND f.project_id = ANY($2::uuid[])`
 		args = append(args, projectIDs)
 	}
-	rows, err := db.pool.Query(ctx, q+` ORDER BY f.created_at, f.id LIMIT 1000`, args...)
+	rows, err := db.pool.Query(ctx, q+` ORDER BY f.acquisition_id IS NULL, f.created_at, f.id LIMIT 1000`, args...)
 	if err != nil {
 		return nil, mapError(err, "data file")
 	}

@@ -127,8 +127,8 @@ func TestTrace(t *testing.T) {
 	if err != nil || st.Acquisition != nil || len(st.Upstream) != 1 || len(st.Downstream) != 1 {
 		t.Errorf("stack trace: %v, acquisition %v, %d up, %d down", err, st.Acquisition, len(st.Upstream), len(st.Downstream))
 	}
-	// The same bytes recorded again, as a processed file: both records, oldest first,
-	// and none for a project that holds neither.
+	// The same bytes recorded again, as a processed file at the same instant: both
+	// records, the acquisition's first, and none for a project that holds neither.
 	again := processed(t, w, "raw frame")
 	fs, err := db.FilesByDigest(ctx, digestOf("raw frame"), nil)
 	if err != nil || len(fs) != 2 || fs[0].ID != raw.ID || fs[1].ID != again.ID {
