@@ -74,6 +74,8 @@ var (
 	managerOnly   = access{wUnauth, wAllow, wDeny, wDeny, wDeny, wDeny}
 	// pagesOnly is a web page: any signed-in person; agents are no page users.
 	pagesOnly = access{wUnauth, wAllow, wAllow, wAllow, wAllow, wDeny}
+	// readersPage is a page for those who read every project.
+	readersPage = access{wUnauth, wAllow, wAllow, wDeny, wAllow, wDeny}
 	// csrfRefused is a browser form post sent without the page's CSRF token.
 	csrfRefused = access{wDeny, wDeny, wDeny, wDeny, wDeny, wDeny}
 	// uploadWriters is who reaches staff's resumable upload.
@@ -96,6 +98,7 @@ var routeMatrix = map[string]routeExpectation{
 	"GET /files":            {who: pagesOnly},
 	"GET /trace":            {who: pagesOnly},
 	"GET /statements":       {who: pagesOnly},
+	"GET /reports":          {who: readersPage},
 	"GET /signin":           {who: openToAll},
 	"POST /signin":          {who: csrfRefused},
 	"POST /signout":         {who: csrfRefused},

@@ -21,18 +21,20 @@ import (
 // API calls the pages' scripts make are authorized the same way.
 func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerFunc)) {
 	s.echo.Use(s.cookieCredentials)
-	page := func(path string, h pageHandler) {
+	pageFor := func(path string, r rule, h pageHandler) {
 		if !isPagePath(path) {
 			panic("web: " + path + " is missing from isPagePath")
 		}
-		add(http.MethodGet, path, users(everyone...), s.page(h))
+		add(http.MethodGet, path, r, s.page(h))
 	}
+	page := func(path string, h pageHandler) { pageFor(path, users(everyone...), h) }
 	page("/", s.handleStartPage)
 	page("/calendar", s.handleCalendarPage)
 	page("/acquire", s.handleAcquirePage)
 	page("/files", s.handleFilesPage)
 	page("/trace", s.handleTracePage)
 	page("/statements", s.handleStatementsPage)
+	pageFor("/reports", users(readersAll...), s.handleReportsPage)
 	add(http.MethodGet, "/signin", open(), s.handleSignInPage)
 	add(http.MethodPost, "/signin", open(), s.handleSignIn)
 	add(http.MethodPost, "/signout", open(), s.handleSignOut)
@@ -53,7 +55,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 // sign-in form.
 func isPagePath(p string) bool {
 	switch p {
-	case "/", "/calendar", "/acquire", "/files", "/trace", "/statements":
+	case "/", "/calendar", "/acquire", "/files", "/trace", "/statements", "/reports":
 		return true
 	}
 	return false
@@ -87,7 +89,7 @@ func (s *Server) pageBase(c echo.Context, me accounts.Principal) (web.Page, erro
 			return pg, err
 		}
 		pg.Viewer = &web.Viewer{ID: u.ID, Name: u.DisplayName, Email: u.Email, Role: string(me.Role),
-			Books: me.Role != accounts.RoleAuditor, Staff: me.FacilityWide()}
+			Books: me.Role != accounts.RoleAuditor, Staff: me.FacilityWide(), ReadsAll: me.CanReadEverything()}
 	}
 	return pg, nil
 }

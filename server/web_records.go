@@ -91,6 +91,27 @@ func (s *Server) handleStatementsPage(c echo.Context, me accounts.Principal, pg 
 	return s.render(c, http.StatusOK, "statements", "layout", d)
 }
 
+// handleReportsPage draws the utilization and recovery reports as charts.
+func (s *Server) handleReportsPage(c echo.Context, _ accounts.Principal, pg web.Page) error {
+	ctx := c.Request().Context()
+	pg.Title, pg.Nav, pg.Script = "Reports", "reports", "reports.js"
+	loc, err := s.facilityLocation(ctx)
+	if err != nil {
+		return err
+	}
+	ins, err := s.store.Instruments(ctx)
+	if err != nil {
+		return err
+	}
+	d := web.ReportsData{Page: pg, Month: s.now().In(loc).Format("2006-01")}
+	for _, in := range ins {
+		if in.Bookable {
+			d.Instruments = append(d.Instruments, web.Option{Value: in.ID, Label: in.Code + " — " + in.Name})
+		}
+	}
+	return s.render(c, http.StatusOK, "reports", "layout", d)
+}
+
 // handleTracePage finds a data file by its SHA-256 (the script fetches the trace).
 func (s *Server) handleTracePage(c echo.Context, _ accounts.Principal, pg web.Page) error {
 	pg.Title, pg.Nav, pg.Script = "Trace", "trace", "trace.js"

@@ -77,6 +77,8 @@ func exerciseWeb(t *testing.T, w *world) {
 		w.expect(http.StatusUnauthorized, http.MethodGet, p, "", nil, nil)
 		w.expect(http.StatusForbidden, http.MethodGet, p, w.agent, nil, nil)
 	}
+	w.expect(http.StatusOK, http.MethodGet, "/reports", w.tokens[accounts.RoleAuditor], nil, nil)
+	w.expect(http.StatusForbidden, http.MethodGet, "/reports", w.tokens[accounts.RoleResearcher], nil, nil)
 	w.expect(http.StatusBadRequest, http.MethodGet, "/calendar?date=31.12.2026", w.tokens[accounts.RoleStaff], nil, nil)
 
 	b := newBrowserClient(w)

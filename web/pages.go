@@ -72,6 +72,13 @@ type StatementsData struct {
 	Manage   bool
 }
 
+// ReportsData is the reports page.
+type ReportsData struct {
+	Page
+	Instruments []Option
+	Month       string // YYYY-MM
+}
+
 // TraceData is the trace page; Digest, when set, is traced on arrival.
 type TraceData struct {
 	Page

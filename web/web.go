@@ -36,7 +36,7 @@ type Pages struct {
 }
 
 // pageNames are the page templates; partials live in the page that owns them.
-var pageNames = []string{"signin", "start", "calendar", "acquire", "files", "trace", "statements"}
+var pageNames = []string{"signin", "start", "calendar", "acquire", "files", "trace", "statements", "reports"}
 
 var funcs = template.FuncMap{
 	"lower": strings.ToLower,
@@ -89,8 +89,8 @@ type Page struct {
 type Viewer struct {
 	ID, Name, Email, Role string
 	// Books: may make bookings; Staff: manager or staff, who book service time and
-	// for others.
-	Books, Staff bool
+	// for others; ReadsAll: reads every project (managers, staff, auditors).
+	Books, Staff, ReadsAll bool
 }
 
 // SignInData is the sign-in page.

@@ -1,0 +1,42 @@
+package browsertest
+
+import (
+	"testing"
+	"time"
+
+	"github.com/chromedp/chromedp"
+
+	"beamledger/accounts"
+)
+
+// TestReportsCharts: staff open the reports; every chart is drawn by the vendored
+// Chart.js under the page's Content-Security-Policy, and every table beside a chart
+// holds figures (eight weeks of utilization, projects, kinds, instruments).
+func TestReportsCharts(t *testing.T) {
+	s := newSite(t)
+	ctx := newBrowser(t)
+	s.signIn(t, ctx, accounts.RoleStaff)
+	run(t, ctx, "open the reports", chromedp.Navigate(s.url+"/reports"), chromedp.WaitVisible(css("#rep-form")))
+	waitText(t, ctx, "#proj-note", "h available", 20*time.Second)
+	deadline := time.Now().Add(20 * time.Second)
+	for eval[string](t, ctx, "ready", `document.body.dataset.reportsReady || ""`) != "true" {
+		if time.Now().After(deadline) {
+			t.Fatalf("the reports never finished drawing; error area: %q", text(t, ctx, "#rep-error"))
+		}
+		time.Sleep(200 * time.Millisecond)
+	}
+	for _, id := range []string{"util-chart", "proj-chart", "kind-chart", "rec-chart"} {
+		if !eval[bool](t, ctx, "chart "+id, `!!(window.Chart && Chart.getChart("`+id+`"))`) {
+			t.Errorf("chart %s was not drawn", id)
+		}
+	}
+	if n := eval[int](t, ctx, "weeks", `document.querySelectorAll("#util-table tbody tr").length`); n != 8 {
+		t.Errorf("%d weeks of utilization, want 8", n)
+	}
+	for _, sel := range []string{"#proj-table", "#kind-table", "#rec-table"} {
+		if n := eval[int](t, ctx, sel, `document.querySelectorAll("`+sel+` tbody tr").length`); n == 0 {
+			t.Errorf("%s is empty", sel)
+		}
+	}
+	screenshot(t, ctx, "reports")
+}
