@@ -81,6 +81,9 @@ type Config struct {
 	// LedgerSealInterval is how often each process seals committed ledger events,
 	// which bounds how long an event stays unsealed.
 	LedgerSealInterval time.Duration
+	// JobInterval is how often each process looks for no-shows and lapsed waitlist
+	// offers (the jobs take turns through row locks, so each is done once).
+	JobInterval time.Duration
 	// LedgerCheckpointRetention, when set, publishes every checkpoint the sealer
 	// signs to the object store as well (ledger/checkpoints/…), protected in
 	// compliance mode for this long where the store locks objects: a copy of the
@@ -135,6 +138,7 @@ func Defaults() Config {
 		AuthCacheTTL:       time.Second,
 		LedgerOrigin:       "beamledger.localhost/ledger",
 		LedgerSealInterval: 500 * time.Millisecond,
+		JobInterval:        time.Minute,
 		MinPasswordLength:  accounts.MinPasswordLength,
 		LoginPerAccount:    accounts.ThrottleRule{MaxFailures: 10, Window: 15 * time.Minute},
 		LoginPerAddress:    accounts.ThrottleRule{MaxFailures: 50, Window: 15 * time.Minute},
@@ -211,6 +215,9 @@ func (c Config) Validate() error {
 	}
 	if c.LedgerSealInterval < 10*time.Millisecond || c.LedgerSealInterval > time.Minute {
 		bad("ledger seal interval %s must be between 10ms and 1m", c.LedgerSealInterval)
+	}
+	if c.JobInterval < 100*time.Millisecond || c.JobInterval > time.Hour {
+		bad("job interval %s must be between 100ms and 1h", c.JobInterval)
 	}
 	if c.LedgerCheckpointRetention < 0 || c.LedgerCheckpointRetention > 100*365*24*time.Hour {
 		bad("ledger checkpoint retention %s must be between 0 and 100 years", c.LedgerCheckpointRetention)
@@ -353,6 +360,7 @@ func (c Config) LogValue() slog.Value {
 		slog.String("ledger_key_id", signingKID(c.LedgerKey)),
 		slog.Duration("ledger_seal_interval", c.LedgerSealInterval),
 		slog.Duration("ledger_checkpoint_retention", c.LedgerCheckpointRetention),
+		slog.Duration("job_interval", c.JobInterval),
 		slog.String("metrics_listen", c.MetricsListen),
 		slog.String("metrics_token", redactSecret(c.MetricsToken)),
 		slog.Bool("demo", c.Demo),

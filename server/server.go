@@ -119,7 +119,7 @@ func (s *Server) Serve(ctx context.Context, ln net.Listener) error {
 	}
 	errc := make(chan error, 1)
 	go func() { errc <- hs.Serve(ln) }()
-	go s.markNoShows(ctx, time.Minute)
+	go s.markNoShows(ctx, s.cfg.JobInterval)
 	go s.cleanupEvery(ctx)
 	go s.sealLedgerEvery(ctx)
 	select {

@@ -46,7 +46,7 @@ type cluster struct {
 }
 
 type clusterUser struct {
-	token, project string
+	id, token, project string
 }
 
 const clusterPassword = "three processes, one ledger"
@@ -111,7 +111,7 @@ func newCluster(t testing.TB, extraEnv ...string) *cluster {
 			}
 		}
 		emails = append(emails, email)
-		c.researchers = append(c.researchers, clusterUser{project: p.ID})
+		c.researchers = append(c.researchers, clusterUser{id: u.ID, project: p.ID})
 	}
 
 	bin := buildBinary(t)
@@ -169,7 +169,7 @@ func TestThreeProcesses(t *testing.T) {
 	if testing.Short() {
 		t.Skip("builds the binary and runs three processes against PostgreSQL and S3")
 	}
-	c := newCluster(t, "BEAMLEDGER_LEDGER_SEAL_INTERVAL=200ms", "BEAMLEDGER_UPLOAD_EXPIRY=4s")
+	c := newCluster(t, "BEAMLEDGER_LEDGER_SEAL_INTERVAL=200ms", "BEAMLEDGER_UPLOAD_EXPIRY=4s", "BEAMLEDGER_JOB_INTERVAL=300ms")
 	ctx := context.Background()
 
 	const workers, attempts = 24, 12
@@ -261,6 +261,7 @@ func TestThreeProcesses(t *testing.T) {
 
 	c.checkLedger(ctx, created.Load()+specimens.Load())
 	c.checkSweptOnce()
+	c.checkNoShowsOnce(ctx)
 	for i, p := range c.procs {
 		for _, line := range p.logLines() {
 			var l struct{ Level string }
@@ -434,6 +435,51 @@ func (c *cluster) checkSweptOnce() {
 	if got := c.sweptUploads() - before; got != abandoned {
 		t.Errorf("the processes' sweeps reported %d uploads between them, want each of %d exactly once", got, abandoned)
 	}
+}
+
+// checkNoShowsOnce records six bookings that began three hours ago and were never
+// used, and waits until they are marked as no-shows: the no-show job every
+// process runs must, between them, report each one exactly once.
+func (c *cluster) checkNoShowsOnce(ctx context.Context) {
+	t := c.t
+	before := c.loggedCount("no-shows marked", "bookings")
+	start := time.Now().UTC().Add(-3 * time.Hour).Truncate(time.Minute)
+	for i, u := range c.researchers {
+		nb := scheduling.NewBooking{InstrumentID: c.instrs[i%len(c.instrs)], ProjectID: u.project, UserID: u.id,
+			Kind: scheduling.KindIndependent, Start: start.Add(time.Duration(i/len(c.instrs)) * time.Hour), Actor: u.id}
+		nb.End = nb.Start.Add(30 * time.Minute)
+		if err := c.db.InsertBookingRow(ctx, nb); err != nil {
+			t.Fatal(err)
+		}
+	}
+	// These are the only bookings in the past, so the only no-shows there can be.
+	want := len(c.researchers)
+	waitFor(t, 60*time.Second, "the unused bookings marked as no-shows", func() bool {
+		var n int
+		err := c.sql.QueryRow(ctx, `SELECT count(*) FROM no_shows`).Scan(&n)
+		return err == nil && n == want
+	})
+	time.Sleep(500 * time.Millisecond)
+	if got := c.loggedCount("no-shows marked", "bookings") - before; got != want {
+		t.Errorf("the processes' no-show jobs reported %d bookings between them, want each of %d exactly once", got, want)
+	}
+	t.Logf("figure: three processes: %d no-shows marked once each by the job every process runs", want)
+}
+
+// loggedCount sums attribute attr of every log line msg of every process.
+func (c *cluster) loggedCount(msg, attr string) int {
+	n := 0
+	for _, p := range c.procs {
+		for _, line := range p.logLines() {
+			var l map[string]any
+			if json.Unmarshal([]byte(line), &l) == nil && l["msg"] == msg {
+				if v, ok := l[attr].(float64); ok {
+					n += int(v)
+				}
+			}
+		}
+	}
+	return n
 }
 
 // sweptUploads sums the uploads every process's cleanup reports having removed.

@@ -101,6 +101,7 @@ func serverFlags(fs *flag.FlagSet, cfg *server.Config) func() error {
 	e.boolean(&cfg.TrustProxyHeaders, "trust-proxy-headers", "BEAMLEDGER_TRUST_PROXY_HEADERS", "take client addresses from X-Forwarded-For")
 	e.str(&cfg.LedgerOrigin, "ledger-origin", "BEAMLEDGER_LEDGER_ORIGIN", "the ledger's name in its checkpoints, e.g. ledger.facility.example.org")
 	e.duration(&cfg.LedgerSealInterval, "ledger-seal-interval", "BEAMLEDGER_LEDGER_SEAL_INTERVAL", "how often ledger events are sealed into the tree")
+	e.duration(&cfg.JobInterval, "job-interval", "BEAMLEDGER_JOB_INTERVAL", "how often no-shows and lapsed waitlist offers are looked for")
 	e.duration(&cfg.LedgerCheckpointRetention, "ledger-checkpoint-retention", "BEAMLEDGER_LEDGER_CHECKPOINT_RETENTION", "publish signed checkpoints to the object store, under compliance-mode retention this long (0: do not)")
 	e.str(&cfg.MetricsListen, "metrics-listen", "BEAMLEDGER_METRICS_LISTEN", "separate host:port answering GET /metrics (empty: no metrics; a scrape token in $BEAMLEDGER_METRICS_TOKEN)")
 	hashN := int64(cfg.HashConcurrency)
