@@ -39,6 +39,9 @@ func (s suiteResult) outcome(f figure) outcome {
 		o.missing = f.Of.Bench + " " + f.Of.Unit
 		return o
 	}
+	if f.Seconds {
+		v /= 1e9
+	}
 	o.value, o.runs = v, s.Runs[f.Of]
 	x := v
 	if f.Per != nil {
@@ -129,7 +132,11 @@ func (r report) write(w io.Writer) {
 			if o.runs == 1 {
 				runs = "1 run"
 			}
-			fmt.Fprintf(w, "| %s | %s (%s) | %s | %s | %s | %s |\n", f.Label, value(o.value, f.Of.Unit), runs, anchorCol, ratioCol, target(f), metCol)
+			shown := value(o.value, f.Of.Unit)
+			if f.Seconds {
+				shown = num(o.value) + " s"
+			}
+			fmt.Fprintf(w, "| %s | %s (%s) | %s | %s | %s | %s |\n", f.Label, shown, runs, anchorCol, ratioCol, target(f), metCol)
 		}
 	}
 }

@@ -24,6 +24,8 @@ type figure struct {
 	// ≥ or ≤ Limit. An empty Op reports the figure without a target.
 	Op    string
 	Limit float64
+	// Seconds shows an absolute ns/op figure in seconds, its limit in seconds too.
+	Seconds bool
 }
 
 // ref names a median: a benchmark (without "Benchmark" and the -N suffix) and a unit.
@@ -76,6 +78,29 @@ var suites = []suite{
 				Per: anchor("Ledger/sha256_memory", "ns/op")},
 			{Label: "inclusion proof, p99 (ms)", Of: at("Ledger/inclusion_proof", "p99-ms"), Op: "≤", Limit: 5},
 			{Label: "inclusion proof, p50 (ms)", Of: at("Ledger/inclusion_proof", "p50-ms")},
+		},
+	},
+	{
+		Name: "trace", Packages: []string{"./storage/postgres/"}, Bench: "^BenchmarkTraceByDigest$", Benchtime: "2000x", Count: 1,
+		About: "Random digests looked up among 1,000,000 stored files (one in ten on an acquisition, each with its ledger event, all " +
+			"sealed), each trace gathered with its inclusion proofs.",
+		Figures: []figure{
+			{Label: "trace by digest, p99 (ms)", Of: at("TraceByDigest", "p99-ms"), Op: "≤", Limit: 20},
+			{Label: "trace by digest, p50 (ms)", Of: at("TraceByDigest", "p50-ms")},
+		},
+	},
+	{
+		Name: "cost-recovery", Packages: []string{"./storage/postgres/"}, Bench: "^BenchmarkCostRecovery$", Benchtime: "3x", Count: 1,
+		About: "One generated year: 40 instruments, 300 projects, 1,000,000 bookings with usage. Anchors: the single SQL aggregate " +
+			"giving the same totals; measured: every project's statement for a month (priced line by line, split across funding " +
+			"accounts, stored with its lines and ledger event) and every instrument's utilization report for the year.",
+		Figures: []figure{
+			{Label: "a month's statements for every project vs one SQL aggregate", Of: at("CostRecovery/statements_month/beamledger", "ns/op"),
+				Per: anchor("CostRecovery/statements_month/raw_sql", "ns/op"), Op: "≤", Limit: 1.5},
+			{Label: "a month's statements for every project (s)", Of: at("CostRecovery/statements_month/beamledger", "ns/op"), Op: "≤", Limit: 2, Seconds: true},
+			{Label: "the year's utilization report for every instrument vs one SQL aggregate", Of: at("CostRecovery/utilization_year/beamledger", "ns/op"),
+				Per: anchor("CostRecovery/utilization_year/raw_sql", "ns/op"), Op: "≤", Limit: 1.5},
+			{Label: "the year's utilization report for every instrument (s)", Of: at("CostRecovery/utilization_year/beamledger", "ns/op"), Op: "≤", Limit: 2, Seconds: true},
 		},
 	},
 	{
