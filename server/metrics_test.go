@@ -8,6 +8,7 @@ import (
 	"log/slog"
 	"net/http"
 	"net/http/httptest"
+	"path"
 	"strconv"
 	"strings"
 	"testing"
@@ -47,7 +48,7 @@ func scrape(t *testing.T, h http.Handler, token string) (int, map[string]float64
 	return rec.Code, samples
 }
 
-// TestMetricsScrape makes requests of several routes, an upload and a ledger seal,
+// TestMetricsScrape makes requests of several routes, two uploads and a ledger seal,
 // and finds each counted under its route template and status, with the database
 // pool, the ledger and the background jobs beside them.
 func TestMetricsScrape(t *testing.T) {
@@ -70,6 +71,11 @@ func TestMetricsScrape(t *testing.T) {
 	if r := w.upload("/api/v1/files?project_id="+w.own.ID+"&name=metrics.bin", researcher, body, nil, nil); r.StatusCode != http.StatusCreated {
 		t.Fatalf("upload: %d %s", r.StatusCode, r.Body)
 	}
+	tusPath, _ := w.createUpload(researcher, 700, "filename", "resumed.bin", "project_id", w.own.ID)
+	if r := w.patch(tusPath, researcher, 0, bytes.Repeat([]byte("scan"), 175)); r.StatusCode != http.StatusNoContent {
+		t.Fatalf("patch: %d %s", r.StatusCode, r.Body)
+	}
+	w.do(http.MethodGet, "/api/v1/no-such-thing-7f3a", researcher, nil, nil)
 	code, mid := scrape(t, h, "")
 	if code != http.StatusOK {
 		t.Fatalf("scrape: status %d", code)
@@ -86,6 +92,7 @@ func TestMetricsScrape(t *testing.T) {
 		"beamledger_http_request_duration_seconds_count" + me:                                                  3,
 		`beamledger_upload_bytes_total{route="/api/v1/files"}`:                                                 1000,
 		`beamledger_upload_duration_seconds_count{outcome="ok",route="/api/v1/files"}`:                         1,
+		`beamledger_upload_bytes_total{route="/api/v1/uploads/:upload_id"}`:                                    700,
 	} {
 		if got := delta(series); got != want {
 			t.Errorf("%s grew by %v, want %v", series, got, want)
@@ -98,7 +105,7 @@ func TestMetricsScrape(t *testing.T) {
 		t.Errorf("the +Inf bucket holds %v requests, the count %v", got, mid["beamledger_http_request_duration_seconds_count"+me])
 	}
 	for series := range mid {
-		if strings.Contains(series, w.instr.ID) {
+		if strings.Contains(series, w.instr.ID) || strings.Contains(series, "no-such-thing") || strings.Contains(series, path.Base(tusPath)) {
 			t.Errorf("a series names a record instead of a route template: %s", series)
 		}
 	}
