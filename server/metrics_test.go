@@ -200,3 +200,25 @@ func TestErrorLogsCarryRequestID(t *testing.T) {
 		t.Errorf("a record outside requests named one: %s", buf.String())
 	}
 }
+
+// TestMetricsSettings accepts a separate metrics address with or without a token and
+// refuses a malformed address, the API's own address and a short token, naming the
+// setting.
+func TestMetricsSettings(t *testing.T) {
+	ok := validConfig(t)
+	ok.MetricsListen, ok.MetricsToken = "127.0.0.1:9090", "a-scrape-token-of-24-chars"
+	if err := ok.Validate(); err != nil {
+		t.Errorf("metrics on 127.0.0.1:9090 with a token: %v", err)
+	}
+	for want, change := range map[string]func(*Config){
+		"metrics listen address":   func(c *Config) { c.MetricsListen = "9090" },
+		"must differ from the API": func(c *Config) { c.MetricsListen = c.ListenAddr },
+		"BEAMLEDGER_METRICS_TOKEN": func(c *Config) { c.MetricsListen, c.MetricsToken = "127.0.0.1:9090", "short" },
+	} {
+		c := validConfig(t)
+		change(&c)
+		if err := c.Validate(); err == nil || !strings.Contains(err.Error(), want) {
+			t.Errorf("Validate() = %v, want an error naming %q", err, want)
+		}
+	}
+}
