@@ -282,7 +282,7 @@ td.n,th.n{text-align:right;font-variant-numeric:tabular-nums}
 <thead><tr><th>#</th><th>Booking</th><th>Component</th><th>Rule</th><th>From</th><th>To</th><th class="n">Minutes</th><th class="n">Rate/h</th><th class="n">Amount</th><th>Accounts</th></tr></thead>
 <tbody>
 {{- $cur := .Currency}}
-{{range .Lines}}<tr><td>{{.LineNo}}</td><td>{{.BookingID}}{{if .Reason}}{{.Reason}}{{end}}</td><td>{{.Component}}</td><td>{{.Rule}}</td><td>{{instant .From}}</td><td>{{instant .To}}</td>
+{{range .Lines}}<tr><td>{{.LineNo}}</td><td>{{.BookingID}}{{if .Reason}}{{if .BookingID}}<br>{{end}}{{.Reason}}{{end}}</td><td>{{.Component}}</td><td>{{.Rule}}</td><td>{{instant .From}}</td><td>{{instant .To}}</td>
 <td class="n">{{.Minutes}}</td><td class="n">{{money .HourlyRateMinor $cur}}</td><td class="n">{{money .AmountMinor $cur}}</td>
 <td>{{range .Allocations}}{{.AccountID}}: {{money .AmountMinor $cur}}<br>{{end}}</td></tr>
 {{end}}</tbody>

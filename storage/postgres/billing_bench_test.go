@@ -21,8 +21,9 @@ var benchYear = time.Date(2031, 1, 1, 0, 0, 0, 0, time.UTC)
 
 // BenchmarkCostRecovery times, over one generated year (40 instruments, 300 projects,
 // BEAMLEDGER_BENCH_BOOKINGS bookings, 1 000 000 unless set, each with one usage),
-// every project's statement for one month and every instrument's utilization report
-// for the year, each beside the single SQL aggregate that gives the same totals (the
+// every project's statement for one month (ComputeStatements) and every instrument's
+// utilization report for the year (one read, UtilizationInputsAll, then one report per
+// instrument), each beside the single SQL aggregate that gives the same totals (the
 // anchor, "raw_sql"). The beamledger side prices line by line, splits across funding
 // accounts and stores every statement with its lines and ledger event; the anchor only
 // sums. Each side's totals are checked against the other's before timing.
@@ -81,12 +82,13 @@ func BenchmarkCostRecovery(b *testing.B) {
 
 	yearTo := benchYear.AddDate(1, 0, 0)
 	utilization := func() map[string][2]int {
+		all, err := db.UtilizationInputsAll(ctx, benchYear, yearTo)
+		if err != nil {
+			b.Fatal(err)
+		}
 		out := map[string][2]int{}
 		for _, id := range instruments {
-			in, err := db.UtilizationInputs(ctx, id, benchYear, yearTo)
-			if err != nil {
-				b.Fatal(err)
-			}
+			in := all[id]
 			r := scheduling.Utilization(id, benchYear, yearTo, time.UTC, in.Rules.OpeningHours,
 				time.Duration(in.Policy.CancellationWindowMinutes)*time.Minute, in.Bookings, in.Quotas, yearTo)
 			out[id] = [2]int{r.BookedMinutes, r.UsedMinutes}

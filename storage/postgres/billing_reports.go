@@ -84,73 +84,120 @@ type UtilizationInputs struct {
 // UtilizationInputs implements the read behind the utilization report. ErrNotFound
 // for an unknown instrument.
 func (db *DB) UtilizationInputs(ctx context.Context, instrumentID string, from, to time.Time) (UtilizationInputs, error) {
-	var in UtilizationInputs
 	if !accounts.ValidID(instrumentID) {
-		return in, beamledger.NotFound("instrument")
+		return UtilizationInputs{}, beamledger.NotFound("instrument")
 	}
-	var facilityRules, instrumentRules, override []byte
-	err := db.pool.QueryRow(ctx, `
-SELECT f.booking_rules, i.rules_override, i.billing_override FROM facility f CROSS JOIN instruments i
-WHERE f.id = 1 AND i.id = $1`, instrumentID).Scan(&facilityRules, &instrumentRules, &override)
+	all, err := db.utilizationInputs(ctx, instrumentID, from, to)
 	if err != nil {
-		return in, mapError(err, "instrument")
+		return UtilizationInputs{}, err
 	}
-	var fo, io scheduling.RulesOverride
-	var bo scheduling.BillingPolicyOverride
-	for _, u := range []struct {
-		raw []byte
-		v   any
-	}{{facilityRules, &fo}, {instrumentRules, &io}, {override, &bo}} {
-		if err := json.Unmarshal(u.raw, u.v); err != nil {
-			return in, err
-		}
+	in, ok := all[instrumentID]
+	if !ok {
+		return UtilizationInputs{}, beamledger.NotFound("instrument")
 	}
-	in.Rules = scheduling.DefaultRules().With(fo).With(io)
+	return *in, nil
+}
+
+// UtilizationInputsAll reads what every instrument's utilization report over
+// [from, to) needs, in one pass over the bookings: the facility's whole report.
+func (db *DB) UtilizationInputsAll(ctx context.Context, from, to time.Time) (map[string]*UtilizationInputs, error) {
+	return db.utilizationInputs(ctx, "", from, to)
+}
+
+// utilizationInputs reads the inputs of one instrument's report, or of every
+// instrument's when instrumentID is empty.
+func (db *DB) utilizationInputs(ctx context.Context, instrumentID string, from, to time.Time) (map[string]*UtilizationInputs, error) {
 	fp, err := facilityBillingPolicy(ctx, db.pool)
 	if err != nil {
-		return in, err
+		return nil, err
 	}
-	in.Policy = fp.With(bo)
-	// One row per booking and usage (a booking without usage has one row with NULL
-	// usage), in booking order: a flat join the planner can hash, and binary
-	// timestamps instead of JSON, matter at a year of bookings.
-	const q = `
-SELECT b.id::text, coalesce(b.project_id::text, ''), b.kind, lower(b.during), upper(b.during), b.status, b.cancelled_at,
-       b.displaced_by IS NOT NULL, n.booking_id IS NOT NULL, u.started_at, u.ended_at
-FROM bookings b
-LEFT JOIN no_shows n ON n.booking_id = b.id
-LEFT JOIN usages u ON u.booking_id = b.id
-WHERE b.instrument_id = $1 AND b.during && tstzrange($2, $3, '[)')
-ORDER BY b.id`
-	rows, err := db.pool.Query(ctx, q, instrumentID, from, to)
+	var facilityRules []byte
+	if err := db.pool.QueryRow(ctx, `SELECT booking_rules FROM facility WHERE id = 1`).Scan(&facilityRules); err != nil {
+		return nil, mapError(err, "facility")
+	}
+	var fo scheduling.RulesOverride
+	if err := json.Unmarshal(facilityRules, &fo); err != nil {
+		return nil, err
+	}
+	rows, err := db.pool.Query(ctx, `SELECT id::text, rules_override, billing_override FROM instruments WHERE $1 = '' OR id::text = $1`, instrumentID)
 	if err != nil {
-		return in, mapError(err, "booking")
+		return nil, mapError(err, "instrument")
 	}
-	var b scheduling.UtilizationBooking
-	var kind, status string
-	var started, ended *time.Time
-	_, err = pgx.ForEachRow(rows, []any{&b.ID, &b.ProjectID, &kind, &b.Start, &b.End, &status, &b.CancelledAt, &b.Displaced, &b.NoShow, &started, &ended}, func() error {
-		if n := len(in.Bookings); n == 0 || in.Bookings[n-1].ID != b.ID {
-			b.Kind, b.Status, b.Usages = scheduling.BookingKind(kind), scheduling.BookingStatus(status), nil
-			in.Bookings = append(in.Bookings, b)
+	out := map[string]*UtilizationInputs{}
+	var id string
+	var instrumentRules, override []byte
+	if _, err := pgx.ForEachRow(rows, []any{&id, &instrumentRules, &override}, func() error {
+		var io scheduling.RulesOverride
+		var bo scheduling.BillingPolicyOverride
+		if err := json.Unmarshal(instrumentRules, &io); err != nil {
+			return err
 		}
-		if started != nil {
-			last := &in.Bookings[len(in.Bookings)-1]
-			last.Usages = append(last.Usages, scheduling.Usage{BookingID: b.ID, StartedAt: *started, EndedAt: ended})
+		if err := json.Unmarshal(override, &bo); err != nil {
+			return err
 		}
+		out[id] = &UtilizationInputs{Rules: scheduling.DefaultRules().With(fo).With(io), Policy: fp.With(bo)}
 		return nil
-	})
-	if err != nil {
-		return in, mapError(err, "booking")
+	}); err != nil {
+		return nil, mapError(err, "instrument")
+	}
+	if err := utilizationBookings(ctx, db.pool, instrumentID, from, to, out); err != nil {
+		return nil, mapError(err, "booking")
 	}
 	qs, err := db.Quotas(ctx, "")
 	if err != nil {
-		return in, err
+		return nil, err
 	}
 	for _, q := range qs {
-		if q.InstrumentID == instrumentID {
+		if in, ok := out[q.InstrumentID]; ok {
 			in.Quotas = append(in.Quotas, q)
 		}
 	}
-	return in, nil
+	return out, nil
+}
+
+// utilizationBookings reads the bookings overlapping [from, to) of one instrument (or
+// all when instrumentID is empty) into their instruments' inputs: one row per booking
+// and usage (NULL usage for a booking without), a flat join the planner can hash, with
+// binary timestamps instead of JSON.
+func utilizationBookings(ctx context.Context, q querier, instrumentID string, from, to time.Time, out map[string]*UtilizationInputs) error {
+	const cols = `
+SELECT b.instrument_id::text, b.id::text, coalesce(b.project_id::text, ''), b.kind, lower(b.during), upper(b.during), b.status,
+       b.cancelled_at, b.displaced_by IS NOT NULL, n.booking_id IS NOT NULL, u.started_at, u.ended_at
+FROM bookings b
+LEFT JOIN no_shows n ON n.booking_id = b.id
+LEFT JOIN usages u ON u.booking_id = b.id
+WHERE b.during && tstzrange($1, $2, '[)')`
+	var rows pgx.Rows
+	var err error
+	if instrumentID == "" {
+		rows, err = q.Query(ctx, cols, from, to)
+	} else {
+		rows, err = q.Query(ctx, cols+` AND b.instrument_id = $3`, from, to, instrumentID)
+	}
+	if err != nil {
+		return err
+	}
+	at := map[string]int{} // booking id → index in its instrument's Bookings
+	var b scheduling.UtilizationBooking
+	var inst, kind, status string
+	var started, ended *time.Time
+	_, err = pgx.ForEachRow(rows, []any{&inst, &b.ID, &b.ProjectID, &kind, &b.Start, &b.End, &status, &b.CancelledAt,
+		&b.Displaced, &b.NoShow, &started, &ended}, func() error {
+		in, ok := out[inst]
+		if !ok {
+			return nil
+		}
+		i, seen := at[b.ID]
+		if !seen {
+			b.Kind, b.Status, b.Usages = scheduling.BookingKind(kind), scheduling.BookingStatus(status), nil
+			i = len(in.Bookings)
+			at[b.ID] = i
+			in.Bookings = append(in.Bookings, b)
+		}
+		if started != nil {
+			in.Bookings[i].Usages = append(in.Bookings[i].Usages, scheduling.Usage{BookingID: b.ID, StartedAt: *started, EndedAt: ended})
+		}
+		return nil
+	})
+	return err
 }
