@@ -350,29 +350,49 @@ func unitDirectives(t *testing.T, path, section string) map[string][]string {
 	return out
 }
 
+// sandbox is what every unit under deploy/systemd sets [practice: systemd.exec(5)
+// sandboxing options for a network service that writes only its own folders].
+var sandbox = map[string]string{
+	"NoNewPrivileges": "yes", "ProtectSystem": "strict", "PrivateTmp": "yes", "PrivateDevices": "yes",
+	"ProtectHome": "yes", "ProtectKernelTunables": "yes", "ProtectKernelModules": "yes",
+	"ProtectControlGroups": "yes", "RestrictSUIDSGID": "yes", "LockPersonality": "yes",
+	"MemoryDenyWriteExecute": "yes", "CapabilityBoundingSet": "", "User": "beamledger",
+}
+
 func TestSystemdUnit(t *testing.T) {
 	svc := unitDirectives(t, "systemd/beamledger.service", "Service")
-	// [practice: systemd.exec(5) sandboxing options for a network service that
-	// writes only its state directory]
-	for k, want := range map[string]string{
-		"NoNewPrivileges": "yes", "ProtectSystem": "strict", "PrivateTmp": "yes", "PrivateDevices": "yes",
-		"ProtectHome": "yes", "ProtectKernelTunables": "yes", "ProtectKernelModules": "yes",
-		"ProtectControlGroups": "yes", "RestrictSUIDSGID": "yes", "LockPersonality": "yes",
-		"MemoryDenyWriteExecute": "yes", "CapabilityBoundingSet": "", "User": "beamledger",
-		"StateDirectory": "beamledger", "ExecStart": "/usr/local/bin/beamledger serve",
-	} {
+	for k, want := range map[string]string{"StateDirectory": "beamledger", "ExecStart": "/usr/local/bin/beamledger serve"} {
 		if got := svc[k]; len(got) != 1 || got[0] != want {
 			t.Errorf("[Service] %s = %q, want %q", k, got, want)
 		}
 	}
-	if fams := strings.Join(svc["RestrictAddressFamilies"], " "); strings.Contains(fams, "AF_PACKET") || !strings.Contains(fams, "AF_INET") {
-		t.Errorf("RestrictAddressFamilies = %q", fams)
-	}
 	known := serverSettings(t)
-	for _, e := range svc["Environment"] {
-		name, _, _ := strings.Cut(e, "=")
-		if !knownSetting(known, name) {
-			t.Errorf("the unit sets %s, which the server does not read", name)
+	units, _ := filepath.Glob("systemd/*.service")
+	if len(units) < 3 {
+		t.Fatalf("units: %v", units)
+	}
+	for _, u := range units {
+		svc := unitDirectives(t, u, "Service")
+		for k, want := range sandbox {
+			if got := svc[k]; len(got) != 1 || got[0] != want {
+				t.Errorf("%s: [Service] %s = %q, want %q", u, k, got, want)
+			}
+		}
+		if fams := strings.Join(svc["RestrictAddressFamilies"], " "); strings.Contains(fams, "AF_PACKET") || !strings.Contains(fams, "AF_INET") {
+			t.Errorf("%s: RestrictAddressFamilies = %q", u, fams)
+		}
+		for _, e := range svc["Environment"] {
+			name, _, _ := strings.Cut(e, "=")
+			if !knownSetting(known, name) {
+				t.Errorf("%s sets %s, which the server does not read", u, name)
+			}
+		}
+		timer := strings.TrimSuffix(u, ".service") + ".timer"
+		if svc["Type"] != nil && svc["Type"][0] == "oneshot" {
+			tm := unitDirectives(t, timer, "Timer")
+			if len(tm["OnCalendar"]) != 1 || len(tm["Persistent"]) != 1 || tm["Persistent"][0] != "true" {
+				t.Errorf("%s: want one OnCalendar and Persistent=true, got %v", timer, tm)
+			}
 		}
 	}
 	env, err := os.ReadFile("systemd/beamledger.env")
