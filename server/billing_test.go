@@ -312,7 +312,8 @@ func TestBookingRefusedOnExpiredFunding(t *testing.T) {
 		t.Errorf("expired account: %s", r.Body)
 	}
 	// Inside the account's validity the same project books.
-	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/bookings", researcher, w.bookingBody(start, start.Add(time.Hour), scheduling.KindIndependent), nil)
+	var made bookingAnswer
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/bookings", researcher, w.bookingBody(start, start.Add(time.Hour), scheduling.KindIndependent), &made)
 	// Not yet valid: moved to start after the booking.
 	w.expect(http.StatusOK, http.MethodPatch, "/api/v1/funding-accounts/"+a.ID, manager,
 		map[string]any{"valid_from": start.Add(24 * time.Hour), "valid_until": start.Add(48 * time.Hour)}, nil)
@@ -320,5 +321,14 @@ func TestBookingRefusedOnExpiredFunding(t *testing.T) {
 		w.bookingBody(start.Add(2*time.Hour), start.Add(3*time.Hour), scheduling.KindIndependent), nil)
 	if !contains(r.Body, "may not be charged before") {
 		t.Errorf("not yet valid account: %s", r.Body)
+	}
+	// A move is checked the same way: into the account's validity, then out of it.
+	move := func(from time.Time) map[string]string {
+		return map[string]string{"start": from.Format(time.RFC3339), "end": from.Add(time.Hour).Format(time.RFC3339), "reason": "specimen late"}
+	}
+	w.expect(http.StatusOK, http.MethodPatch, "/api/v1/bookings/"+made.ID, researcher, move(start.Add(25*time.Hour)), nil)
+	r = w.expect(http.StatusUnprocessableEntity, http.MethodPatch, "/api/v1/bookings/"+made.ID, researcher, move(start.Add(49*time.Hour)), nil)
+	if !contains(r.Body, `"rule":"funding_account"`) {
+		t.Errorf("move past the account's validity: %s", r.Body)
 	}
 }

@@ -103,7 +103,7 @@ func (s *Server) handleBookingCreate(c echo.Context) error {
 	// Charges must have somewhere to go: a booking whose project's funding split posts
 	// to an account not valid over the booked time is refused now, not at month end.
 	// The refusal is only shown to those who may read the project.
-	if err := s.store.CheckBookingFunding(ctx, nb.ProjectID, nb.Start, nb.End); err != nil {
+	if err := s.store.CheckBookingFunding(ctx, nb.ProjectID, "", nb.Start, nb.End); err != nil {
 		if _, verr := s.visibleProject(ctx, nb.ProjectID); verr != nil {
 			return verr
 		}
@@ -268,6 +268,10 @@ func (s *Server) handleBookingMove(c echo.Context) error {
 	}
 	start, end, res, err := s.parseRange(ctx, in.Start, in.End)
 	if err != nil {
+		return err
+	}
+	// A moved booking's charges must still have a valid account to go to.
+	if err := s.store.CheckBookingFunding(ctx, cur.ProjectID, cur.ID, start, end); err != nil {
 		return err
 	}
 	now := s.now()

@@ -334,20 +334,26 @@ func (db *DB) SetBookingFunding(ctx context.Context, b scheduling.Booking, share
 	return mapError(err, "funding split")
 }
 
-// CheckBookingFunding refuses a booking of [start, end) in a project whose default
-// split posts to an account not valid over all of it (see scheduling.CheckFundingAt),
-// so that the refusal comes when the booking is made, not at month end. A project with
-// no default split is not checked here: its bookings need their own split, which is
-// checked when it is set.
-func (db *DB) CheckBookingFunding(ctx context.Context, projectID string, start, end time.Time) error {
-	if !accounts.ValidID(projectID) {
-		return nil // the booking itself reports the project
+// CheckBookingFunding refuses a booking of [start, end) whose charges would go to an
+// account not valid over all of it (see scheduling.CheckFundingAt), so that the
+// refusal comes when the booking is made or moved, not at month end. The split looked
+// at is the booking's own (bookingID, empty for a booking not yet made) or else the
+// project's default. A project with neither is not checked here: its bookings need a
+// split of their own, which is checked when it is set.
+func (db *DB) CheckBookingFunding(ctx context.Context, projectID, bookingID string, start, end time.Time) error {
+	if !accounts.ValidID(projectID) || (bookingID != "" && !accounts.ValidID(bookingID)) {
+		return nil // the booking itself reports the project or booking
 	}
 	const q = `
-SELECT f.account_id::text, f.basis_points, a.code, a.valid_from, a.valid_until
-FROM project_funding f JOIN funding_accounts a ON a.id = f.account_id
-WHERE f.project_id = $1 ORDER BY f.position`
-	rows, err := db.pool.Query(ctx, q, projectID)
+WITH own AS (SELECT account_id, basis_points, position FROM booking_funding WHERE booking_id = nullif($2, '')::uuid),
+split AS (
+    SELECT account_id, basis_points, position FROM own
+    UNION ALL
+    SELECT account_id, basis_points, position FROM project_funding
+    WHERE project_id = $1 AND NOT EXISTS (SELECT 1 FROM own))
+SELECT s.account_id::text, s.basis_points, a.code, a.valid_from, a.valid_until
+FROM split s JOIN funding_accounts a ON a.id = s.account_id ORDER BY s.position`
+	rows, err := db.pool.Query(ctx, q, projectID, bookingID)
 	if err != nil {
 		return mapError(err, "funding split")
 	}
