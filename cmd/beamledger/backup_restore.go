@@ -27,7 +27,8 @@ objects, an empty object store, both named by BEAMLEDGER_* as for serve. Every
 object and the dump are checked against the manifest before anything is written; a
 backup that does not match its manifest is refused (exit 3). A target that already
 holds tables or objects is refused. A backup made with -with-objects=false restores
-the database only, and checks that the object store holds every listed object.
+the database only, into a store that must already hold every listed object (checked
+first).
 `
 
 // cmdRestore restores a backup folder.
@@ -79,6 +80,8 @@ func cmdRestore(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		if err := checkStoreEmpty(ctx, store); err != nil {
 			return err
 		}
+	} else if err := checkStoreHolds(ctx, store, m); err != nil {
+		return &exitError{exitFindings, err}
 	}
 	name, env := pgConnection(dbURL)
 	if err := runPGTool(ctx, env, pgRestore, "--single-transaction", "--exit-on-error", "--no-owner", "--no-acl",
@@ -99,8 +102,6 @@ func cmdRestore(ctx context.Context, args []string, stdout, stderr io.Writer) er
 				return fmt.Errorf("restoring objects (the database is restored; empty the store and the database before trying again): %w", err)
 			}
 		}
-	} else if err := checkStoreHolds(ctx, store, m); err != nil {
-		return &exitError{exitFindings, err}
 	}
 	fmt.Fprintf(stdout, "restored %s: schema version %d, %d objects (%s)%s\n", dir, m.SchemaVersion, m.ObjectCount,
 		byteSize(m.ObjectBytes), map[bool]string{true: " copied into " + store.Name(), false: " found in " + store.Name()}[m.ObjectsCopied])
@@ -228,7 +229,7 @@ func copyObjectIn(ctx context.Context, store objects.Store, o manifestObject, ro
 }
 
 // checkStoreHolds checks that the store holds every listed object at its size, for
-// a backup that did not copy them.
+// a backup that did not copy them; it runs before anything is restored.
 func checkStoreHolds(ctx context.Context, store objects.Store, m manifest) error {
 	var missing []error
 	for _, o := range m.Objects {
@@ -240,7 +241,7 @@ func checkStoreHolds(ctx context.Context, store objects.Store, m manifest) error
 		}
 	}
 	if len(missing) > 0 {
-		return fmt.Errorf("the database is restored, but the store %s lacks %d listed object(s): %w", store.Name(), len(missing), errors.Join(missing...))
+		return fmt.Errorf("refusing to restore: the store %s lacks %d object(s) the backup lists and does not hold: %w", store.Name(), len(missing), errors.Join(missing...))
 	}
 	return nil
 }

@@ -184,6 +184,32 @@ func TestBackupRestore(t *testing.T) {
 	if err := run(ctx, []string{"restore", dir}, &out, &errOut); err == nil {
 		t.Error("a second restore into the restored database was accepted")
 	}
+
+	// A backup that lists the objects without copying them restores only against a
+	// store that holds them: refused on the empty bucket, accepted on the source one.
+	useFacility(t, srcURL, srcS3)
+	listed := filepath.Join(t.TempDir(), "listed")
+	if err := run(ctx, []string{"backup", "-with-objects=false", listed}, &out, &errOut); err != nil {
+		t.Fatalf("backup -with-objects=false: %v", err)
+	}
+	if _, err := os.Stat(filepath.Join(listed, objectsDir)); !errors.Is(err, os.ErrNotExist) {
+		t.Errorf("a backup without objects has an objects folder: %v", err)
+	}
+	listedURL, bareS3 := emptyDatabase(t), objectstest.Config(t)
+	bare := objectstest.Open(t, bareS3)
+	useFacility(t, listedURL, bareS3)
+	if err := run(ctx, []string{"restore", listed}, &out, &errOut); exitCode(err) != exitFindings {
+		t.Errorf("restore of a listed backup into a store without its objects: %v (exit %d)", err, exitCode(err))
+	}
+	checkEmpty(t, listedURL, bare)
+	useFacility(t, listedURL, srcS3)
+	if err := run(ctx, []string{"restore", listed}, &out, &errOut); err != nil {
+		t.Fatalf("restore of a listed backup beside its objects: %v", err)
+	}
+	errOut.Reset()
+	if err := run(ctx, []string{"scrub"}, &out, &errOut); err != nil || !strings.Contains(errOut.String(), "scrub done: 2 of 2 objects") {
+		t.Errorf("scrub after restoring a listed backup: %v %q", err, errOut.String())
+	}
 }
 
 // checkMetricsListener scrapes the server's separate metrics listener without the
