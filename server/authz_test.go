@@ -99,6 +99,7 @@ var routeMatrix = map[string]routeExpectation{
 	"GET /trace":            {who: pagesOnly},
 	"GET /statements":       {who: pagesOnly},
 	"GET /reports":          {who: readersPage},
+	"GET /ledger":           {who: pagesOnly},
 	"GET /signin":           {who: openToAll},
 	"POST /signin":          {who: csrfRefused},
 	"POST /signout":         {who: csrfRefused},

@@ -35,6 +35,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 	page("/trace", s.handleTracePage)
 	page("/statements", s.handleStatementsPage)
 	pageFor("/reports", users(readersAll...), s.handleReportsPage)
+	page("/ledger", s.handleLedgerPage)
 	add(http.MethodGet, "/signin", open(), s.handleSignInPage)
 	add(http.MethodPost, "/signin", open(), s.handleSignIn)
 	add(http.MethodPost, "/signout", open(), s.handleSignOut)
@@ -55,7 +56,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 // sign-in form.
 func isPagePath(p string) bool {
 	switch p {
-	case "/", "/calendar", "/acquire", "/files", "/trace", "/statements", "/reports":
+	case "/", "/calendar", "/acquire", "/files", "/trace", "/statements", "/reports", "/ledger":
 		return true
 	}
 	return false

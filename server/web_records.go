@@ -91,6 +91,13 @@ func (s *Server) handleStatementsPage(c echo.Context, me accounts.Principal, pg 
 	return s.render(c, http.StatusOK, "statements", "layout", d)
 }
 
+// handleLedgerPage shows the ledger's head and checkpoints (the script checks their
+// signatures).
+func (s *Server) handleLedgerPage(c echo.Context, me accounts.Principal, pg web.Page) error {
+	pg.Title, pg.Nav, pg.Script = "Ledger", "ledger", "ledger.js"
+	return s.render(c, http.StatusOK, "ledger", "layout", web.LedgerData{Page: pg, Manage: me.Role == accounts.RoleManager})
+}
+
 // handleReportsPage draws the utilization and recovery reports as charts.
 func (s *Server) handleReportsPage(c echo.Context, _ accounts.Principal, pg web.Page) error {
 	ctx := c.Request().Context()

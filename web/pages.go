@@ -72,6 +72,12 @@ type StatementsData struct {
 	Manage   bool
 }
 
+// LedgerData is the ledger page; Manage offers managers an on-demand checkpoint.
+type LedgerData struct {
+	Page
+	Manage bool
+}
+
 // ReportsData is the reports page.
 type ReportsData struct {
 	Page
