@@ -50,7 +50,7 @@ func Verify(r io.ReaderAt, size int64, key note.Verifier) (Summary, error) {
 	if err != nil {
 		return s, fmt.Errorf("not a zip archive: %w", err)
 	}
-	v := &verifier{zr: zr, files: map[string]*zip.File{}}
+	v := &verifier{zr: zr, files: map[string]*zip.File{}, hashed: map[string]hashedMember{}}
 	for _, f := range zr.File {
 		if _, dup := v.files[f.Name]; dup {
 			v.fail("member %s appears twice", f.Name)
@@ -79,6 +79,14 @@ type verifier struct {
 	zr       *zip.Reader
 	files    map[string]*zip.File
 	problems []error
+	// hashed keeps each member's digest and size once streamed, so a data file of
+	// many gigabytes is read once, not once for the manifest and again for itself.
+	hashed map[string]hashedMember
+}
+
+type hashedMember struct {
+	digest string
+	size   int64
 }
 
 func (v *verifier) fail(format string, args ...any) {
@@ -106,8 +114,11 @@ func (v *verifier) read(name string) []byte {
 	return b
 }
 
-// digestOf streams a member through SHA-256, whatever its size.
+// digestOf streams a member through SHA-256, whatever its size, once.
 func (v *verifier) digestOf(f *zip.File) (string, int64, error) {
+	if h, ok := v.hashed[f.Name]; ok {
+		return h.digest, h.size, nil
+	}
 	rc, err := f.Open()
 	if err != nil {
 		return "", 0, err
@@ -115,7 +126,12 @@ func (v *verifier) digestOf(f *zip.File) (string, int64, error) {
 	defer rc.Close()
 	h := sha256.New()
 	n, err := io.Copy(h, rc)
-	return hex.EncodeToString(h.Sum(nil)), n, err
+	if err != nil {
+		return "", n, err
+	}
+	d := hex.EncodeToString(h.Sum(nil))
+	v.hashed[f.Name] = hashedMember{d, n}
+	return d, n, nil
 }
 
 // checkManifest checks every member against the manifest, both ways.
