@@ -125,8 +125,14 @@ func Write(w io.Writer, c Contents) error {
 	return zw.Close()
 }
 
-// DataName is the member holding a data file's bytes.
-func DataName(f provenance.DataFile) string { return DataDir + f.FileName }
+// DataName is the member holding a data file's bytes: its recorded name, which has
+// no directories; "." (a name the upload accepts) would name the folder itself.
+func DataName(f provenance.DataFile) string {
+	if f.FileName == "." || f.FileName == "" {
+		return DataDir + "data-file"
+	}
+	return DataDir + f.FileName
+}
 
 // EventName and ProofName are the members of the sealed event at index.
 func EventName(index int64) string { return EventDir + strconv.FormatInt(index, 10) + ".json" }

@@ -378,3 +378,12 @@ func TestBundleStreamsData(t *testing.T) {
 		t.Errorf("allocated %d bytes for 256 MiB against %d for 1 MiB", large, small)
 	}
 }
+
+// TestDataName keeps the data member inside data/ whatever the recorded name.
+func TestDataName(t *testing.T) {
+	for name, want := range map[string]string{"frame.tif": "data/frame.tif", ".": "data/data-file", "..x": "data/..x"} {
+		if got := bundle.DataName(provenance.DataFile{FileName: name}); got != want {
+			t.Errorf("DataName(%q) = %q, want %q", name, got, want)
+		}
+	}
+}
