@@ -10,7 +10,7 @@ run:
 	$(GO) run ./cmd/beamledger demo
 
 test: fmt-check
-	$(GO) run ./deploy/testenv -- sh -c '$(GO) vet ./... && $(GO) test -count=1 ./...'
+	$(GO) run ./deploy/testenv -- sh -c '$(GO) vet ./... && $(GO) test -count=1 -timeout 30m ./...'
 
 # Every benchmark beside its anchor, in one run, written to BENCHMARKS.md with the
 # machine, versions, medians and ratios (deploy/benchreport). SUITES=booking,ledger

@@ -93,6 +93,8 @@ func New(cfg Config, store *postgres.DB, log *slog.Logger, now func() time.Time)
 		// Data files stream to the object store; JSON bodies stay small.
 		http.MethodPost + " /api/v1/files":               cfg.MaxFileBytes,
 		http.MethodPatch + " /api/v1/uploads/:upload_id": cfg.MaxFileBytes,
+		// A trace by bytes hashes the body as it streams and keeps none of it.
+		http.MethodPost + " /api/v1/trace": cfg.MaxFileBytes,
 	}))
 	s.echo = e
 	if err := s.routes(); err != nil {
