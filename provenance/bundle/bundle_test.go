@@ -25,7 +25,7 @@ const rfc8032Seed = "9d61b19deffd5a60ba844af492ec2cc44449c5697b326919703bac031ca
 
 const origin = "ledger.facility.example"
 
-func signer(t *testing.T, seedHex string) *provenance.CheckpointSigner {
+func signer(t testing.TB, seedHex string) *provenance.CheckpointSigner {
 	t.Helper()
 	seed, _ := hex.DecodeString(seedHex)
 	s, err := provenance.NewCheckpointSigner(origin, ed25519.NewKeyFromSeed(seed))
@@ -50,7 +50,7 @@ func (m *memLog) ReadHashes(idx []int64) ([]tlog.Hash, error) {
 // record, acquisition and a derivation from it are in a ledger of four sealed
 // events (one of another record between them) signed with the RFC 8032 test key,
 // plus one event not yet sealed.
-func fixture(t *testing.T) (provenance.Trace, []byte) {
+func fixture(t testing.TB) (provenance.Trace, []byte) {
 	t.Helper()
 	data := []byte("abc")
 	at := time.Date(2026, 11, 3, 9, 30, 0, 0, time.UTC)
@@ -121,7 +121,7 @@ func fixture(t *testing.T) (provenance.Trace, []byte) {
 	return tr, data
 }
 
-func write(t *testing.T, tr provenance.Trace, data []byte) []byte {
+func write(t testing.TB, tr provenance.Trace, data []byte) []byte {
 	t.Helper()
 	c := bundle.Contents{Trace: tr, Namespace: "https://" + origin + "/prov#", Published: time.Date(2026, 12, 1, 0, 0, 0, 0, time.UTC),
 		FileURL: "https://facility.example/api/v1/files/" + tr.File.ID + "/content"}
