@@ -85,9 +85,9 @@
       return;
     }
     $("#book-error").replaceChildren();
-    $("#book-ok").textContent = done(r.body);
     mark(null);
-    await reload();
+    await reload(); // the grid shows the change before the panel reports it
+    $("#book-ok").textContent = done(r.body);
   }
 
 

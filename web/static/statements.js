@@ -49,8 +49,8 @@
     const r = await BL.api("/api/v1/statements/" + s.id + "/issue", { method: "POST" });
     if (!r.ok) { BL.showError($("#st-error"), r.body); return; }
     $("#st-error").replaceChildren();
-    $("#st-ok").textContent = "Issued the statement of " + month(s.period_start) + ": " + money(r.body.total_minor, r.body.currency) + ".";
     await list();
+    $("#st-ok").textContent = "Issued the statement of " + month(s.period_start) + ": " + money(r.body.total_minor, r.body.currency) + ".";
   }
 
   document.addEventListener("DOMContentLoaded", () => {
@@ -62,8 +62,8 @@
         const r = await BL.api("/api/v1/projects/" + $("#st-project").value + "/statements", { method: "POST", body: { month: f.elements.month.value } });
         if (!r.ok) { BL.showError($("#st-error"), r.body); $("#st-ok").textContent = ""; return; }
         $("#st-error").replaceChildren();
-        $("#st-ok").textContent = "Draft of " + month(r.body.period_start) + " computed: " + money(r.body.total_minor, r.body.currency) + ".";
         await list();
+        $("#st-ok").textContent = "Draft of " + month(r.body.period_start) + " computed: " + money(r.body.total_minor, r.body.currency) + ".";
       });
     }
     list();
