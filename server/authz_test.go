@@ -76,6 +76,8 @@ var (
 	pagesOnly = access{wUnauth, wAllow, wAllow, wAllow, wAllow, wDeny}
 	// readersPage is a page for those who read every project.
 	readersPage = access{wUnauth, wAllow, wAllow, wDeny, wAllow, wDeny}
+	// opsPage is a page for managers and staff.
+	opsPage = access{wUnauth, wAllow, wAllow, wDeny, wDeny, wDeny}
 	// csrfRefused is a browser form post sent without the page's CSRF token.
 	csrfRefused = access{wDeny, wDeny, wDeny, wDeny, wDeny, wDeny}
 	// uploadWriters is who reaches staff's resumable upload.
@@ -100,6 +102,7 @@ var routeMatrix = map[string]routeExpectation{
 	"GET /statements":       {who: pagesOnly},
 	"GET /reports":          {who: readersPage},
 	"GET /ledger":           {who: pagesOnly},
+	"GET /qualifications":   {who: opsPage},
 	"GET /signin":           {who: openToAll},
 	"POST /signin":          {who: csrfRefused},
 	"POST /signout":         {who: csrfRefused},

@@ -36,6 +36,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 	page("/statements", s.handleStatementsPage)
 	pageFor("/reports", users(readersAll...), s.handleReportsPage)
 	page("/ledger", s.handleLedgerPage)
+	pageFor("/qualifications", users(facilityOps...), s.handleQualificationsPage)
 	add(http.MethodGet, "/signin", open(), s.handleSignInPage)
 	add(http.MethodPost, "/signin", open(), s.handleSignIn)
 	add(http.MethodPost, "/signout", open(), s.handleSignOut)
@@ -56,7 +57,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 // sign-in form.
 func isPagePath(p string) bool {
 	switch p {
-	case "/", "/calendar", "/acquire", "/files", "/trace", "/statements", "/reports", "/ledger":
+	case "/", "/calendar", "/acquire", "/files", "/trace", "/statements", "/reports", "/ledger", "/qualifications":
 		return true
 	}
 	return false

@@ -91,6 +91,30 @@ func (s *Server) handleStatementsPage(c echo.Context, me accounts.Principal, pg 
 	return s.render(c, http.StatusOK, "statements", "layout", d)
 }
 
+// handleQualificationsPage lets staff grant and revoke qualifications.
+func (s *Server) handleQualificationsPage(c echo.Context, _ accounts.Principal, pg web.Page) error {
+	ctx := c.Request().Context()
+	pg.Title, pg.Nav, pg.Script = "Qualifications", "qualifications", "qualifications.js"
+	d := web.QualificationsData{Page: pg}
+	us, err := s.store.Users(ctx, accounts.UserFilter{})
+	if err != nil {
+		return err
+	}
+	for _, u := range us {
+		if !u.Disabled && u.Role != accounts.RoleAuditor {
+			d.Users = append(d.Users, web.Option{Value: u.ID, Label: u.DisplayName + " (" + string(u.Role) + ")"})
+		}
+	}
+	ins, err := s.store.Instruments(ctx)
+	if err != nil {
+		return err
+	}
+	for _, in := range ins {
+		d.Instruments = append(d.Instruments, web.Option{Value: in.ID, Label: in.Code + " — " + in.Name})
+	}
+	return s.render(c, http.StatusOK, "qualifications", "layout", d)
+}
+
 // handleLedgerPage shows the ledger's head and checkpoints (the script checks their
 // signatures).
 func (s *Server) handleLedgerPage(c echo.Context, me accounts.Principal, pg web.Page) error {

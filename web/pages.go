@@ -72,6 +72,12 @@ type StatementsData struct {
 	Manage   bool
 }
 
+// QualificationsData is the qualifications page for staff and managers.
+type QualificationsData struct {
+	Page
+	Users, Instruments []Option
+}
+
 // LedgerData is the ledger page; Manage offers managers an on-demand checkpoint.
 type LedgerData struct {
 	Page
