@@ -103,6 +103,7 @@ var routeMatrix = map[string]routeExpectation{
 	"GET /reports":          {who: readersPage},
 	"GET /ledger":           {who: pagesOnly},
 	"GET /qualifications":   {who: opsPage},
+	"GET /rates":            {who: pagesOnly},
 	"GET /signin":           {who: openToAll},
 	"POST /signin":          {who: csrfRefused},
 	"POST /signout":         {who: csrfRefused},

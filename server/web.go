@@ -37,6 +37,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 	pageFor("/reports", users(readersAll...), s.handleReportsPage)
 	page("/ledger", s.handleLedgerPage)
 	pageFor("/qualifications", users(facilityOps...), s.handleQualificationsPage)
+	page("/rates", s.handleRatesPage)
 	add(http.MethodGet, "/signin", open(), s.handleSignInPage)
 	add(http.MethodPost, "/signin", open(), s.handleSignIn)
 	add(http.MethodPost, "/signout", open(), s.handleSignOut)
@@ -57,7 +58,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 // sign-in form.
 func isPagePath(p string) bool {
 	switch p {
-	case "/", "/calendar", "/acquire", "/files", "/trace", "/statements", "/reports", "/ledger", "/qualifications":
+	case "/", "/calendar", "/acquire", "/files", "/trace", "/statements", "/reports", "/ledger", "/qualifications", "/rates":
 		return true
 	}
 	return false

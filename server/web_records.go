@@ -115,6 +115,33 @@ func (s *Server) handleQualificationsPage(c echo.Context, _ accounts.Principal, 
 	return s.render(c, http.StatusOK, "qualifications", "layout", d)
 }
 
+// handleRatesPage shows the rate schedules; managers also get the rate calculator.
+func (s *Server) handleRatesPage(c echo.Context, me accounts.Principal, pg web.Page) error {
+	ctx := c.Request().Context()
+	pg.Title, pg.Nav, pg.Script = "Rates", "rates", "rates.js"
+	f, err := s.store.Facility(ctx)
+	if err != nil {
+		return err
+	}
+	loc, err := time.LoadLocation(f.TimeZone)
+	if err != nil {
+		return err
+	}
+	now := s.now().In(loc)
+	d := web.RatesData{Page: pg, Manage: me.Role == accounts.RoleManager, Currency: f.Currency,
+		NextMonth: time.Date(now.Year(), now.Month()+1, 1, 0, 0, 0, 0, loc).Format(time.DateOnly)}
+	ins, err := s.store.Instruments(ctx)
+	if err != nil {
+		return err
+	}
+	for _, in := range ins {
+		if in.Bookable {
+			d.Instruments = append(d.Instruments, web.Option{Value: in.ID, Label: in.Code + " — " + in.Name})
+		}
+	}
+	return s.render(c, http.StatusOK, "rates", "layout", d)
+}
+
 // handleLedgerPage shows the ledger's head and checkpoints (the script checks their
 // signatures).
 func (s *Server) handleLedgerPage(c echo.Context, me accounts.Principal, pg web.Page) error {

@@ -70,7 +70,7 @@ func csrfOf(t *testing.T, page response) string {
 func exerciseWeb(t *testing.T, w *world) {
 	researcher := w.users[accounts.RoleResearcher].Email
 	// Pages answer people, refuse instrument agents, and ask for credentials.
-	for _, p := range []string{"/", "/calendar", "/calendar?view=day", "/calendar?view=facility", "/acquire", "/files", "/statements", "/ledger", "/trace", "/trace?sha256=" + strings.Repeat("ab", 32)} {
+	for _, p := range []string{"/", "/calendar", "/calendar?view=day", "/calendar?view=facility", "/acquire", "/files", "/statements", "/rates", "/ledger", "/trace", "/trace?sha256=" + strings.Repeat("ab", 32)} {
 		if r := w.expect(http.StatusOK, http.MethodGet, p, w.tokens[accounts.RoleResearcher], nil, nil); !bytes.Contains(r.Body, []byte("Test Facility")) {
 			t.Errorf("GET %s does not name the facility: %.200s", p, r.Body)
 		}

@@ -78,6 +78,14 @@ type QualificationsData struct {
 	Users, Instruments []Option
 }
 
+// RatesData is the rates page; Manage shows managers the rate calculator.
+type RatesData struct {
+	Page
+	Instruments         []Option
+	Manage              bool
+	Currency, NextMonth string
+}
+
 // LedgerData is the ledger page; Manage offers managers an on-demand checkpoint.
 type LedgerData struct {
 	Page
