@@ -14,6 +14,7 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 
@@ -145,6 +146,7 @@ func newBrowser(t *testing.T) context.Context {
 	}
 	ctx, cancelTimeout := context.WithTimeout(browser, 2*time.Minute)
 	t.Cleanup(func() { cancelTimeout(); cancelBrowser(); cancelAlloc() })
+	watchConsole(t, browser)
 	return ctx
 }
 
@@ -322,4 +324,33 @@ func fmtSscan(s string, into ...*int) (int, error) {
 		return n, errors.New("too few numbers")
 	}
 	return n, nil
+}
+
+// watchConsole fails the test on any uncaught exception in a page and on anything
+// the Content-Security-Policy refused: a script error or a blocked asset is a broken
+// page even when the step under test happens to pass.
+func watchConsole(t *testing.T, ctx context.Context) {
+	t.Helper()
+	var mu sync.Mutex
+	var bad []string
+	messages := chromedp.Console(ctx)
+	go func() {
+		for m, err := range messages {
+			if err != nil {
+				return
+			}
+			if m.IsException() || strings.Contains(m.Text, "Content Security Policy") || strings.Contains(m.Text, "Refused to") {
+				mu.Lock()
+				bad = append(bad, m.String())
+				mu.Unlock()
+			}
+		}
+	}()
+	t.Cleanup(func() {
+		mu.Lock()
+		defer mu.Unlock()
+		for _, b := range bad {
+			t.Errorf("browser console: %s", b)
+		}
+	})
 }

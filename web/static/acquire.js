@@ -9,6 +9,7 @@
   let specimen = null;
   let timer = null;
   let asked = 0;
+  let filling = 0; // the latest booking chosen; answers for earlier ones are dropped
 
   // fmt shows four significant digits, in plain notation between 0.001 and a million.
   const fmt = (v) => {
@@ -89,9 +90,10 @@
     f.started_at.value = opt.dataset.start;
     f.ended_at.value = opt.dataset.end;
     const id = opt.dataset.instrument;
+    const n = ++filling;
     const [ins, tun, cal] = await Promise.all([BL.api("/api/v1/instruments/" + id),
       BL.api("/api/v1/instruments/" + id + "/tunings"), BL.api("/api/v1/instruments/" + id + "/calibrations")]);
-    if (!ins.ok) return;
+    if (!ins.ok || n !== filling) return;
     const v = $("#c-voltage");
     v.replaceChildren(...ins.body.accelerating_voltages_v.map((x) => BL.el("option", { value: (x / 1000) + " kV", text: (x / 1000) + " kV" })));
     if (v.options.length) v.value = v.options[v.options.length - 1].value; // the highest, unless the tuning says otherwise
