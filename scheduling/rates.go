@@ -137,8 +137,10 @@ func SchedulePieces(schedules []RateSchedule, instrumentID string, start, end ti
 		return nil, nil
 	}
 	if len(own) == 0 || start.Before(own[0].EffectiveFrom) {
+		at := start.UTC().Format(time.RFC3339)
 		return nil, beamledger.RuleViolation("rate_schedule_in_force",
-			fmt.Sprintf("no rate schedule of instrument %s is in force at %s", instrumentID, start.UTC().Format(time.RFC3339)), nil)
+			fmt.Sprintf("no rate schedule of instrument %s is in force at %s", instrumentID, at),
+			map[string]string{"rate_schedules": "instrument " + instrumentID + " needs a schedule effective at or before " + at})
 	}
 	var pieces []SchedulePiece
 	for i, s := range own {

@@ -65,6 +65,12 @@ type BookingContext struct {
 	// HeldUntil, when set, says the range overlaps time offered to someone else from
 	// the waitlist, held for them until then.
 	HeldUntil *time.Time
+	// FundingSplit and FundingAccounts are the shares of the booking's funding split
+	// (its own, else its project's) whose accounts are not valid over all of the
+	// range, with those accounts, in the split's order: empty when every account of
+	// the split may be charged, ready for CheckFundingAt.
+	FundingSplit    []FundingShare
+	FundingAccounts []FundingAccount
 }
 
 // BookingFilter narrows a booking listing to bookings overlapping [From, To).

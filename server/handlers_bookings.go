@@ -100,18 +100,16 @@ func (s *Server) handleBookingCreate(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	// Charges must have somewhere to go: a booking whose project's funding split posts
-	// to an account not valid over the booked time is refused now, not at month end.
-	// The refusal is only shown to those who may read the project.
-	if err := s.store.CheckBookingFunding(ctx, nb.ProjectID, "", nb.Start, nb.End); err != nil {
-		if _, verr := s.visibleProject(ctx, nb.ProjectID); verr != nil {
-			return verr
-		}
-		return err
-	}
 	now := s.now()
 	b, err := s.store.CreateBooking(ctx, nb, now, func(bc scheduling.BookingContext) error {
-		return checkNewBooking(me, nb, bc, now)
+		if err := checkNewBooking(me, nb, bc, now); err != nil {
+			return err
+		}
+		// Charges must have somewhere to go: a booking whose funding split posts to an
+		// account not valid over the booked time is refused now, not at month end. The
+		// split's accounts come with the booking context, in the same statement; they
+		// are named only after the checks above found the booked user in the project.
+		return scheduling.CheckFundingAt(bc.FundingSplit, bc.FundingAccounts, nb.Start, nb.End)
 	})
 	if err != nil {
 		return err

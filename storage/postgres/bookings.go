@@ -228,7 +228,15 @@ SELECT f.time_zone, f.booking_rules, i.rules_override, i.bookable, i.name,
        q.id::text, q.level, q.granted_by::text, q.granted_at, q.reason, q.expires_after_idle_days, q.last_used_at,
        (SELECT max(o.offer_expires_at) FROM waitlist_entries o WHERE o.instrument_id = i.id AND o.status = 'offered'
            AND o.offer_expires_at > $6 AND o.user_id <> $2 AND o.during && tstzrange($4, $5, '[)')),
-       ib.lo, ib.hi, sb.lo, sb.hi
+       ib.lo, ib.hi, sb.lo, sb.hi,
+       (SELECT json_agg(json_build_object('account_id', a.id, 'basis_points', s.basis_points, 'code', a.code,
+                                          'valid_from', a.valid_from, 'valid_until', a.valid_until) ORDER BY s.position)
+        FROM (SELECT account_id, basis_points, position FROM booking_funding WHERE booking_id = nullif($8, '')::uuid
+              UNION ALL
+              SELECT account_id, basis_points, position FROM project_funding WHERE project_id = nullif($3, '')::uuid
+                AND NOT EXISTS (SELECT 1 FROM booking_funding WHERE booking_id = nullif($8, '')::uuid)) s
+        JOIN funding_accounts a ON a.id = s.account_id
+        WHERE a.valid_from > $4 OR a.valid_until < $5)
 FROM facility f CROSS JOIN instruments i
 LEFT JOIN qualifications q ON q.user_id = $2 AND q.instrument_id = i.id AND q.revoked_at IS NULL
 LEFT JOIN LATERAL (SELECT lower(b.during), upper(b.during) FROM bookings b
@@ -241,9 +249,10 @@ WHERE f.id = 1 AND i.id = $1`
 	var qID, qLevel, qBy, qReason *string
 	var qAt, qUsed, ibStart, ibEnd, sbStart, sbEnd *time.Time
 	var qIdle *int
+	var unfunded []byte
 	err = q.QueryRow(ctx, sql, nb.InstrumentID, nb.UserID, nb.ProjectID, nb.Start, nb.End, now, nb.StaffID, excludeID).Scan(
 		&zone, &facilityRules, &instrumentRules, &bc.Bookable, &bc.InstrumentName, &bc.Member,
-		&qID, &qLevel, &qBy, &qAt, &qReason, &qIdle, &qUsed, &bc.HeldUntil, &ibStart, &ibEnd, &sbStart, &sbEnd)
+		&qID, &qLevel, &qBy, &qAt, &qReason, &qIdle, &qUsed, &bc.HeldUntil, &ibStart, &ibEnd, &sbStart, &sbEnd, &unfunded)
 	if errors.Is(err, pgx.ErrNoRows) {
 		return bc, nil, beamledger.NotFound("instrument (or the facility is not set up)")
 	}
@@ -261,6 +270,21 @@ WHERE f.id = 1 AND i.id = $1`
 		return bc, nil, fmt.Errorf("instrument booking rules: %w", err)
 	}
 	bc.Rules = scheduling.DefaultRules().With(fo).With(io)
+	if len(unfunded) > 0 {
+		var rows []struct {
+			scheduling.FundingAccount
+			BasisPoints int64  `json:"basis_points"`
+			AccountID   string `json:"account_id"`
+		}
+		if err := json.Unmarshal(unfunded, &rows); err != nil {
+			return bc, nil, fmt.Errorf("funding split: %w", err)
+		}
+		for _, r := range rows {
+			r.FundingAccount.ID = r.AccountID
+			bc.FundingSplit = append(bc.FundingSplit, scheduling.FundingShare{AccountID: r.AccountID, BasisPoints: r.BasisPoints})
+			bc.FundingAccounts = append(bc.FundingAccounts, r.FundingAccount)
+		}
+	}
 	if qID != nil {
 		bc.Qualification = &scheduling.Qualification{ID: *qID, UserID: nb.UserID, InstrumentID: nb.InstrumentID,
 			Level: scheduling.QualificationLevel(*qLevel), GrantedBy: *qBy, GrantedAt: *qAt, Reason: *qReason,
