@@ -163,9 +163,9 @@ func TestBodyLimitAndStrictJSON(t *testing.T) {
 
 func TestSecurityHeaders(t *testing.T) {
 	w := newWorld(t)
-	r := w.do(http.MethodGet, "/", "", nil, nil)
+	r := w.do(http.MethodGet, "/signin", "", nil, nil)
 	if r.StatusCode != 200 || !strings.Contains(string(r.Body), "Test Facility") {
-		t.Fatalf("start page: %d", r.StatusCode)
+		t.Fatalf("sign-in page: %d", r.StatusCode)
 	}
 	for h, want := range map[string]string{"X-Content-Type-Options": "nosniff", "X-Frame-Options": "DENY"} {
 		if got := r.Header.Get(h); got != want {
