@@ -1,0 +1,151 @@
+package postgres_test
+
+import (
+	"context"
+	"encoding/json"
+	"testing"
+	"time"
+
+	"beamledger/accounts"
+	"beamledger/provenance"
+	"beamledger/scheduling"
+)
+
+// TestComputeStatementsForManyProjects computes a month's drafts of several projects
+// in one call: a new statement, a draft recomputed in place, an issued statement left
+// alone and a project named twice; then a call in which one project cannot be priced
+// stores nothing for any of them.
+func TestComputeStatementsForManyProjects(t *testing.T) {
+	db, conn := openRaw(t)
+	ctx := context.Background()
+	if _, err := db.SetFacility(ctx, scheduling.Facility{Name: "F", TimeZone: "UTC", Currency: "EUR"}); err != nil {
+		t.Fatal(err)
+	}
+	mgr := mustCreateUser(t, db, "m@example.org", accounts.RoleManager)
+	pi := mustCreateUser(t, db, "pi@example.org", accounts.RoleResearcher)
+	in := mustCreateInstrument(t, db, "TEM-1")
+	from := time.Date(2031, 3, 1, 0, 0, 0, 0, time.UTC)
+	to := from.AddDate(0, 1, 0)
+	if _, err := db.CreateRateSchedule(ctx, scheduling.RateSchedule{InstrumentID: in.ID, EffectiveFrom: from, Currency: "EUR",
+		Classes: []scheduling.ClassRates{{RateClass: accounts.RateInternal, IndependentHourlyMinor: 12000}}}, mgr.ID, t0); err != nil {
+		t.Fatal(err)
+	}
+	project := func(code string, funded bool) string {
+		p := mustCreateProject(t, db, code, pi.ID)
+		if funded {
+			a, err := db.SaveFundingAccount(ctx, scheduling.FundingAccount{ProjectID: p.ID, Code: "G-" + code}, mgr.ID, t0)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if err := db.SetProjectFunding(ctx, p.ID, []scheduling.FundingShare{{AccountID: a.ID, BasisPoints: 10000}}, mgr.ID, t0); err != nil {
+				t.Fatal(err)
+			}
+		}
+		return p.ID
+	}
+	book := func(projectID string, start time.Time, d time.Duration) {
+		t.Helper()
+		if err := db.InsertBookingRow(ctx, scheduling.NewBooking{InstrumentID: in.ID, ProjectID: projectID, UserID: pi.ID,
+			Kind: scheduling.KindIndependent, Start: start, End: start.Add(d), Actor: pi.ID}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	fresh, redo, issued := project("P-1", true), project("P-2", true), project("P-3", true)
+	book(fresh, from.Add(9*time.Hour), 2*time.Hour)
+	book(fresh, to.Add(9*time.Hour), 2*time.Hour) // next month: not on this statement
+	book(redo, from.Add(33*time.Hour), time.Hour)
+	book(issued, from.Add(57*time.Hour), time.Hour)
+	earlier, _, err := db.ComputeStatement(ctx, redo, from, to, mgr.ID, to)
+	if err != nil {
+		t.Fatal(err)
+	}
+	done, _, err := db.ComputeStatement(ctx, issued, from, to, mgr.ID, to)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := db.IssueStatement(ctx, done.Record().ID, mgr.ID, to); err != nil {
+		t.Fatal(err)
+	}
+	book(redo, from.Add(81*time.Hour), 30*time.Minute)
+
+	sts, err := db.ComputeStatements(ctx, []string{fresh, redo, issued, fresh}, from, to, mgr.ID, to.Add(time.Hour))
+	if err != nil || len(sts) != 4 {
+		t.Fatalf("compute: %d drafts, %v", len(sts), err)
+	}
+	// [constructed] 2 h booked, no usage, at 120/h → 240.00; the next month's booking
+	// is not on it.
+	if r := sts[0].Record(); r.ProjectID != fresh || r.TotalMinor != 24000 || len(r.Lines) != 1 || r.Status != scheduling.StatementDraft {
+		t.Errorf("new draft: %+v", r)
+	}
+	// [constructed] 1 h at 120/h, and 30 min billed as the policy's minimum hour → 240.00,
+	// in the earlier draft's statement.
+	if r := sts[1].Record(); r.ID != earlier.Record().ID || r.TotalMinor != 24000 || len(r.Lines) != 2 {
+		t.Errorf("recomputed draft: %+v, earlier id %s", r, earlier.Record().ID)
+	}
+	if r := sts[2].Record(); r.ID != "" {
+		t.Errorf("issued statement got a draft: %+v", r)
+	}
+	if sts[3].Record().ID != sts[0].Record().ID {
+		t.Errorf("a project named twice got two statements: %s and %s", sts[0].Record().ID, sts[3].Record().ID)
+	}
+	for _, st := range sts[:2] {
+		want := st.Record()
+		stored, err := db.Statement(ctx, want.ID)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got := stored.Record(); got.TotalMinor != want.TotalMinor || len(got.Lines) != len(want.Lines) || got.ProjectID != want.ProjectID {
+			t.Errorf("stored statement %s: total %d with %d lines, returned %d with %d", want.ID, got.TotalMinor, len(got.Lines), want.TotalMinor, len(want.Lines))
+		}
+	}
+	if got, err := db.Statement(ctx, done.Record().ID); err != nil || got.Record().Status != scheduling.StatementIssued || got.Record().TotalMinor != 12000 {
+		t.Errorf("issued statement after the batch: %+v %v", got.Record(), err)
+	}
+	// Each statement's ledger events: create, then correct for a recompute, each
+	// holding the statement as stored.
+	for _, c := range []struct {
+		st      scheduling.Statement
+		actions []string
+	}{
+		{sts[0], []string{provenance.ActionCreate}},
+		{sts[1], []string{provenance.ActionCreate, provenance.ActionCorrect}},
+	} {
+		evs, err := db.EventsFor(ctx, provenance.EntityStatement, c.st.Record().ID)
+		if err != nil || len(evs) != len(c.actions) {
+			t.Fatalf("events of %s: %d, %v; want %v", c.st.Record().ID, len(evs), err, c.actions)
+		}
+		for i, ev := range evs {
+			if ev.Action != c.actions[i] || ev.Actor != mgr.ID {
+				t.Errorf("event %d of %s: %s by %s, want %s by %s", i, c.st.Record().ID, ev.Action, ev.Actor, c.actions[i], mgr.ID)
+			}
+		}
+		var state scheduling.StatementRecord
+		if err := json.Unmarshal(evs[len(evs)-1].State, &state); err != nil || state.TotalMinor != c.st.Record().TotalMinor ||
+			len(state.Lines) != len(c.st.Record().Lines) {
+			t.Errorf("last event of %s holds total %d with %d lines (%v)", c.st.Record().ID, state.TotalMinor, len(state.Lines), err)
+		}
+	}
+
+	// A project whose charged booking has no split to post to fails the whole call:
+	// nothing is stored for the others either.
+	unfunded := project("P-4", false)
+	book(unfunded, from.Add(105*time.Hour), time.Hour)
+	book(fresh, from.Add(129*time.Hour), time.Hour)
+	var before int
+	if err := conn.QueryRow(ctx, `SELECT count(*) FROM ledger_events`).Scan(&before); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := db.ComputeStatements(ctx, []string{fresh, unfunded}, from, to, mgr.ID, to.Add(2*time.Hour)); err == nil {
+		t.Fatal("a batch with an unfunded charged booking succeeded")
+	}
+	var after, lines int
+	if err := conn.QueryRow(ctx, `SELECT count(*) FROM ledger_events`).Scan(&after); err != nil {
+		t.Fatal(err)
+	}
+	if err := conn.QueryRow(ctx, `SELECT count(*) FROM statement_lines WHERE statement_id = $1`, sts[0].Record().ID).Scan(&lines); err != nil {
+		t.Fatal(err)
+	}
+	if after != before || lines != 1 {
+		t.Errorf("failed batch left %d new ledger events and %d lines on %s (want 0 and 1)", after-before, lines, sts[0].Record().ID)
+	}
+}
