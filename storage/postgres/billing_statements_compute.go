@@ -4,6 +4,9 @@ import (
 	"context"
 	"encoding/json"
 	"errors"
+	"runtime"
+	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/google/uuid"
@@ -143,27 +146,37 @@ WHERE project_id = ANY($1::uuid[]) AND period_start = $2 ORDER BY id FOR UPDATE`
 		return nil, err
 	}
 
-	var records []scheduling.StatementRecord
-	var created []bool
+	// Pricing is pure and per project: spread it over the processors.
+	var todo []int   // indexes into projectIDs
+	var ids []string // the statement of each
 	for i, id := range projectIDs {
 		if drafts[i].issued {
 			continue
 		}
-		src := srcs[id]
-		if x, ok := found[id]; ok {
-			src.StatementID = x.id
-		} else {
-			src.StatementID, drafts[i].created = uuid.NewString(), true
+		x, ok := found[id]
+		if !ok {
+			x.id, drafts[i].created = uuid.NewString(), true
 		}
+		todo, ids = append(todo, i), append(ids, x.id)
+	}
+	records := make([]scheduling.StatementRecord, len(todo))
+	created := make([]bool, len(todo))
+	err = parallel(len(todo), func(k int) error {
+		i := todo[k]
+		src := srcs[projectIDs[i]]
+		src.StatementID = ids[k]
 		in, err := scheduling.PriceStatement(src)
 		if err != nil {
-			return nil, err
+			return err
 		}
 		if drafts[i].st, err = scheduling.AssembleStatement(in); err != nil {
-			return nil, err
+			return err
 		}
-		records = append(records, drafts[i].st.Record())
-		created = append(created, drafts[i].created)
+		records[k], created[k] = drafts[i].st.Record(), drafts[i].created
+		return nil
+	})
+	if err != nil {
+		return nil, err
 	}
 	if err := writeStatements(ctx, tx, records, created, actor, now); err != nil {
 		return nil, err
@@ -354,14 +367,16 @@ func writeStatements(ctx context.Context, tx pgx.Tx, recs []scheduling.Statement
 	if len(recs) == 0 {
 		return nil
 	}
-	var inserts [][]any
-	var upd struct {
-		ids, currencies, components, accountTotals []string
-		totals                                     []int64
+	// Encoding the lines and the events (canonical JSON) is per statement: spread it
+	// over the processors too.
+	type encoded struct {
+		components, accountTotals string
+		lines                     [][]any
+		event                     provenance.LedgerEvent
 	}
-	var events []provenance.LedgerEvent
-	var lines [][]any
-	for i, rec := range recs {
+	enc := make([]encoded, len(recs))
+	err := parallel(len(recs), func(i int) error {
+		rec := recs[i]
 		components, err := json.Marshal(rec.ComponentTotals)
 		if err != nil {
 			return err
@@ -370,29 +385,46 @@ func writeStatements(ctx context.Context, tx pgx.Tx, recs []scheduling.Statement
 		if err != nil {
 			return err
 		}
-		action := provenance.ActionCreate
-		if created[i] {
-			inserts = append(inserts, []any{rec.ID, rec.ProjectID, rec.PeriodStart, rec.PeriodEnd, rec.Currency, "draft", now,
-				rec.TotalMinor, string(components), string(accountTotals)})
-		} else {
-			action = provenance.ActionCorrect
-			upd.ids, upd.currencies, upd.totals = append(upd.ids, rec.ID), append(upd.currencies, rec.Currency), append(upd.totals, rec.TotalMinor)
-			upd.components, upd.accountTotals = append(upd.components, string(components)), append(upd.accountTotals, string(accountTotals))
-		}
-		for _, l := range rec.Lines {
+		e := encoded{components: string(components), accountTotals: string(accountTotals), lines: make([][]any, len(rec.Lines))}
+		for k, l := range rec.Lines {
 			allocs, err := json.Marshal(l.Allocations)
 			if err != nil {
 				return err
 			}
-			lines = append(lines, []any{rec.ID, l.LineNo, nullID(l.BookingID), nullID(l.InstrumentID), nullText(string(l.BookingKind)), l.BookingStart,
+			e.lines[k] = []any{rec.ID, l.LineNo, nullID(l.BookingID), nullID(l.InstrumentID), nullText(string(l.BookingKind)), l.BookingStart,
 				string(l.Component), string(l.Rule), l.From, l.To, l.Minutes, l.HourlyRateMinor, l.AmountMinor, l.Reason,
-				nullID(l.AdjustmentID), nullID(l.CorrectsStatementID), string(allocs)})
+				nullID(l.AdjustmentID), nullID(l.CorrectsStatementID), string(allocs)}
 		}
-		ev, err := provenance.NewLedgerEvent(actor, action, provenance.EntityStatement, rec.ID, now, rec)
-		if err != nil {
+		action := provenance.ActionCreate
+		if !created[i] {
+			action = provenance.ActionCorrect
+		}
+		if e.event, err = provenance.NewLedgerEvent(actor, action, provenance.EntityStatement, rec.ID, now, rec); err != nil {
 			return err
 		}
-		events = append(events, ev)
+		enc[i] = e
+		return nil
+	})
+	if err != nil {
+		return err
+	}
+	var inserts, lines [][]any
+	var upd struct {
+		ids, currencies, components, accountTotals []string
+		totals                                     []int64
+	}
+	events := make([]provenance.LedgerEvent, len(recs))
+	for i, rec := range recs {
+		e := enc[i]
+		if created[i] {
+			inserts = append(inserts, []any{rec.ID, rec.ProjectID, rec.PeriodStart, rec.PeriodEnd, rec.Currency, "draft", now,
+				rec.TotalMinor, e.components, e.accountTotals})
+		} else {
+			upd.ids, upd.currencies, upd.totals = append(upd.ids, rec.ID), append(upd.currencies, rec.Currency), append(upd.totals, rec.TotalMinor)
+			upd.components, upd.accountTotals = append(upd.components, e.components), append(upd.accountTotals, e.accountTotals)
+		}
+		lines = append(lines, e.lines...)
+		events[i] = e.event
 	}
 	if len(inserts) > 0 {
 		if _, err := tx.CopyFrom(ctx, pgx.Identifier{"statements"}, []string{"id", "project_id", "period_start", "period_end",
@@ -427,10 +459,37 @@ WHERE s.id = v.id`
 	if len(events) == 1 {
 		return appendEvent(ctx, tx, events[0])
 	}
-	_, err := tx.CopyFrom(ctx, pgx.Identifier{"ledger_events"}, []string{"actor", "at", "action", "entity_type", "entity_id", "leaf"},
+	_, err = tx.CopyFrom(ctx, pgx.Identifier{"ledger_events"}, []string{"actor", "at", "action", "entity_type", "entity_id", "leaf"},
 		pgx.CopyFromSlice(len(events), func(i int) ([]any, error) {
 			ev := events[i]
 			return []any{ev.Actor, ev.At, ev.Action, ev.EntityType, ev.EntityID, ev.Leaf}, nil
 		}))
 	return err
+}
+
+// parallel runs f(0) … f(n-1) on as many goroutines as there are processors and
+// returns the error of the lowest index that failed, so that the error reported does
+// not depend on scheduling.
+func parallel(n int, f func(i int) error) error {
+	errs := make([]error, n)
+	var next atomic.Int64
+	var wg sync.WaitGroup
+	for range min(runtime.GOMAXPROCS(0), n) {
+		wg.Go(func() {
+			for i := int(next.Add(1)) - 1; i < n; i = int(next.Add(1)) - 1 {
+				errs[i] = f(i)
+			}
+		})
+	}
+	wg.Wait()
+	return firstError(errs)
+}
+
+func firstError(errs []error) error {
+	for _, err := range errs {
+		if err != nil {
+			return err
+		}
+	}
+	return nil
 }
