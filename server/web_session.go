@@ -17,7 +17,7 @@ import (
 
 // The web pages keep their session in cookies the page scripts cannot read: the
 // access token, the refresh token (SameSite=Strict: never sent from another site)
-// and a CSRF token that each page repeats in a header or form field.
+// and a CSRF token that each page repeats in the X-CSRF-Token header.
 const (
 	cookieAccess  = "beamledger_session"
 	cookieRefresh = "beamledger_refresh"
