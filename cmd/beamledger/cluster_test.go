@@ -43,6 +43,8 @@ type cluster struct {
 	// researchers, each with their own project, qualified on every instrument.
 	researchers []clusterUser
 	auditor     string // access token
+	manager     string // access token
+	staffID     string
 }
 
 type clusterUser struct {
@@ -82,7 +84,11 @@ func newCluster(t testing.TB, extraEnv ...string) *cluster {
 	if err != nil {
 		t.Fatal(err)
 	}
+	c.staffID = staff.ID
 	if _, err := db.CreateUser(ctx, accounts.NewUser{Email: "auditor@cluster.example", DisplayName: "Auditor", Role: accounts.RoleAuditor}, hash); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := db.CreateUser(ctx, accounts.NewUser{Email: "manager@cluster.example", DisplayName: "Manager", Role: accounts.RoleManager}, hash); err != nil {
 		t.Fatal(err)
 	}
 	for i := range 2 {
@@ -123,6 +129,7 @@ func newCluster(t testing.TB, extraEnv ...string) *cluster {
 		c.researchers[i].token = login(t, c.base(i), email, clusterPassword)
 	}
 	c.auditor = login(t, c.base(2), "auditor@cluster.example", clusterPassword)
+	c.manager = login(t, c.base(1), "manager@cluster.example", clusterPassword)
 	return c
 }
 
@@ -262,6 +269,7 @@ func TestThreeProcesses(t *testing.T) {
 	c.checkLedger(ctx, created.Load()+specimens.Load())
 	c.checkSweptOnce()
 	c.checkNoShowsOnce(ctx)
+	c.checkCharges(ctx)
 	for i, p := range c.procs {
 		for _, line := range p.logLines() {
 			var l struct{ Level string }
@@ -464,6 +472,90 @@ func (c *cluster) checkNoShowsOnce(ctx context.Context) {
 		t.Errorf("the processes' no-show jobs reported %d bookings between them, want each of %d exactly once", got, want)
 	}
 	t.Logf("figure: three processes: %d no-shows marked once each by the job every process runs", want)
+}
+
+// checkCharges prices the no-shows just marked: managers on all three processes
+// compute every project's statement for the month at once, three times over; every
+// answer succeeds, each project ends with one draft, and its total is what one
+// process computing alone then finds.
+func (c *cluster) checkCharges(ctx context.Context) {
+	t := c.t
+	now := time.Now().UTC()
+	for _, in := range c.instrs {
+		if _, err := c.db.CreateRateSchedule(ctx, scheduling.RateSchedule{InstrumentID: in, EffectiveFrom: now.AddDate(0, -3, 0), Currency: "EUR",
+			Classes: []scheduling.ClassRates{{RateClass: accounts.RateInternal, IndependentHourlyMinor: 9000, AssistedHourlyMinor: 12000,
+				TrainingHourlyMinor: 6000, UnattendedHourlyMinor: 4000, StaffHourlyMinor: 5000}}}, c.staffID, now); err != nil {
+			t.Fatal(err)
+		}
+	}
+	for i, u := range c.researchers {
+		a, err := c.db.SaveFundingAccount(ctx, scheduling.FundingAccount{ProjectID: u.project, Code: fmt.Sprintf("GRANT-%d", i)}, c.staffID, now)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := c.db.SetProjectFunding(ctx, u.project, []scheduling.FundingShare{{AccountID: a.ID, BasisPoints: 10000}}, c.staffID, now); err != nil {
+			t.Fatal(err)
+		}
+	}
+	vienna, _ := time.LoadLocation("Europe/Vienna")
+	month := now.Add(-3 * time.Hour).In(vienna).Format("2006-01")
+	type answer struct {
+		id, project string
+		total       int64
+	}
+	var mu sync.Mutex
+	var answers []answer
+	var wg sync.WaitGroup
+	for round := range 3 {
+		for i, u := range c.researchers {
+			wg.Add(1)
+			go func() {
+				defer wg.Done()
+				st, body, err := c.postJSON(round+i, "/api/v1/projects/"+u.project+"/statements", c.manager, map[string]string{"month": month})
+				var got struct {
+					ID         string `json:"id"`
+					TotalMinor int64  `json:"total_minor"`
+				}
+				if err != nil || (st != http.StatusCreated && st != http.StatusOK) || json.Unmarshal(body, &got) != nil {
+					t.Errorf("statement of project %d on process %d: %d %v %s", i, (round+i)%3, st, err, body)
+					return
+				}
+				mu.Lock()
+				answers = append(answers, answer{got.ID, u.project, got.TotalMinor})
+				mu.Unlock()
+			}()
+		}
+	}
+	wg.Wait()
+	if t.Failed() {
+		t.FailNow()
+	}
+	var sum int64
+	for i, u := range c.researchers {
+		st, body, err := c.postJSON(0, "/api/v1/projects/"+u.project+"/statements", c.manager, map[string]string{"month": month})
+		var alone struct {
+			ID         string `json:"id"`
+			TotalMinor int64  `json:"total_minor"`
+		}
+		if err != nil || st != http.StatusOK || json.Unmarshal(body, &alone) != nil {
+			t.Fatalf("recomputing project %d alone: %d %v %s", i, st, err, body)
+		}
+		if alone.TotalMinor <= 0 {
+			t.Errorf("project %d: total %d; its no-show should be charged", i, alone.TotalMinor)
+		}
+		for _, a := range answers {
+			if a.project == u.project && (a.id != alone.ID || a.total != alone.TotalMinor) {
+				t.Errorf("project %d: a concurrent computation gave statement %s total %d; alone: %s total %d", i, a.id, a.total, alone.ID, alone.TotalMinor)
+			}
+		}
+		sum += alone.TotalMinor
+	}
+	var dup int
+	if err := c.sql.QueryRow(ctx, `SELECT count(*) FROM (SELECT 1 FROM statements GROUP BY project_id, period_start HAVING count(*) > 1) d`).Scan(&dup); err != nil || dup != 0 {
+		t.Errorf("projects with more than one statement for the month: %d %v", dup, err)
+	}
+	t.Logf("figure: three processes: %d statement computations at once for %d projects gave the totals one process gives alone (%d minor units in all), one draft each",
+		len(answers), len(c.researchers), sum)
 }
 
 // loggedCount sums attribute attr of every log line msg of every process.

@@ -40,6 +40,7 @@ func BenchmarkUploadCommand(b *testing.B) {
 	}
 	file.Close()
 	o := f.options(b, f.url)
+	o.chunkBytes = 0 // the command's default: no limit per request
 	b.SetBytes(objectstest.BenchObjectBytes)
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {

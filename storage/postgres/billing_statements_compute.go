@@ -113,6 +113,12 @@ func computeDrafts(ctx context.Context, tx pgx.Tx, projectIDs []string, from, to
 	if _, err := tx.Exec(ctx, `SET LOCAL jit = off`); err != nil {
 		return nil, err
 	}
+	// Computations of one period take turns, whichever process runs them: two that
+	// both found no draft would otherwise both insert one, and the second would fail
+	// on the period's unique statement. One key per period cannot deadlock.
+	if _, err := tx.Exec(ctx, `SELECT pg_advisory_xact_lock(hashtextextended('beamledger statements ' || $1::text, 0))`, from.UTC()); err != nil {
+		return nil, err
+	}
 	// Lock the period's existing statements (in id order, so that concurrent batches
 	// cannot deadlock) before reading what they are priced from.
 	type existing struct {
