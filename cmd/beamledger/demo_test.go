@@ -17,6 +17,9 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"beamledger/provenance"
+	"beamledger/provenance/bundle"
 )
 
 var (
@@ -215,6 +218,42 @@ func TestDemoServesReadyAndLogin(t *testing.T) {
 			if len(lin.Derivations) != 1 {
 				t.Errorf("%s: lineage %+v, want the step that made it", f.FileName, lin.Derivations)
 			}
+		}
+	}
+
+	// Every demo file is traced and its provenance bundle verifies offline with the
+	// ledger's published key, once a signed checkpoint covers it.
+	var key struct {
+		VerifierKey string `json:"verifier_key"`
+	}
+	getJSON(t, d2.url+"/api/v1/ledger/key", auditor, &key)
+	verifier, err := provenance.ParseVerifierKey(key.VerifierKey)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, f := range files.Items {
+		var tr struct {
+			File struct{ ID string } `json:"file"`
+		}
+		getJSON(t, d2.url+"/api/v1/trace/"+f.SHA256, auditor, &tr)
+		if tr.File.ID == "" {
+			t.Errorf("%s: the trace names no file", f.FileName)
+		}
+		var zipped []byte
+		waitFor(t, 30*time.Second, f.FileName+"'s bundle (once a checkpoint covers it)", func() bool {
+			req, _ := http.NewRequest(http.MethodGet, d2.url+"/api/v1/trace/"+f.SHA256+"/bundle", nil)
+			req.Header.Set("Authorization", "Bearer "+auditor)
+			res, err := http.DefaultClient.Do(req)
+			if err != nil {
+				return false
+			}
+			defer res.Body.Close()
+			zipped, _ = io.ReadAll(res.Body)
+			return res.StatusCode == http.StatusOK
+		})
+		sum, err := bundle.Verify(bytes.NewReader(zipped), int64(len(zipped)), verifier)
+		if err != nil || sum.SHA256 != f.SHA256 || sum.Events == 0 {
+			t.Errorf("%s: bundle verification %+v: %v", f.FileName, sum, err)
 		}
 	}
 }
