@@ -76,37 +76,19 @@ The database and object store come from BEAMLEDGER_* as for serve.
 
 // cmdBackup writes a backup folder.
 func cmdBackup(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	fs := flag.NewFlagSet("backup", flag.ContinueOnError)
-	fs.SetOutput(stderr)
-	cfg := server.Defaults()
-	e := &envFlags{fs: fs}
-	objectFlags(e, &cfg)
-	pgBin := pgBinFlag(e)
-	withObjects := fs.Bool("with-objects", true, "copy the objects into the backup (false: list them only)")
-	fs.Usage = func() { fmt.Fprint(stderr, backupUsage); fs.PrintDefaults() }
-	if err := fs.Parse(args); err != nil {
-		return err
-	}
-	if fs.NArg() != 1 {
-		fs.Usage()
-		return errors.New("backup: give one folder")
-	}
-	dir := fs.Arg(0)
-	if err := errors.Join(append(e.errs, readSecrets(&cfg))...); err != nil {
-		return err
-	}
-	pgDump, err := pgTool(*pgBin, "pg_dump")
+	var withObjects *bool
+	c, err := parseBackupCommand(backupCommandSpec{name: "backup", usage: backupUsage, folder: "folder", tool: "pg_dump",
+		flags: func(fs *flag.FlagSet, _ *envFlags, _ *server.Config) {
+			withObjects = fs.Bool("with-objects", true, "copy the objects into the backup (false: list them only)")
+		}}, args, stderr)
 	if err != nil {
 		return err
 	}
+	cfg, dir := c.cfg, c.dir
 	if err := emptyFolder(dir); err != nil {
 		return err
 	}
-	dbURL, err := databaseURL()
-	if err != nil {
-		return err
-	}
-	db, err := postgres.Open(ctx, dbURL, 2)
+	db, dbURL, err := openBackupDatabase(ctx)
 	if err != nil {
 		return err
 	}
@@ -122,7 +104,7 @@ func cmdBackup(ctx context.Context, args []string, stdout, stderr io.Writer) err
 			return err
 		}
 		name, env := pgConnection(dbURL)
-		if err := runPGTool(ctx, env, pgDump, "--format=custom", "--no-owner", "--no-acl", "--snapshot="+snap.Name,
+		if err := runPGTool(ctx, env, c.tool, "--format=custom", "--no-owner", "--no-acl", "--snapshot="+snap.Name,
 			"--file="+filepath.Join(dir, dumpFile), "--dbname="+name); err != nil {
 			return fmt.Errorf("pg_dump: %w", err)
 		}

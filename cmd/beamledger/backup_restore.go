@@ -33,38 +33,19 @@ first).
 
 // cmdRestore restores a backup folder.
 func cmdRestore(ctx context.Context, args []string, stdout, stderr io.Writer) error {
-	flags := flag.NewFlagSet("restore", flag.ContinueOnError)
-	flags.SetOutput(stderr)
-	cfg := server.Defaults()
-	e := &envFlags{fs: flags}
-	objectFlags(e, &cfg)
-	e.boolean(&cfg.S3.CreateBucket, "s3-create-bucket", "BEAMLEDGER_S3_CREATE_BUCKET", "create the S3 bucket when missing")
-	pgBin := pgBinFlag(e)
-	flags.Usage = func() { fmt.Fprint(stderr, restoreUsage); flags.PrintDefaults() }
-	if err := flags.Parse(args); err != nil {
-		return err
-	}
-	if flags.NArg() != 1 {
-		flags.Usage()
-		return errors.New("restore: give one backup folder")
-	}
-	dir := flags.Arg(0)
-	if err := errors.Join(append(e.errs, readSecrets(&cfg))...); err != nil {
-		return err
-	}
-	pgRestore, err := pgTool(*pgBin, "pg_restore")
+	c, err := parseBackupCommand(backupCommandSpec{name: "restore", usage: restoreUsage, folder: "backup folder", tool: "pg_restore",
+		flags: func(_ *flag.FlagSet, e *envFlags, cfg *server.Config) {
+			e.boolean(&cfg.S3.CreateBucket, "s3-create-bucket", "BEAMLEDGER_S3_CREATE_BUCKET", "create the S3 bucket when missing")
+		}}, args, stderr)
 	if err != nil {
 		return err
 	}
+	cfg, dir := c.cfg, c.dir
 	m, err := checkBackup(dir)
 	if err != nil {
 		return &exitError{exitFindings, err}
 	}
-	dbURL, err := databaseURL()
-	if err != nil {
-		return err
-	}
-	db, err := postgres.Open(ctx, dbURL, 2)
+	db, dbURL, err := openBackupDatabase(ctx)
 	if err != nil {
 		return err
 	}
@@ -84,7 +65,7 @@ func cmdRestore(ctx context.Context, args []string, stdout, stderr io.Writer) er
 		return &exitError{exitFindings, err}
 	}
 	name, env := pgConnection(dbURL)
-	if err := runPGTool(ctx, env, pgRestore, "--single-transaction", "--exit-on-error", "--no-owner", "--no-acl",
+	if err := runPGTool(ctx, env, c.tool, "--single-transaction", "--exit-on-error", "--no-owner", "--no-acl",
 		"--dbname="+name, filepath.Join(dir, dumpFile)); err != nil {
 		return fmt.Errorf("pg_restore: %w", err)
 	}
