@@ -26,27 +26,34 @@ type tokenResponse struct {
 var errBadLogin = beamledger.Unauthorized("email or password is wrong")
 
 func (s *Server) handleLogin(c echo.Context) error {
-	var req loginRequest
-	if err := bind(c, &req); err != nil {
-		return err
-	}
-	ctx := c.Request().Context()
-	email, err := accounts.NormalizeEmail(req.Email)
-	if err != nil {
-		return err
-	}
-	if req.Password == "" {
-		return beamledger.InvalidField("password", "is required")
-	}
-	user, err := s.throttledCheckPassword(ctx, email, req.Password, c.RealIP())
-	if err != nil {
-		return err
-	}
-	resp, err := s.startSession(ctx, user.ID)
+	resp, err := s.passwordSignIn(c)
 	if err != nil {
 		return err
 	}
 	return c.JSON(http.StatusOK, resp)
+}
+
+// passwordSignIn reads an email and password from the request body, checks them
+// behind the failure counters and starts a session: the API's login and the sign-in
+// page's both come here.
+func (s *Server) passwordSignIn(c echo.Context) (tokenResponse, error) {
+	var req loginRequest
+	if err := bind(c, &req); err != nil {
+		return tokenResponse{}, err
+	}
+	ctx := c.Request().Context()
+	email, err := accounts.NormalizeEmail(req.Email)
+	if err != nil {
+		return tokenResponse{}, err
+	}
+	if req.Password == "" {
+		return tokenResponse{}, beamledger.InvalidField("password", "is required")
+	}
+	user, err := s.throttledCheckPassword(ctx, email, req.Password, c.RealIP())
+	if err != nil {
+		return tokenResponse{}, err
+	}
+	return s.startSession(ctx, user.ID)
 }
 
 // throttledCheckPassword is checkPassword behind the per-account and per-address

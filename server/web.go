@@ -125,11 +125,7 @@ func (s *Server) handleStartPage(c echo.Context, me accounts.Principal, pg web.P
 	ctx := c.Request().Context()
 	pg.Title, pg.Nav, pg.Script = "Overview", "start", "start.js"
 	d := web.StartData{Page: pg}
-	loc, err := s.facilityLocation(ctx)
-	if err != nil {
-		return err
-	}
-	names, err := s.instrumentCodes(ctx)
+	n, err := s.recordNames(ctx)
 	if err != nil {
 		return err
 	}
@@ -137,9 +133,8 @@ func (s *Server) handleStartPage(c echo.Context, me accounts.Principal, pg web.P
 	if err != nil {
 		return err
 	}
-	codes := map[string]string{}
 	for _, p := range projects {
-		codes[p.ID] = p.Code
+		n.projects[p.ID] = p.Code
 		part := "member"
 		if p.PrincipalInvestigatorID == me.UserID {
 			part = "principal investigator"
@@ -152,9 +147,9 @@ func (s *Server) handleStartPage(c echo.Context, me accounts.Principal, pg web.P
 		return err
 	}
 	for _, b := range bs {
-		st := b.Start.In(loc)
-		d.Bookings = append(d.Bookings, web.StartBooking{When: st.Format("Mon 2 Jan 15:04") + "–" + b.End.In(loc).Format("15:04"),
-			Instrument: names[b.InstrumentID], Kind: string(b.Kind), Project: codes[b.ProjectID], Status: string(b.Status),
+		st := b.Start.In(n.loc)
+		d.Bookings = append(d.Bookings, web.StartBooking{When: st.Format("Mon 2 Jan 15:04") + "–" + b.End.In(n.loc).Format("15:04"),
+			Instrument: n.instruments[b.InstrumentID], Kind: string(b.Kind), Project: n.project(ctx, b.ProjectID), Status: string(b.Status),
 			CalendarLink: "/calendar?view=day&instrument=" + b.InstrumentID + "&date=" + st.Format(time.DateOnly)})
 	}
 	qs, err := s.store.Qualifications(ctx, scheduling.QualificationFilter{UserID: me.UserID})
@@ -162,7 +157,7 @@ func (s *Server) handleStartPage(c echo.Context, me accounts.Principal, pg web.P
 		return err
 	}
 	for _, q := range qs {
-		sq := web.StartQualification{Instrument: names[q.InstrumentID], Level: string(q.Level), Granted: q.GrantedAt.In(loc).Format("2 Jan 2006")}
+		sq := web.StartQualification{Instrument: n.instruments[q.InstrumentID], Level: string(q.Level), Granted: q.GrantedAt.In(n.loc).Format("2 Jan 2006")}
 		if q.ExpiresAfterIdleDays != nil {
 			sq.Expiry = "lapses after " + strconv.Itoa(*q.ExpiresAfterIdleDays) + " days without use"
 		}
@@ -180,13 +175,41 @@ func (s *Server) handleStartPage(c echo.Context, me accounts.Principal, pg web.P
 		return err
 	}
 	for _, a := range as {
-		sa := web.StartAcquisition{ID: a.ID, When: a.StartedAt.In(loc).Format("Mon 2 Jan 15:04"), Instrument: names[a.InstrumentID], Project: codes[a.ProjectID]}
-		if sa.Project == "" {
-			sa.Project = s.projectCode(ctx, a.ProjectID)
-		}
-		d.Acquisitions = append(d.Acquisitions, sa)
+		d.Acquisitions = append(d.Acquisitions, web.StartAcquisition{ID: a.ID, When: a.StartedAt.In(n.loc).Format("Mon 2 Jan 15:04"),
+			Instrument: n.instruments[a.InstrumentID], Project: n.project(ctx, a.ProjectID)})
 	}
 	return s.render(c, http.StatusOK, "start", "layout", d)
+}
+
+// recordNamer holds what the record pages show records by: the facility's zone, the
+// instruments' codes, and the projects' codes as they are first asked for.
+type recordNamer struct {
+	s           *Server
+	loc         *time.Location
+	instruments map[string]string
+	projects    map[string]string
+}
+
+func (s *Server) recordNames(ctx context.Context) (*recordNamer, error) {
+	loc, err := s.facilityLocation(ctx)
+	if err != nil {
+		return nil, err
+	}
+	names, err := s.instrumentCodes(ctx)
+	if err != nil {
+		return nil, err
+	}
+	return &recordNamer{s: s, loc: loc, instruments: names, projects: map[string]string{}}, nil
+}
+
+// project returns a project's code, looking it up once.
+func (n *recordNamer) project(ctx context.Context, id string) string {
+	code, ok := n.projects[id]
+	if !ok {
+		code = n.s.projectCode(ctx, id)
+		n.projects[id] = code
+	}
+	return code
 }
 
 func (s *Server) projectCode(ctx context.Context, id string) string {

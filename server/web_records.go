@@ -21,11 +21,7 @@ func (s *Server) handleAcquirePage(c echo.Context, me accounts.Principal, pg web
 	ctx := c.Request().Context()
 	pg.Title, pg.Nav, pg.Script = "Record acquisition", "acquire", "acquire.js"
 	d := web.AcquireData{Page: pg}
-	loc, err := s.facilityLocation(ctx)
-	if err != nil {
-		return err
-	}
-	names, err := s.instrumentCodes(ctx)
+	n, err := s.recordNames(ctx)
 	if err != nil {
 		return err
 	}
@@ -38,19 +34,15 @@ func (s *Server) handleAcquirePage(c echo.Context, me accounts.Principal, pg web
 	if err != nil {
 		return err
 	}
-	codes := map[string]string{}
 	for i := len(bs) - 1; i >= 0; i-- { // latest first
 		b := bs[i]
 		if b.Kind == scheduling.KindService {
 			continue
 		}
-		if _, ok := codes[b.ProjectID]; !ok {
-			codes[b.ProjectID] = s.projectCode(ctx, b.ProjectID)
-		}
-		st := b.Start.In(loc)
+		st, end := b.Start.In(n.loc), b.End.In(n.loc)
 		d.Bookings = append(d.Bookings, web.AcquireBooking{ID: b.ID, InstrumentID: b.InstrumentID, ProjectID: b.ProjectID,
-			Start: st.Format(time.RFC3339), End: b.End.In(loc).Format(time.RFC3339),
-			Label: names[b.InstrumentID] + " · " + st.Format("Mon 2 Jan 15:04") + "–" + b.End.In(loc).Format("15:04") + " · " + codes[b.ProjectID]})
+			Start: st.Format(time.RFC3339), End: end.Format(time.RFC3339),
+			Label: n.instruments[b.InstrumentID] + " · " + st.Format("Mon 2 Jan 15:04") + "–" + end.Format("15:04") + " · " + n.project(ctx, b.ProjectID)})
 	}
 	sf := provenance.SpecimenFilter{}
 	if sf.ProjectIDs, err = s.readableProjectIDs(ctx); err != nil {
@@ -186,11 +178,7 @@ func (s *Server) handleFilesPage(c echo.Context, me accounts.Principal, pg web.P
 	ctx := c.Request().Context()
 	pg.Title, pg.Nav, pg.Script = "Data files", "files", "files.js"
 	d := web.FilesData{Page: pg, Selected: c.QueryParam("file")}
-	loc, err := s.facilityLocation(ctx)
-	if err != nil {
-		return err
-	}
-	names, err := s.instrumentCodes(ctx)
+	n, err := s.recordNames(ctx)
 	if err != nil {
 		return err
 	}
@@ -204,7 +192,7 @@ func (s *Server) handleFilesPage(c echo.Context, me accounts.Principal, pg web.P
 	}
 	for _, a := range as {
 		d.Acquisitions = append(d.Acquisitions, web.Option{Value: a.ID, Selected: a.ID == c.QueryParam("acquisition"),
-			Label: names[a.InstrumentID] + " · " + a.StartedAt.In(loc).Format("Mon 2 Jan 15:04") + " · " + s.projectCode(ctx, a.ProjectID)})
+			Label: n.instruments[a.InstrumentID] + " · " + a.StartedAt.In(n.loc).Format("Mon 2 Jan 15:04") + " · " + n.project(ctx, a.ProjectID)})
 	}
 	return s.render(c, http.StatusOK, "files", "layout", d)
 }

@@ -174,23 +174,7 @@ func (s *Server) handleSignIn(c echo.Context) error {
 	if err := checkCSRF(c); err != nil {
 		return err
 	}
-	var req loginRequest
-	if err := bind(c, &req); err != nil {
-		return err
-	}
-	ctx := c.Request().Context()
-	email, err := accounts.NormalizeEmail(req.Email)
-	if err != nil {
-		return err
-	}
-	if req.Password == "" {
-		return beamledger.InvalidField("password", "is required")
-	}
-	user, err := s.throttledCheckPassword(ctx, email, req.Password, c.RealIP())
-	if err != nil {
-		return err
-	}
-	t, err := s.startSession(ctx, user.ID)
+	t, err := s.passwordSignIn(c)
 	if err != nil {
 		return err
 	}
