@@ -1,6 +1,7 @@
 package server
 
 import (
+	"context"
 	"errors"
 	"net/http"
 	"time"
@@ -8,6 +9,7 @@ import (
 	"github.com/labstack/echo/v4"
 
 	"beamledger"
+	"beamledger/accounts"
 	"beamledger/scheduling"
 )
 
@@ -84,27 +86,22 @@ func (s *Server) handleFacilityBillingSet(c echo.Context) error {
 	if err := bind(c, &p); err != nil {
 		return err
 	}
-	if err := p.Validate(); err != nil {
-		return err
-	}
-	ctx := c.Request().Context()
-	ins, err := s.store.Instruments(ctx)
-	if err != nil {
-		return err
-	}
-	for _, in := range ins {
-		o, err := s.store.InstrumentBillingOverride(ctx, in.ID)
+	return s.setPolicy(c, p, p, func(ctx context.Context) error {
+		ins, err := s.store.Instruments(ctx)
 		if err != nil {
 			return err
 		}
-		if err := p.With(o).Validate(); err != nil {
-			return beamledger.Invalid("with this policy "+in.Code+"'s own billing policy would be invalid: "+err.Error(), nil)
+		for _, in := range ins {
+			o, err := s.store.InstrumentBillingOverride(ctx, in.ID)
+			if err != nil {
+				return err
+			}
+			if err := p.With(o).Validate(); err != nil {
+				return beamledger.Invalid("with this policy "+in.Code+"'s own billing policy would be invalid: "+err.Error(), nil)
+			}
 		}
-	}
-	if err := s.store.SetFacilityBillingPolicy(ctx, p, principal(ctx).UserID, s.now()); err != nil {
-		return err
-	}
-	return c.JSON(http.StatusOK, policyAnswer{Override: p, Effective: p})
+		return s.store.SetFacilityBillingPolicy(ctx, p, principal(ctx).UserID, s.now())
+	})
 }
 
 func (s *Server) handleInstrumentBillingGet(c echo.Context) error {
@@ -125,24 +122,30 @@ func (s *Server) handleInstrumentBillingSet(c echo.Context) error {
 	if err := bind(c, &o); err != nil {
 		return err
 	}
-	ctx := c.Request().Context()
-	p, err := s.store.FacilityBillingPolicy(ctx)
+	p, err := s.store.FacilityBillingPolicy(c.Request().Context())
 	if err != nil {
 		return err
 	}
-	eff := p.With(o)
-	if err := eff.Validate(); err != nil {
+	return s.setPolicy(c, o, p.With(o), func(ctx context.Context) error {
+		return s.store.SetInstrumentBillingOverride(ctx, c.Param("instrument_id"), o, principal(ctx).UserID, s.now())
+	})
+}
+
+// setPolicy is the common end of changing a policy at either level: the policy that
+// would be in force must be valid, then save stores the override and the answer shows
+// both.
+func (s *Server) setPolicy(c echo.Context, override any, effective scheduling.BillingPolicy, save func(context.Context) error) error {
+	if err := effective.Validate(); err != nil {
 		return err
 	}
-	if err := s.store.SetInstrumentBillingOverride(ctx, c.Param("instrument_id"), o, principal(ctx).UserID, s.now()); err != nil {
+	if err := save(c.Request().Context()); err != nil {
 		return err
 	}
-	return c.JSON(http.StatusOK, policyAnswer{Override: o, Effective: eff})
+	return c.JSON(http.StatusOK, policyAnswer{Override: override, Effective: effective})
 }
 
 func (s *Server) handleFundingAccountList(c echo.Context) error {
-	ctx := c.Request().Context()
-	p, err := s.visibleProject(ctx, c.Param("project_id"))
+	ctx, p, err := s.paramProject(c)
 	if err != nil {
 		return err
 	}
@@ -182,8 +185,7 @@ func (s *Server) handleFundingAccountCreate(c echo.Context) error {
 	if err := bind(c, &in); err != nil {
 		return err
 	}
-	ctx := c.Request().Context()
-	p, err := s.visibleProject(ctx, c.Param("project_id"))
+	ctx, p, err := s.paramProject(c)
 	if err != nil {
 		return err
 	}
@@ -228,28 +230,19 @@ type fundingInput struct {
 }
 
 func (s *Server) handleProjectFundingGet(c echo.Context) error {
-	ctx := c.Request().Context()
-	p, err := s.visibleProject(ctx, c.Param("project_id"))
+	ctx, p, err := s.paramProject(c)
 	if err != nil {
 		return err
 	}
-	out, err := s.store.ProjectFunding(ctx, p.ID)
-	if err != nil {
-		return err
-	}
-	return c.JSON(http.StatusOK, fundingInput{Funding: out})
+	return answerSplit(c, p.ID, func(id string) ([]scheduling.FundingShare, error) { return s.store.ProjectFunding(ctx, id) })
 }
 
 func (s *Server) handleProjectFundingSet(c echo.Context) error {
-	var in fundingInput
-	if err := bind(c, &in); err != nil {
+	in, err := bindSplit(c)
+	if err != nil {
 		return err
 	}
-	if err := scheduling.ValidateShares(in.Funding); err != nil {
-		return err
-	}
-	ctx := c.Request().Context()
-	p, err := s.visibleProject(ctx, c.Param("project_id"))
+	ctx, p, err := s.paramProject(c)
 	if err != nil {
 		return err
 	}
@@ -265,19 +258,12 @@ func (s *Server) handleBookingFundingGet(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	out, err := s.store.BookingFunding(ctx, b.ID)
-	if err != nil {
-		return err
-	}
-	return c.JSON(http.StatusOK, fundingInput{Funding: out})
+	return answerSplit(c, b.ID, func(id string) ([]scheduling.FundingShare, error) { return s.store.BookingFunding(ctx, id) })
 }
 
 func (s *Server) handleBookingFundingSet(c echo.Context) error {
-	var in fundingInput
-	if err := bind(c, &in); err != nil {
-		return err
-	}
-	if err := scheduling.ValidateShares(in.Funding); err != nil {
+	in, err := bindSplit(c)
+	if err != nil {
 		return err
 	}
 	ctx := c.Request().Context()
@@ -292,6 +278,32 @@ func (s *Server) handleBookingFundingSet(c echo.Context) error {
 		return err
 	}
 	return c.JSON(http.StatusOK, in)
+}
+
+// bindSplit reads a funding split from the body and checks its shares.
+func bindSplit(c echo.Context) (fundingInput, error) {
+	var in fundingInput
+	if err := bind(c, &in); err != nil {
+		return in, err
+	}
+	return in, scheduling.ValidateShares(in.Funding)
+}
+
+// answerSplit answers the split that read gives for an owner (a project or booking).
+func answerSplit(c echo.Context, ownerID string, read func(string) ([]scheduling.FundingShare, error)) error {
+	out, err := read(ownerID)
+	if err != nil {
+		return err
+	}
+	return c.JSON(http.StatusOK, fundingInput{Funding: out})
+}
+
+// paramProject loads the project the path names, if the caller may read it, with the
+// request's context: the preamble of every handler under /projects/{project_id}.
+func (s *Server) paramProject(c echo.Context) (context.Context, accounts.Project, error) {
+	ctx := c.Request().Context()
+	p, err := s.visibleProject(ctx, c.Param("project_id"))
+	return ctx, p, err
 }
 
 // rateCalculationInput is the calculator's inputs and, optionally, where to save the

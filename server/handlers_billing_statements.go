@@ -30,8 +30,7 @@ func (s *Server) statementPeriod(c echo.Context, month string) (from, to time.Ti
 }
 
 func (s *Server) handleStatementList(c echo.Context) error {
-	ctx := c.Request().Context()
-	p, err := s.visibleProject(ctx, c.Param("project_id"))
+	ctx, p, err := s.paramProject(c)
 	if err != nil {
 		return err
 	}
@@ -52,8 +51,7 @@ func (s *Server) handleStatementCompute(c echo.Context) error {
 	if err := bind(c, &in); err != nil {
 		return err
 	}
-	ctx := c.Request().Context()
-	p, err := s.visibleProject(ctx, c.Param("project_id"))
+	ctx, p, err := s.paramProject(c)
 	if err != nil {
 		return err
 	}
@@ -137,8 +135,7 @@ func (s *Server) handleAdjustmentCreate(c echo.Context) error {
 	if err := bind(c, &in); err != nil {
 		return err
 	}
-	ctx := c.Request().Context()
-	p, err := s.visibleProject(ctx, c.Param("project_id"))
+	ctx, p, err := s.paramProject(c)
 	if err != nil {
 		return err
 	}
