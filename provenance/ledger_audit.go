@@ -1,6 +1,7 @@
 package provenance
 
 import (
+	"errors"
 	"fmt"
 	"iter"
 
@@ -59,12 +60,17 @@ func (f *LedgerFault) Error() string {
 
 // AuditLedger recomputes the whole tree from the events' canonical bytes and checks
 // every stored hash, every tree head the sealer recorded and every checkpoint (its
-// signature with v, its text against its row, its root against the recomputation).
-// It stops at the first fault. Memory stays in log₂ n: the tree is rebuilt by a
-// TreeBuilder and every sequence is consumed as it is read. The error is for a
-// source that could not be read; what is wrong with the ledger is in the report.
-func AuditLedger(src LedgerSource, v note.Verifier) (LedgerReport, error) {
-	a := &audit{tree: NewTreeBuilder(), v: v}
+// signature with the one of keys its signature names, its text against its row, its
+// root against the recomputation). Several keys serve a ledger whose key was
+// rotated; a checkpoint signed by none of them is a fault. It stops at the first
+// fault. Memory stays in log₂ n: the tree is rebuilt by a TreeBuilder and every
+// sequence is consumed as it is read. The error is for a source that could not be
+// read; what is wrong with the ledger is in the report.
+func AuditLedger(src LedgerSource, keys ...note.Verifier) (LedgerReport, error) {
+	if len(keys) == 0 {
+		return LedgerReport{}, errors.New("ledger audit: no verifier key given")
+	}
+	a := &audit{tree: NewTreeBuilder(), keys: keys}
 	hashes, stopH := iter.Pull2(src.Hashes)
 	defer stopH()
 	heads, stopT := iter.Pull2(src.Heads)
@@ -84,7 +90,7 @@ func AuditLedger(src LedgerSource, v note.Verifier) (LedgerReport, error) {
 
 type audit struct {
 	tree   *TreeBuilder
-	v      note.Verifier
+	keys   []note.Verifier
 	hashes peekable[StoredHash]
 	heads  peekable[TreeHead]
 	cps    peekable[Checkpoint]
@@ -256,7 +262,7 @@ func (a *audit) sizeReached() (done bool, err error) {
 // checkpoint checks a stored checkpoint's signature and text against its row and
 // the recomputed root; false after a fault.
 func (a *audit) checkpoint(cp Checkpoint, root tlog.Hash) bool {
-	opened, err := OpenCheckpoint([]byte(cp.Note), a.v)
+	opened, err := OpenCheckpointKeys([]byte(cp.Note), a.keys...)
 	if err != nil {
 		a.fault(-1, cp.Size, "%v", err)
 		return false

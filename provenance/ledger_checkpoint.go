@@ -133,6 +133,38 @@ func ParseVerifierKey(vkey string) (note.Verifier, error) {
 	return v, nil
 }
 
+// OpenCheckpointKeys is OpenCheckpoint for several keys of one ledger, as a key
+// rotation leaves it: the checkpoint is checked with the key whose name and hash its
+// signature line names, and its origin must be that key's name. A checkpoint signed
+// by none of the keys is refused with an error naming the keys that did sign it.
+func OpenCheckpointKeys(signed []byte, keys ...note.Verifier) (Checkpoint, error) {
+	n, err := note.Open(signed, note.VerifierList(keys...))
+	if err != nil {
+		var unverified *note.UnverifiedNoteError
+		if errors.As(err, &unverified) {
+			signers := make([]string, 0, len(unverified.Note.UnverifiedSigs))
+			for _, s := range unverified.Note.UnverifiedSigs {
+				signers = append(signers, fmt.Sprintf("%s+%08x", s.Name, s.Hash))
+			}
+			return Checkpoint{}, fmt.Errorf("checkpoint signature: signed by none of the %d given keys (signed by %s)",
+				len(keys), strings.Join(signers, ", "))
+		}
+		return Checkpoint{}, fmt.Errorf("checkpoint signature: %w", err)
+	}
+	origin, size, root, err := ParseCheckpointBody(n.Text)
+	if err != nil {
+		return Checkpoint{}, err
+	}
+	named := false
+	for _, s := range n.Sigs {
+		named = named || s.Name == origin
+	}
+	if !named {
+		return Checkpoint{}, fmt.Errorf("checkpoint origin %q is not the name of the key that signed it (%q)", origin, n.Sigs[0].Name)
+	}
+	return Checkpoint{Origin: origin, Size: size, Root: root, Note: string(signed)}, nil
+}
+
 // OpenCheckpoint checks a signed checkpoint against the verifier and returns what it
 // states. The origin must equal the verifier's key name. SignedAt is left zero: the
 // note does not carry it.

@@ -20,14 +20,18 @@ import (
 const ledgerUsage = `usage: beamledger ledger <command> [flags]
 
 commands:
-  verify [-key VERIFIER-KEY] [-json]   recompute the tree from the database and check every
+  verify [-key VERIFIER-KEY]... [-json]
+                                       recompute the tree from the database and check every
                                        stored hash and checkpoint (exit 3 on a finding)
   checkpoint                           seal committed events now and print the signed checkpoint
   key                                  print the checkpoints' verifier key, to publish
 
 The database comes from BEAMLEDGER_DATABASE_URL; the signing key from
 BEAMLEDGER_LEDGER_KEY (or _FILE) and the ledger's name from BEAMLEDGER_LEDGER_ORIGIN,
-as for serve. verify needs only the public verifier key, given with -key.
+as for serve. verify needs only the public verifier keys, given with -key: after a
+rotation of the ledger key give every key that signed checkpoints (-key repeated, a
+comma-separated list, or a file with one key a line); each checkpoint is checked
+with the key its signature names, and one signed by none of them is a finding.
 `
 
 // cmdLedger runs the ledger's administration commands.
@@ -73,13 +77,14 @@ func ledgerFlags(fs *flag.FlagSet) func() (*provenance.CheckpointSigner, error) 
 func cmdLedgerVerify(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := flag.NewFlagSet("ledger verify", flag.ContinueOnError)
 	fs.SetOutput(stderr)
-	keyText := fs.String("key", "", "verifier key (origin+hash+base64, as `beamledger ledger key` prints) or a file holding it; default: from BEAMLEDGER_LEDGER_KEY")
+	var keyTexts keyList
+	fs.Var(&keyTexts, "key", "verifier key (origin+hash+base64, as `beamledger ledger key` prints), a comma-separated list of them or a file holding them one a line; repeat for several (the keys of a rotated ledger); default: from BEAMLEDGER_LEDGER_KEY")
 	asJSON := fs.Bool("json", false, "print the report as JSON")
 	signer := ledgerFlags(fs)
 	if err := fs.Parse(args); err != nil {
 		return err
 	}
-	v, err := ledgerVerifier(*keyText, signer)
+	keys, err := ledgerVerifiers(keyTexts, signer)
 	if err != nil {
 		return err
 	}
@@ -89,7 +94,7 @@ func cmdLedgerVerify(ctx context.Context, args []string, stdout, stderr io.Write
 	}
 	defer db.Close()
 	start := time.Now()
-	rep, err := db.AuditLedger(ctx, v)
+	rep, err := db.AuditLedger(ctx, keys...)
 	if err != nil {
 		return err
 	}
@@ -116,30 +121,81 @@ func cmdLedgerVerify(ctx context.Context, args []string, stdout, stderr io.Write
 	if f := rep.Fault; f != nil {
 		if f.Index >= 0 {
 			fmt.Fprintf(stdout, "first bad event: %d\n", f.Index)
+		} else {
+			fmt.Fprintf(stdout, "first bad checkpoint: size %d: %s\n", f.Size, f.Problem)
 		}
 		return &exitError{exitFindings, f}
 	}
 	return nil
 }
 
-// ledgerVerifier reads the verifier key given with -key (the text or a file holding
-// it), or derives it from the signing key in the environment.
-func ledgerVerifier(text string, signer func() (*provenance.CheckpointSigner, error)) (note.Verifier, error) {
-	if text == "" {
+// keyList collects the -key values in order.
+type keyList []string
+
+func (k *keyList) String() string { return strings.Join(*k, ",") }
+
+func (k *keyList) Set(v string) error {
+	*k = append(*k, v)
+	return nil
+}
+
+// ledgerVerifiers reads the verifier keys given with -key, each value a key, a
+// comma-separated list of keys or a file holding keys one a line (blank lines and
+// lines starting with # skipped), or, with none given, derives the one key from the
+// signing key in the environment. A key given twice counts once.
+func ledgerVerifiers(texts []string, signer func() (*provenance.CheckpointSigner, error)) ([]note.Verifier, error) {
+	if len(texts) == 0 {
 		s, err := signer()
 		if err != nil {
 			return nil, fmt.Errorf("%w (or give the public verifier key with -key)", err)
 		}
-		return s.Verifier(), nil
+		return []note.Verifier{s.Verifier()}, nil
 	}
-	if !strings.Contains(text, "+") {
-		b, err := os.ReadFile(text)
+	var keys []note.Verifier
+	seen := map[string]bool{}
+	add := func(where, text string) error {
+		v, err := provenance.ParseVerifierKey(text)
 		if err != nil {
-			return nil, fmt.Errorf("-key: %w", err)
+			return fmt.Errorf("-key %s: %w", where, err)
 		}
-		text = string(b)
+		id := fmt.Sprintf("%s+%08x", v.Name(), v.KeyHash())
+		if !seen[id] {
+			seen[id] = true
+			keys = append(keys, v)
+		}
+		return nil
 	}
-	return provenance.ParseVerifierKey(text)
+	for _, text := range texts {
+		for part := range strings.SplitSeq(text, ",") {
+			part = strings.TrimSpace(part)
+			switch {
+			case part == "":
+				continue
+			case strings.Contains(part, "+"):
+				if err := add(fmt.Sprintf("%q", part), part); err != nil {
+					return nil, err
+				}
+				continue
+			}
+			b, err := os.ReadFile(part)
+			if err != nil {
+				return nil, fmt.Errorf("-key: %w", err)
+			}
+			for n, line := range strings.Split(string(b), "\n") {
+				line = strings.TrimSpace(line)
+				if line == "" || strings.HasPrefix(line, "#") {
+					continue
+				}
+				if err := add(fmt.Sprintf("%s line %d", part, n+1), line); err != nil {
+					return nil, err
+				}
+			}
+		}
+	}
+	if len(keys) == 0 {
+		return nil, errors.New("-key: no verifier key given")
+	}
+	return keys, nil
 }
 
 // cmdLedgerCheckpoint seals what is committed and prints the signed checkpoint.

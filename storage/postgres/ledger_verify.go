@@ -28,7 +28,8 @@ const auditConns = 3
 var snapshotID = regexp.MustCompile(`^[0-9A-Fa-f-]+$`)
 
 // AuditLedger recomputes the ledger's whole tree from its event rows and checks every
-// stored hash, tree head and checkpoint (signatures with v), as
+// stored hash, tree head and checkpoint (each signature with the one of keys it
+// names: several keys check a ledger across a key rotation), as
 // provenance.AuditLedger describes. Everything is read in one REPEATABLE READ
 // snapshot, so a seal committing meanwhile is not half seen: the first transaction
 // exports it, and the events and the stored hashes are streamed by two more
@@ -37,7 +38,7 @@ var snapshotID = regexp.MustCompile(`^[0-9A-Fa-f-]+$`)
 // cursors in the first. Memory does not grow with the ledger. The error is for a
 // database that could not be read; what is wrong with the ledger is in the report's
 // Fault.
-func (db *DB) AuditLedger(ctx context.Context, v note.Verifier) (provenance.LedgerReport, error) {
+func (db *DB) AuditLedger(ctx context.Context, keys ...note.Verifier) (provenance.LedgerReport, error) {
 	var rep provenance.LedgerReport
 	if db.pool.Config().MaxConns < auditConns {
 		return rep, fmt.Errorf("ledger audit: needs a pool of %d connections, not %d", auditConns, db.pool.Config().MaxConns)
@@ -93,7 +94,7 @@ func (db *DB) AuditLedger(ctx context.Context, v note.Verifier) (provenance.Ledg
 			return scanCheckpoint(r)
 		}),
 	}
-	rep, err = provenance.AuditLedger(src, v)
+	rep, err = provenance.AuditLedger(src, keys...)
 	return rep, mapError(err, "ledger")
 }
 
