@@ -66,6 +66,10 @@ type Cluster struct {
 	tempBase string
 	pid      int // the postmaster this Cluster started or adopted
 	follow   *logFollower
+	// primary and slot are set on a replica (StartReplica): the cluster it
+	// streams from and its replication slot there, dropped by Stop.
+	primary *Cluster
+	slot    string
 
 	stopOnce sync.Once
 	stopErr  error
@@ -217,6 +221,9 @@ func (c *Cluster) stop() error {
 	defer cancel()
 	var errs []error
 	if err := c.stopServer(ctx); err != nil {
+		errs = append(errs, err)
+	}
+	if err := c.dropSlot(ctx); err != nil {
 		errs = append(errs, err)
 	}
 	c.follow.close()

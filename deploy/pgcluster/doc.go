@@ -5,7 +5,9 @@
 // (if any) untouched and needs no configuration: Start creates the cluster on
 // first use, listens on 127.0.0.1 only and returns a URL to hand to the server or
 // to the storage tests. A throwaway cluster (Options.Throwaway) trades durability
-// for speed and disappears on Stop.
+// for speed and disappears on Stop. Cluster.StartReplica adds a streaming hot
+// standby of a running cluster (pg_basebackup -R over a replication slot), for
+// tests of what reads from a replica.
 //
 // PostgreSQL refuses to run as root, which is how containers and CI usually run
 // us. When the caller is root, initdb, pg_ctl and the server run as the
