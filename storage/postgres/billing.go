@@ -310,7 +310,9 @@ func (db *DB) SetProjectFunding(ctx context.Context, projectID string, shares []
 
 // SetBookingFunding replaces a booking's own split, refusing (RuleViolation
 // "funding_account") an account that is not valid over the whole booking, or not the
-// booking's project's (ErrInvalid naming the share).
+// booking's project's (ErrInvalid naming the share), and (RuleViolation "funding_cap")
+// a split that would promise a capped account more than its cap (checkFundingCaps,
+// the booking's whole estimate counted as new to the split).
 func (db *DB) SetBookingFunding(ctx context.Context, b scheduling.Booking, shares []scheduling.FundingShare, actor string, now time.Time) error {
 	err := pgx.BeginFunc(ctx, db.pool, func(tx pgx.Tx) error {
 		accts, err := fundingAccounts(ctx, tx, b.ProjectID)
@@ -326,6 +328,11 @@ func (db *DB) SetBookingFunding(ctx context.Context, b scheduling.Booking, share
 		for i, s := range shares {
 			const q = `INSERT INTO booking_funding (booking_id, project_id, position, account_id, basis_points) VALUES ($1, $2, $3, $4, $5)`
 			if _, err := tx.Exec(ctx, q, b.ID, b.ProjectID, i, s.AccountID, s.BasisPoints); err != nil {
+				return err
+			}
+		}
+		if b.Status == scheduling.StatusActive {
+			if err := checkFundingCaps(ctx, tx, b, nil); err != nil {
 				return err
 			}
 		}

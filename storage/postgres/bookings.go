@@ -84,11 +84,11 @@ func (db *DB) createBookingDirect(ctx context.Context, nb scheduling.NewBooking,
 		return b, err, true
 	}
 	defer conn.Release()
-	bc, taken, err := db.readBookingContext(ctx, conn, nb, now, "")
+	bc, taken, capped, err := db.readBookingContext(ctx, conn, nb, now, "")
 	if err != nil {
 		return b, err, true
 	}
-	if nb.ProjectID != "" && bc.Rules.PrimeAllowanceMinutesPerWeek > 0 {
+	if capped || (nb.ProjectID != "" && bc.Rules.PrimeAllowanceMinutesPerWeek > 0) {
 		return b, nil, false
 	}
 	if err := check(bc); err != nil {
@@ -108,12 +108,18 @@ func (db *DB) createBookingDirect(ctx context.Context, nb scheduling.NewBooking,
 
 // createBooking does CreateBooking's work inside tx (series use it per instance).
 func (db *DB) createBooking(ctx context.Context, tx pgx.Tx, nb scheduling.NewBooking, now time.Time, check func(scheduling.BookingContext) error) (scheduling.Booking, error) {
-	bc, err := db.bookingContext(ctx, tx, nb, now, "")
+	bc, capped, err := db.bookingContext(ctx, tx, nb, now, "")
 	if err != nil {
 		return scheduling.Booking{}, err
 	}
 	if err := check(bc); err != nil {
 		return scheduling.Booking{}, err
+	}
+	if capped {
+		b := scheduling.Booking{ProjectID: nb.ProjectID, InstrumentID: nb.InstrumentID, Kind: nb.Kind, Start: nb.Start, End: nb.End}
+		if err := checkFundingCaps(ctx, tx, b, nil); err != nil {
+			return scheduling.Booking{}, err
+		}
 	}
 	var displaced []string
 	if nb.Kind == scheduling.KindService {
@@ -202,13 +208,13 @@ type querier interface {
 // bookingContext reads what the rules need for booking nb, leaving out booking
 // excludeID (being moved), and, when a prime-time allowance applies, takes the
 // project's lock for it.
-func (db *DB) bookingContext(ctx context.Context, tx pgx.Tx, nb scheduling.NewBooking, now time.Time, excludeID string) (scheduling.BookingContext, error) {
-	bc, _, err := db.readBookingContext(ctx, tx, nb, now, excludeID)
+func (db *DB) bookingContext(ctx context.Context, tx pgx.Tx, nb scheduling.NewBooking, now time.Time, excludeID string) (bc scheduling.BookingContext, capped bool, err error) {
+	bc, _, capped, err = db.readBookingContext(ctx, tx, nb, now, excludeID)
 	if err != nil || nb.ProjectID == "" || bc.Rules.PrimeAllowanceMinutesPerWeek == 0 {
-		return bc, err
+		return bc, capped, err
 	}
 	bc.PrimeUsedMinutes, err = primeUsed(ctx, tx, bc, nb.InstrumentID, nb.ProjectID, nb.Start, excludeID)
-	return bc, err
+	return bc, capped, err
 }
 
 // readBookingContext reads, in one statement, the facility's zone and rules, the
@@ -216,7 +222,9 @@ func (db *DB) bookingContext(ctx context.Context, tx pgx.Tx, nb scheduling.NewBo
 // qualification, and the first active booking other than excludeID that the range
 // overlaps on the instrument or, failing that, for the staff member: taken is then the
 // Conflict naming it, as bookingError words it. It leaves PrimeUsedMinutes at zero.
-func (db *DB) readBookingContext(ctx context.Context, q querier, nb scheduling.NewBooking, now time.Time, excludeID string) (bc scheduling.BookingContext, taken error, err error) {
+// capped reports that the booking's funding split posts to an account with a cap,
+// which checkFundingCaps judges inside a transaction.
+func (db *DB) readBookingContext(ctx context.Context, q querier, nb scheduling.NewBooking, now time.Time, excludeID string) (bc scheduling.BookingContext, taken error, capped bool, err error) {
 	var zone string
 	var facilityRules, instrumentRules []byte
 	// One round trip for the facility, the instrument, membership, the booked user's
@@ -230,13 +238,14 @@ SELECT f.time_zone, f.booking_rules, i.rules_override, i.bookable, i.name,
            AND o.offer_expires_at > $6 AND o.user_id <> $2 AND o.during && tstzrange($4, $5, '[)')),
        ib.lo, ib.hi, sb.lo, sb.hi,
        (SELECT json_agg(json_build_object('account_id', a.id, 'basis_points', s.basis_points, 'code', a.code,
-                                          'valid_from', a.valid_from, 'valid_until', a.valid_until) ORDER BY s.position)
+                                          'valid_from', a.valid_from, 'valid_until', a.valid_until, 'cap_minor', a.cap_minor,
+                                          'unfit', coalesce(a.valid_from > $4 OR a.valid_until < $5, false)) ORDER BY s.position)
         FROM (SELECT account_id, basis_points, position FROM booking_funding WHERE booking_id = nullif($8, '')::uuid
               UNION ALL
               SELECT account_id, basis_points, position FROM project_funding WHERE project_id = nullif($3, '')::uuid
                 AND NOT EXISTS (SELECT 1 FROM booking_funding WHERE booking_id = nullif($8, '')::uuid)) s
         JOIN funding_accounts a ON a.id = s.account_id
-        WHERE a.valid_from > $4 OR a.valid_until < $5)
+        WHERE a.valid_from > $4 OR a.valid_until < $5 OR a.cap_minor > 0)
 FROM facility f CROSS JOIN instruments i
 LEFT JOIN qualifications q ON q.user_id = $2 AND q.instrument_id = i.id AND q.revoked_at IS NULL
 LEFT JOIN LATERAL (SELECT lower(b.during), upper(b.during) FROM bookings b
@@ -254,32 +263,39 @@ WHERE f.id = 1 AND i.id = $1`
 		&zone, &facilityRules, &instrumentRules, &bc.Bookable, &bc.InstrumentName, &bc.Member,
 		&qID, &qLevel, &qBy, &qAt, &qReason, &qIdle, &qUsed, &bc.HeldUntil, &ibStart, &ibEnd, &sbStart, &sbEnd, &unfunded)
 	if errors.Is(err, pgx.ErrNoRows) {
-		return bc, nil, beamledger.NotFound("instrument (or the facility is not set up)")
+		return bc, nil, false, beamledger.NotFound("instrument (or the facility is not set up)")
 	}
 	if err != nil {
-		return bc, nil, err
+		return bc, nil, false, err
 	}
 	if bc.Location, err = db.location(zone); err != nil {
-		return bc, nil, fmt.Errorf("facility time zone %q: %w", zone, err)
+		return bc, nil, false, fmt.Errorf("facility time zone %q: %w", zone, err)
 	}
 	var fo, io scheduling.RulesOverride
 	if err := json.Unmarshal(facilityRules, &fo); err != nil {
-		return bc, nil, fmt.Errorf("facility booking rules: %w", err)
+		return bc, nil, false, fmt.Errorf("facility booking rules: %w", err)
 	}
 	if err := json.Unmarshal(instrumentRules, &io); err != nil {
-		return bc, nil, fmt.Errorf("instrument booking rules: %w", err)
+		return bc, nil, false, fmt.Errorf("instrument booking rules: %w", err)
 	}
 	bc.Rules = scheduling.DefaultRules().With(fo).With(io)
 	if len(unfunded) > 0 {
+		// Accounts come back when not valid over the range (unfit) or capped: a cap
+		// is checked after the rules pass, in the booking's transaction.
 		var rows []struct {
 			scheduling.FundingAccount
 			BasisPoints int64  `json:"basis_points"`
 			AccountID   string `json:"account_id"`
+			Unfit       bool   `json:"unfit"`
 		}
 		if err := json.Unmarshal(unfunded, &rows); err != nil {
-			return bc, nil, fmt.Errorf("funding split: %w", err)
+			return bc, nil, false, fmt.Errorf("funding split: %w", err)
 		}
 		for _, r := range rows {
+			capped = capped || r.CapMinor > 0
+			if !r.Unfit {
+				continue
+			}
 			r.FundingAccount.ID = r.AccountID
 			bc.FundingSplit = append(bc.FundingSplit, scheduling.FundingShare{AccountID: r.AccountID, BasisPoints: r.BasisPoints})
 			bc.FundingAccounts = append(bc.FundingAccounts, r.FundingAccount)
@@ -296,7 +312,7 @@ WHERE f.id = 1 AND i.id = $1`
 	case sbStart != nil && sbEnd != nil:
 		taken = overlapConflict(staffTaken, scheduling.Interval{Start: *sbStart, End: *sbEnd})
 	}
-	return bc, taken, nil
+	return bc, taken, capped, nil
 }
 
 // location returns the named zone, loaded once per process: time.LoadLocation reads
@@ -459,12 +475,19 @@ func (db *DB) MoveBooking(ctx context.Context, id string, start, end time.Time, 
 		}
 		moved := scheduling.NewBooking{InstrumentID: cur.InstrumentID, UserID: cur.UserID, ProjectID: cur.ProjectID, StaffID: cur.StaffID,
 			Start: start, End: end}
-		bc, err := db.bookingContext(ctx, tx, moved, now, id)
+		bc, capped, err := db.bookingContext(ctx, tx, moved, now, id)
 		if err != nil {
 			return err
 		}
 		if err := check(cur, bc); err != nil {
 			return err
+		}
+		if capped && cur.Kind != scheduling.KindService {
+			after := cur
+			after.Start, after.End = start, end
+			if err := checkFundingCaps(ctx, tx, after, &cur); err != nil {
+				return err
+			}
 		}
 		const q = `UPDATE bookings SET during = tstzrange($2, $3, '[)'), updated_at = $4 WHERE id = $1`
 		if _, err := tx.Exec(ctx, q, id, start, end, now); err != nil {
