@@ -78,7 +78,13 @@ func (s *Server) handleSeriesCreate(c echo.Context) error {
 	res, err := s.store.CreateSeries(ctx, ns, now, func(o scheduling.Occurrence, bc scheduling.BookingContext) error {
 		nb := tmpl
 		nb.Start, nb.End = o.Start, o.End
-		return checkNewBooking(me, nb, bc, now)
+		if err := checkNewBooking(me, nb, bc, now); err != nil {
+			return err
+		}
+		// As for a single booking, every instance's charges need a valid account (the
+		// caps are judged by storage, instance after instance in this transaction); an
+		// instance refused is reported with the funding rule it breaks.
+		return scheduling.CheckFundingAt(bc.FundingSplit, bc.FundingAccounts, nb.Start, nb.End)
 	})
 	if err != nil {
 		return err
