@@ -21,15 +21,17 @@ func (c funcCollector) Describe(ch chan<- *prometheus.Desc) {
 
 func (c funcCollector) Collect(ch chan<- prometheus.Metric) { c.collect(ch) }
 
-func poolCollector(read func() PoolStats) prometheus.Collector {
+// poolCollector reports a connection pool's state under prefix; what names the
+// pool in the help texts.
+func poolCollector(prefix, what string, read func() PoolStats) prometheus.Collector {
 	desc := func(name, help string, labels ...string) *prometheus.Desc {
-		return prometheus.NewDesc("beamledger_db_pool_"+name, help, labels, nil)
+		return prometheus.NewDesc(prefix+name, what+": "+help, labels, nil)
 	}
-	conns := desc("connections", "Database pool connections by state (acquired, idle, constructing, total, max).", "state")
-	acquires := desc("acquires_total", "Connections acquired from the database pool.")
-	empty := desc("empty_acquires_total", "Acquisitions that waited because the pool had no idle connection.")
-	canceled := desc("canceled_acquires_total", "Acquisitions given up before a connection came.")
-	wait := desc("acquire_wait_seconds_total", "Total time spent waiting for a database connection.")
+	conns := desc("connections", "connections by state (acquired, idle, constructing, total, max).", "state")
+	acquires := desc("acquires_total", "connections acquired.")
+	empty := desc("empty_acquires_total", "acquisitions that waited because the pool had no idle connection.")
+	canceled := desc("canceled_acquires_total", "acquisitions given up before a connection came.")
+	wait := desc("acquire_wait_seconds_total", "total time spent waiting for a connection.")
 	return funcCollector{
 		descs: []*prometheus.Desc{conns, acquires, empty, canceled, wait},
 		collect: func(ch chan<- prometheus.Metric) {

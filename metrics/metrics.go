@@ -40,9 +40,12 @@ type LedgerStats struct {
 // Sources are read at each scrape. Ledger may be slow (it asks the database), so a
 // scrape gives it a deadline; either may be nil.
 type Sources struct {
-	Pool   func() PoolStats
-	Ledger func(context.Context) (LedgerStats, error)
-	Now    func() time.Time
+	Pool func() PoolStats
+	// ReplicaPool is the read replica's pool, reported beside the primary's as
+	// beamledger_db_replica_pool_*; nil without a replica.
+	ReplicaPool func() PoolStats
+	Ledger      func(context.Context) (LedgerStats, error)
+	Now         func() time.Time
 }
 
 // Registry holds the measurements of one server process.
@@ -107,7 +110,10 @@ func New(src Sources) *Registry {
 		r.jobRuns, r.jobFailures, r.jobDuration, r.jobLastSuccess,
 		collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
 	if src.Pool != nil {
-		r.reg.MustRegister(poolCollector(src.Pool))
+		r.reg.MustRegister(poolCollector("beamledger_db_pool_", "Database pool", src.Pool))
+	}
+	if src.ReplicaPool != nil {
+		r.reg.MustRegister(poolCollector("beamledger_db_replica_pool_", "Read-replica pool", src.ReplicaPool))
 	}
 	if src.Ledger != nil {
 		r.reg.MustRegister(&ledgerCollector{read: src.Ledger, now: now})

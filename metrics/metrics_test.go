@@ -66,3 +66,25 @@ func gather(t *testing.T, r *Registry) map[string]float64 {
 	}
 	return out
 }
+
+// TestReplicaPool reports the read replica's pool beside the primary's, under its
+// own names, and no replica series without a replica.
+func TestReplicaPool(t *testing.T) {
+	primary := PoolStats{Acquired: 1, Total: 4, Max: 8, Acquires: 40, EmptyAcquires: 3}
+	replica := PoolStats{Acquired: 2, Total: 2, Max: 4, Acquires: 7, CanceledAcquires: 1, AcquireWait: 1500 * time.Millisecond}
+	got := gather(t, New(Sources{Pool: func() PoolStats { return primary }, ReplicaPool: func() PoolStats { return replica }}))
+	// [constructed: the two snapshots above]
+	for name, want := range map[string]float64{
+		"beamledger_db_pool_acquires_total": 40, "beamledger_db_pool_empty_acquires_total": 3,
+		"beamledger_db_replica_pool_acquires_total": 7, "beamledger_db_replica_pool_canceled_acquires_total": 1,
+		"beamledger_db_replica_pool_acquire_wait_seconds_total": 1.5,
+	} {
+		if got[name] != want {
+			t.Errorf("%s = %v, want %v", name, got[name], want)
+		}
+	}
+	got = gather(t, New(Sources{Pool: func() PoolStats { return primary }}))
+	if _, has := got["beamledger_db_replica_pool_acquires_total"]; has {
+		t.Error("replica pool series without a replica")
+	}
+}

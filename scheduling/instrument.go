@@ -205,6 +205,9 @@ type InstrumentStore interface {
 	// SetConditionLimits replaces an instrument's condition limits and returns the
 	// instrument. ErrNotFound when there is none.
 	SetConditionLimits(ctx context.Context, id string, l ConditionLimits) (Instrument, error)
+	// SetInstrumentBookable opens an instrument to bookings or closes it, and returns
+	// the instrument. Bookings already made stay. ErrNotFound when there is none.
+	SetInstrumentBookable(ctx context.Context, id string, bookable bool) (Instrument, error)
 	// InstrumentByCode returns one instrument by its code. ErrNotFound when none.
 	InstrumentByCode(ctx context.Context, code string) (Instrument, error)
 	// Instruments lists instruments ordered by code.

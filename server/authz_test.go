@@ -104,6 +104,7 @@ var routeMatrix = map[string]routeExpectation{
 	"GET /ledger":           {who: pagesOnly},
 	"GET /qualifications":   {who: opsPage},
 	"GET /rates":            {who: pagesOnly},
+	"GET /instruments":      {who: readersPage},
 	"GET /signin":           {who: openToAll},
 	"POST /signin":          {who: csrfRefused},
 	"POST /signout":         {who: csrfRefused},
@@ -161,6 +162,9 @@ var routeMatrix = map[string]routeExpectation{
 	"GET /api/v1/instruments/:instrument_id": {who: usersAndAgent},
 	"PUT /api/v1/instruments/:instrument_id/condition-limits": {who: facilityOpsOnly, strict: true, body: func(*world) any {
 		return map[string]any{"camera_length_min_m": 0.02, "camera_length_max_m": 2.5, "condition_checks": "warning"}
+	}},
+	"PUT /api/v1/instruments/:instrument_id/bookable": {who: managerOnly, strict: true, body: func(*world) any {
+		return map[string]any{"bookable": true}
 	}},
 	"GET /api/v1/instruments/:instrument_id/agent-tokens": {who: access{wUnauth, wAllow, wAllow, wDeny, wDeny, wDeny}},
 	"POST /api/v1/instruments/:instrument_id/agent-tokens": {who: managerOnly, body: func(*world) any {

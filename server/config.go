@@ -25,7 +25,14 @@ import (
 // Validate() refuses weak or missing secrets and impossible settings.
 type Config struct {
 	DatabaseURL string
-	ListenAddr  string
+	// DatabaseReplicaURL, when set, names a read replica (a streaming hot standby of
+	// the primary) that the read-only report routes read instead of the primary:
+	// utilization, cost recovery and fair share. Everything else, every write and
+	// every read that must see the caller's own write, stays on the primary. While
+	// the replica is down those reports answer 503 and readiness says so without
+	// failing.
+	DatabaseReplicaURL string
+	ListenAddr         string
 
 	// JWT: access tokens are signed with SigningKey (Ed25519, the only algorithm
 	// accepted) and verified with it or any of VerifyKeys (keys being rotated out).
@@ -152,6 +159,9 @@ func (c Config) Validate() error {
 	bad := func(format string, args ...any) { errs = append(errs, fmt.Errorf(format, args...)) }
 	if c.DatabaseURL == "" {
 		bad("BEAMLEDGER_DATABASE_URL is required")
+	}
+	if c.DatabaseReplicaURL != "" && c.DatabaseReplicaURL == c.DatabaseURL {
+		bad("BEAMLEDGER_DATABASE_REPLICA_URL names the primary itself; give a standby's URL or leave it unset")
 	}
 	if _, _, err := net.SplitHostPort(c.ListenAddr); err != nil {
 		bad("listen address %q is not host:port", c.ListenAddr)
@@ -336,6 +346,7 @@ func decodeKeyBytes(s string) ([]byte, error) {
 func (c Config) LogValue() slog.Value {
 	return slog.GroupValue(
 		slog.String("database_url", redactURL(c.DatabaseURL)),
+		slog.String("database_replica_url", redactURL(c.DatabaseReplicaURL)),
 		slog.String("listen_addr", c.ListenAddr),
 		slog.String("jwt_issuer", c.Issuer),
 		slog.String("jwt_audience", c.Audience),

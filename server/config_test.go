@@ -84,6 +84,7 @@ func TestValidateRefuses(t *testing.T) {
 		{"low-entropy seed", func(c *Config) { c.SigningKey = ed25519.NewKeyFromSeed(lowEntropy) }, "BEAMLEDGER_JWT_SIGNING_KEY: has too little entropy"},
 		{"truncated signing key", func(c *Config) { c.SigningKey = c.SigningKey[:40] }, "BEAMLEDGER_JWT_SIGNING_KEY: is not an Ed25519"},
 		{"missing database URL", func(c *Config) { c.DatabaseURL = "" }, "BEAMLEDGER_DATABASE_URL is required"},
+		{"replica URL naming the primary", func(c *Config) { c.DatabaseReplicaURL = c.DatabaseURL }, "BEAMLEDGER_DATABASE_REPLICA_URL names the primary"},
 		{"listen address without port", func(c *Config) { c.ListenAddr = "localhost" }, "listen address"},
 		{"listen address empty", func(c *Config) { c.ListenAddr = "" }, "listen address"},
 		{"s3 without bucket", func(c *Config) { withS3(c); c.S3.Bucket = "" }, "BEAMLEDGER_S3_BUCKET"},
@@ -228,6 +229,7 @@ func TestLogValueRedactsSecrets(t *testing.T) {
 		t.Run(tc.name, func(t *testing.T) {
 			cfg := validConfig(t)
 			cfg.DatabaseURL = tc.url
+			cfg.DatabaseReplicaURL = strings.Replace(tc.url, "db.example", "standby.example", 1)
 			cfg.ObjectStore = "s3"
 			cfg.S3 = S3Config{Endpoint: "s3.example:9000", Bucket: "em-data", AccessKey: s3Access, SecretKey: s3Secret}
 			for name, h := range map[string]func(*bytes.Buffer) slog.Handler{
@@ -243,7 +245,8 @@ func TestLogValueRedactsSecrets(t *testing.T) {
 					}
 				}
 				// The redacted values are still there, so the check above looked at them.
-				for _, want := range []string{"database_url", tc.shown, "s3.example:9000", "em-data", "s3_secret_key", "[redacted]"} {
+				for _, want := range []string{"database_url", tc.shown, "database_replica_url", strings.Replace(tc.shown, "db.example", "standby.example", 1),
+					"s3.example:9000", "em-data", "s3_secret_key", "[redacted]"} {
 					if !strings.Contains(out, want) {
 						t.Errorf("%s log lacks %q:\n%s", name, want, out)
 					}

@@ -187,11 +187,11 @@ func (s *Server) handleRecoveryReport(c echo.Context) error {
 		return err
 	}
 	from, to := time.Date(year, 1, 1, 0, 0, 0, 0, loc), time.Date(year+1, 1, 1, 0, 0, 0, 0, loc)
-	entries, err := s.store.CostEntries(ctx, year)
+	entries, err := s.reports().CostEntries(ctx, year)
 	if err != nil {
 		return err
 	}
-	charged, err := s.store.IssuedChargesByInstrument(ctx, from, to)
+	charged, err := s.reports().IssuedChargesByInstrument(ctx, from, to)
 	if err != nil {
 		return err
 	}
@@ -233,7 +233,7 @@ func (s *Server) handleUtilizationReport(c echo.Context) error {
 	if format != "" && format != "json" && format != "csv" {
 		return beamledger.InvalidField("format", "must be json or csv")
 	}
-	in, err := s.store.UtilizationInputs(ctx, instrumentID, from, to)
+	in, err := s.reports().UtilizationInputs(ctx, instrumentID, from, to)
 	if err != nil {
 		return err
 	}

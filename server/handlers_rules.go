@@ -152,11 +152,11 @@ func (s *Server) handleFairShare(c echo.Context) error {
 		return err
 	}
 	from, to := scheduling.PeriodBounds(p, at, loc)
-	quotas, err := s.store.Quotas(ctx, "")
+	quotas, err := s.reports().Quotas(ctx, "")
 	if err != nil {
 		return err
 	}
-	booked, used, err := s.store.ShareIntervals(ctx, from, to, s.now())
+	booked, used, err := s.reports().ShareIntervals(ctx, from, to, s.now())
 	if err != nil {
 		return err
 	}

@@ -280,6 +280,7 @@ func TestOpenAPIExamplesExercise(t *testing.T) {
 	exerciseUsers(t, w)
 	exerciseProjects(t, w)
 	exerciseInstruments(t, w)
+	exerciseInstrumentBookable(t, w)
 	exerciseBookings(t, w)
 	exerciseUsage(t, w)
 	exerciseFeeds(t, w)

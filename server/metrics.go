@@ -16,6 +16,7 @@ import (
 	"github.com/labstack/echo/v4"
 
 	"beamledger/metrics"
+	"beamledger/storage/postgres"
 )
 
 // Background jobs as the metrics name them.
@@ -32,15 +33,21 @@ var uploadRoutes = map[string]bool{
 	http.MethodPatch + " /api/v1/uploads/:upload_id": true,
 }
 
-// newMetrics makes the process's metrics, reading the pool and the ledger at each scrape.
+// newMetrics makes the process's metrics, reading the pools and the ledger at each
+// scrape. The replica's pool is reported when the configuration names a replica.
 func (s *Server) newMetrics() *metrics.Registry {
+	var replicaPool func() metrics.PoolStats
+	if s.cfg.DatabaseReplicaURL != "" {
+		replicaPool = func() metrics.PoolStats {
+			if s.replica == nil {
+				return metrics.PoolStats{}
+			}
+			return poolStats(s.replica.PoolStats())
+		}
+	}
 	return metrics.New(metrics.Sources{
-		Pool: func() metrics.PoolStats {
-			p := s.store.PoolStats()
-			return metrics.PoolStats{Acquired: p.Acquired, Idle: p.Idle, Constructing: p.Constructing, Total: p.Total,
-				Max: p.Max, Acquires: p.Acquires, EmptyAcquires: p.EmptyAcquires, CanceledAcquires: p.CanceledAcquires,
-				AcquireWait: p.AcquireWait}
-		},
+		Pool:        func() metrics.PoolStats { return poolStats(s.store.PoolStats()) },
+		ReplicaPool: replicaPool,
 		Ledger: func(ctx context.Context) (metrics.LedgerStats, error) {
 			head, err := s.store.LedgerHead(ctx)
 			if err != nil {
@@ -58,6 +65,13 @@ func (s *Server) newMetrics() *metrics.Registry {
 		},
 		Now: s.now,
 	})
+}
+
+// poolStats converts storage's pool snapshot for the metrics.
+func poolStats(p postgres.PoolStats) metrics.PoolStats {
+	return metrics.PoolStats{Acquired: p.Acquired, Idle: p.Idle, Constructing: p.Constructing, Total: p.Total,
+		Max: p.Max, Acquires: p.Acquires, EmptyAcquires: p.EmptyAcquires, CanceledAcquires: p.CanceledAcquires,
+		AcquireWait: p.AcquireWait}
 }
 
 // countRequests records every answered request by route template and status; it

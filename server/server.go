@@ -48,6 +48,9 @@ type Server struct {
 	// metrics counts requests, uploads and background jobs, and reads the pool and
 	// the ledger when scraped.
 	metrics *metrics.Registry
+	// replica is the pool on the read replica (Config.DatabaseReplicaURL) that the
+	// read-only reports read; nil without one. New opens it and Close closes it.
+	replica *postgres.DB
 }
 
 // New builds a server. now is the clock (time.Now outside tests).
@@ -100,11 +103,36 @@ func New(cfg Config, store *postgres.DB, log *slog.Logger, now func() time.Time)
 	if err := s.routes(); err != nil {
 		return nil, err
 	}
+	if cfg.DatabaseReplicaURL != "" {
+		// Last, so that no earlier failure leaves the pool open.
+		if s.replica, err = postgres.OpenReplica(context.Background(), cfg.DatabaseReplicaURL, 0); err != nil {
+			return nil, fmt.Errorf("BEAMLEDGER_DATABASE_REPLICA_URL: %w", err)
+		}
+	}
 	return s, nil
 }
 
 // Handler returns the server's HTTP handler (for tests and embedding).
 func (s *Server) Handler() http.Handler { return s.echo }
+
+// Close releases what New opened: the read replica's pool. The primary's pool
+// belongs to the caller of New.
+func (s *Server) Close() {
+	if s.replica != nil {
+		s.replica.Close()
+	}
+}
+
+// reports is the database the read-only report routes read: the read replica when
+// one is configured, else the primary. Only reads that may trail the primary by the
+// replica's lag belong there (reports over periods, never a record the caller may
+// just have written); a replica that is down makes them fail as unreachable (503).
+func (s *Server) reports() *postgres.DB {
+	if s.replica != nil {
+		return s.replica
+	}
+	return s.store
+}
 
 // Serve answers on ln until ctx ends, then drains in-flight requests for up to the
 // shutdown timeout.
@@ -162,6 +190,7 @@ func Run(ctx context.Context, cfg Config, store *postgres.DB, log *slog.Logger, 
 	if err != nil {
 		return err
 	}
+	defer s.Close()
 	ln, err := net.Listen("tcp", cfg.ListenAddr)
 	if err != nil {
 		return err

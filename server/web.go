@@ -38,6 +38,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 	page("/ledger", s.handleLedgerPage)
 	pageFor("/qualifications", users(facilityOps...), s.handleQualificationsPage)
 	page("/rates", s.handleRatesPage)
+	pageFor("/instruments", users(readersAll...), s.handleInstrumentsPage)
 	add(http.MethodGet, "/signin", open(), s.handleSignInPage)
 	add(http.MethodPost, "/signin", open(), s.handleSignIn)
 	add(http.MethodPost, "/signout", open(), s.handleSignOut)
@@ -58,7 +59,8 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 // sign-in form.
 func isPagePath(p string) bool {
 	switch p {
-	case "/", "/calendar", "/acquire", "/files", "/trace", "/statements", "/reports", "/ledger", "/qualifications", "/rates":
+	case "/", "/calendar", "/acquire", "/files", "/trace", "/statements", "/reports", "/ledger", "/qualifications", "/rates",
+		"/instruments":
 		return true
 	}
 	return false

@@ -112,3 +112,12 @@ type FilesData struct {
 	// Selected is a file whose lineage to draw on arrival.
 	Selected string
 }
+
+// InstrumentsData is the instruments page: capabilities and booking rules for
+// everyone who may see it; Manage lets managers add instruments, open or close them
+// to bookings and change the rules.
+type InstrumentsData struct {
+	Page
+	Manage                           bool
+	Kinds, Correctors, DetectorKinds []string
+}

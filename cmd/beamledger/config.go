@@ -149,6 +149,9 @@ func readSecrets(cfg *server.Config) error {
 	if v := get("BEAMLEDGER_DATABASE_URL"); v != "" {
 		cfg.DatabaseURL = v
 	}
+	if v := get("BEAMLEDGER_DATABASE_REPLICA_URL"); v != "" {
+		cfg.DatabaseReplicaURL = v
+	}
 	if v := get("BEAMLEDGER_JWT_SIGNING_KEY"); v != "" {
 		k, err := server.ParseSigningKey(v)
 		if err != nil {

@@ -33,17 +33,10 @@ var (
 // Open connects to the database at url and checks it answers. maxConns ≤ 0 keeps
 // pgx's default.
 func Open(ctx context.Context, url string, maxConns int32) (*DB, error) {
-	cfg, err := pgxpool.ParseConfig(url)
+	cfg, err := poolConfig(url, maxConns, "beamledger")
 	if err != nil {
-		// The URL may hold a password: do not echo it.
-		return nil, fmt.Errorf("database URL is not valid")
+		return nil, err
 	}
-	if maxConns > 0 {
-		cfg.MaxConns = maxConns
-	}
-	cfg.ConnConfig.RuntimeParams["application_name"] = "beamledger"
-	// UTC everywhere in the database session; the facility zone is applied in Go.
-	cfg.ConnConfig.RuntimeParams["timezone"] = "UTC"
 	pool, err := pgxpool.NewWithConfig(ctx, cfg)
 	if err != nil {
 		return nil, fmt.Errorf("connect to database: %w", err)
@@ -55,6 +48,43 @@ func Open(ctx context.Context, url string, maxConns int32) (*DB, error) {
 		return nil, fmt.Errorf("reach database: %w", err)
 	}
 	return &DB{pool: pool}, nil
+}
+
+// OpenReplica opens a pool on a read replica (a streaming hot standby) for the
+// read-only reports. Unlike Open it does not wait for the replica to answer: a
+// server starts while its replica is down, and what reads there fails as
+// unreachable until it is back. Its sessions are read-only
+// (default_transaction_read_only), so a write sent there by mistake fails even when
+// the URL names a primary, and carry application_name beamledger-replica, which tells
+// them apart in pg_stat_activity.
+func OpenReplica(ctx context.Context, url string, maxConns int32) (*DB, error) {
+	cfg, err := poolConfig(url, maxConns, "beamledger-replica")
+	if err != nil {
+		return nil, err
+	}
+	cfg.ConnConfig.RuntimeParams["default_transaction_read_only"] = "on"
+	pool, err := pgxpool.NewWithConfig(ctx, cfg)
+	if err != nil {
+		return nil, fmt.Errorf("replica database: %w", err)
+	}
+	return &DB{pool: pool}, nil
+}
+
+// poolConfig parses url into a pool configuration whose sessions run in UTC and
+// name themselves app. maxConns ≤ 0 keeps pgx's default.
+func poolConfig(url string, maxConns int32, app string) (*pgxpool.Config, error) {
+	cfg, err := pgxpool.ParseConfig(url)
+	if err != nil {
+		// The URL may hold a password: do not echo it.
+		return nil, fmt.Errorf("database URL is not valid")
+	}
+	if maxConns > 0 {
+		cfg.MaxConns = maxConns
+	}
+	cfg.ConnConfig.RuntimeParams["application_name"] = app
+	// UTC everywhere in the database session; the facility zone is applied in Go.
+	cfg.ConnConfig.RuntimeParams["timezone"] = "UTC"
+	return cfg, nil
 }
 
 // Close releases every connection.

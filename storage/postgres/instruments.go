@@ -88,6 +88,22 @@ WHERE id = $1`
 	return db.Instrument(ctx, id)
 }
 
+// SetInstrumentBookable implements scheduling.InstrumentStore.
+func (db *DB) SetInstrumentBookable(ctx context.Context, id string, bookable bool) (scheduling.Instrument, error) {
+	if !accounts.ValidID(id) {
+		return scheduling.Instrument{}, beamledger.NotFound("instrument")
+	}
+	const q = `UPDATE instruments SET bookable = $2, updated_at = now() WHERE id = $1`
+	tag, err := db.pool.Exec(ctx, q, id, bookable)
+	if err == nil && tag.RowsAffected() == 0 {
+		return scheduling.Instrument{}, beamledger.NotFound("instrument")
+	}
+	if err != nil {
+		return scheduling.Instrument{}, mapError(err, "instrument")
+	}
+	return db.Instrument(ctx, id)
+}
+
 // InstrumentByCode implements scheduling.InstrumentStore.
 func (db *DB) InstrumentByCode(ctx context.Context, code string) (scheduling.Instrument, error) {
 	in, err := scanInstrument(db.pool.QueryRow(ctx, instrumentSelect+` WHERE i.code = $1`, code))

@@ -1,0 +1,36 @@
+package server
+
+import (
+	"net/http"
+	"testing"
+
+	"github.com/google/uuid"
+
+	"beamledger/accounts"
+	"beamledger/scheduling"
+)
+
+// exerciseInstrumentBookable closes an instrument to bookings and opens it again; the
+// body must say which it is to be.
+func exerciseInstrumentBookable(t *testing.T, w *world) {
+	manager := w.tokens[accounts.RoleManager]
+	in := w.instr
+	path := "/api/v1/instruments/" + in.ID + "/bookable"
+	var got scheduling.Instrument
+	w.expect(http.StatusOK, http.MethodPut, path, manager, map[string]any{"bookable": false}, &got)
+	if got.Bookable {
+		t.Errorf("closed instrument still bookable: %+v", got)
+	}
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/instruments/"+in.ID, manager, nil, &got)
+	if got.Bookable {
+		t.Errorf("closing did not last: %+v", got)
+	}
+	if r := w.expect(http.StatusBadRequest, http.MethodPut, path, manager, map[string]any{}, nil); !fieldNamed(r, "bookable") {
+		t.Errorf("a body without bookable should name the field: %s", r.Body)
+	}
+	w.expect(http.StatusNotFound, http.MethodPut, "/api/v1/instruments/"+uuid.NewString()+"/bookable", manager, map[string]any{"bookable": true}, nil)
+	w.expect(http.StatusOK, http.MethodPut, path, manager, map[string]any{"bookable": true}, &got)
+	if !got.Bookable {
+		t.Errorf("reopened instrument not bookable: %+v", got)
+	}
+}
