@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"iter"
+	"sync"
 
 	"golang.org/x/mod/sumdb/note"
 	"golang.org/x/mod/sumdb/tlog"
@@ -71,7 +72,10 @@ func AuditLedger(src LedgerSource, keys ...note.Verifier) (LedgerReport, error) 
 		return LedgerReport{}, errors.New("ledger audit: no verifier key given")
 	}
 	a := &audit{tree: NewTreeBuilder(), keys: keys}
-	hashes, stopH := iter.Pull2(src.Hashes)
+	// The two long sequences come through pipes, each read on a goroutine of its
+	// own in batches, so that reading them overlaps the tree's rebuilding and
+	// costs a channel receive per batch rather than a switch per element.
+	hashes, stopH := pipe(src.Hashes, func(h StoredHash) StoredHash { return h })
 	defer stopH()
 	heads, stopT := iter.Pull2(src.Heads)
 	defer stopT()
@@ -104,8 +108,15 @@ type audit struct {
 	// pending holds the stored hashes the newest Append computed, to compare.
 	pending    []tlog.Hash
 	pendingErr error
-	// scratch is the leaf envelope MatchesLeaf builds, reused.
-	scratch []byte
+}
+
+// checkedEvent is an event with what can be known of it alone, worked out on the
+// events' own goroutine: its leaf hash, and whether its leaf is the canonical
+// encoding of its row (MatchesLeaf).
+type checkedEvent struct {
+	ev        LedgerEvent
+	hash      tlog.Hash
+	canonical bool
 }
 
 func (a *audit) fault(index, size int64, format string, args ...any) {
@@ -113,14 +124,25 @@ func (a *audit) fault(index, size int64, format string, args ...any) {
 }
 
 func (a *audit) run(events iter.Seq2[LedgerEvent, error]) error {
-	for ev, err := range events {
+	var scratch []byte // the leaf envelope MatchesLeaf builds, reused
+	next, stop := pipe(events, func(ev LedgerEvent) checkedEvent {
+		var ok bool
+		ok, scratch = ev.MatchesLeaf(scratch)
+		return checkedEvent{ev: ev, hash: tlog.RecordHash(ev.Leaf), canonical: ok}
+	})
+	defer stop()
+	for {
+		ce, err, more := next()
+		if !more {
+			break
+		}
 		if err != nil {
 			return err
 		}
 		if done, err := a.sizeReached(); done || err != nil {
 			return err
 		}
-		if !a.event(ev) {
+		if !a.event(ce) {
 			return nil
 		}
 		if err := a.eventHashes(); err != nil || a.rep.Fault != nil {
@@ -134,7 +156,8 @@ func (a *audit) run(events iter.Seq2[LedgerEvent, error]) error {
 }
 
 // event checks one row's place and leaf and adds it to the tree; false after a fault.
-func (a *audit) event(ev LedgerEvent) bool {
+func (a *audit) event(ce checkedEvent) bool {
+	ev := ce.ev
 	i := a.tree.Size()
 	switch {
 	case ev.Index == nil:
@@ -147,8 +170,7 @@ func (a *audit) event(ev LedgerEvent) bool {
 		a.fault(*ev.Index, 0, "index %d appears again after %d (duplicated or moved)", *ev.Index, i-1)
 		return false
 	}
-	var ok bool
-	if ok, a.scratch = ev.MatchesLeaf(a.scratch); !ok {
+	if !ce.canonical {
 		// The slow path tells why: bytes that are not a canonical event, or a row
 		// that disagrees with them. Should it find neither, the leaf is an event in
 		// canonical form after all, and passes.
@@ -162,7 +184,7 @@ func (a *audit) event(ev LedgerEvent) bool {
 			return false
 		}
 	}
-	a.pending, a.pendingErr = a.tree.Append(ev.Leaf)
+	a.pending, a.pendingErr = a.tree.AppendHash(ce.hash)
 	return true
 }
 
@@ -311,6 +333,80 @@ func (a *audit) tail() error {
 		a.fault(a.headSize, n, "events %d to %d carry no sealed tree head (inserted without the sealer)", a.headSize, n-1)
 	}
 	return nil
+}
+
+// pipeBatch is how many elements a pipe passes at a time.
+const pipeBatch = 1000
+
+// pipeMsg is one batch through a pipe, or the error that ended the sequence.
+type pipeMsg[U any] struct {
+	items []U
+	err   error
+}
+
+// pipe reads seq on a goroutine of its own, applies f to each element there, and
+// passes the results on in batches through a channel at most two batches ahead. It
+// returns a pull function like iter.Pull2's and a stop function that ends the
+// reading (the sequence sees its yield return false) and waits for the goroutine.
+func pipe[T, U any](seq iter.Seq2[T, error], f func(T) U) (next func() (U, error, bool), stop func()) {
+	ch := make(chan pipeMsg[U], 2)
+	done := make(chan struct{})
+	go func() {
+		defer close(ch)
+		send := func(m pipeMsg[U]) bool {
+			select {
+			case ch <- m:
+				return true
+			case <-done:
+				return false
+			}
+		}
+		batch := make([]U, 0, pipeBatch)
+		for v, err := range seq {
+			if err != nil {
+				send(pipeMsg[U]{items: batch, err: err})
+				return
+			}
+			if batch = append(batch, f(v)); len(batch) == pipeBatch {
+				if !send(pipeMsg[U]{items: batch}) {
+					return
+				}
+				batch = make([]U, 0, pipeBatch)
+			}
+		}
+		if len(batch) > 0 {
+			send(pipeMsg[U]{items: batch})
+		}
+	}()
+	var cur []U
+	var failed error
+	next = func() (U, error, bool) {
+		var zero U
+		for len(cur) == 0 {
+			if failed != nil {
+				err := failed
+				failed = nil
+				return zero, err, true
+			}
+			m, ok := <-ch
+			if !ok {
+				return zero, nil, false
+			}
+			cur, failed = m.items, m.err
+		}
+		v := cur[0]
+		cur = cur[1:]
+		return v, nil, true
+	}
+	var once sync.Once
+	stop = func() {
+		once.Do(func() {
+			close(done)
+			for range ch {
+			}
+		})
+	}
+	return next, stop
 }
 
 // peekable wraps a pulled sequence with one element of look-ahead.

@@ -66,8 +66,13 @@ func (b *TreeBuilder) Size() int64 { return b.size }
 // tlog.StoredHashIndex(0, index) on, where index is the leaf's position (the size
 // before the call).
 func (b *TreeBuilder) Append(leaf []byte) ([]tlog.Hash, error) {
+	return b.AppendHash(tlog.RecordHash(leaf))
+}
+
+// AppendHash is Append given the leaf's hash (tlog.RecordHash) instead of the leaf.
+func (b *TreeBuilder) AppendHash(leafHash tlog.Hash) ([]tlog.Hash, error) {
 	n := b.size
-	hs, err := tlog.StoredHashes(n, leaf, b)
+	hs, err := tlog.StoredHashesForRecordHash(n, leafHash, b)
 	if err != nil {
 		return nil, err
 	}

@@ -6,8 +6,10 @@ import (
 	"iter"
 	"regexp"
 	"strconv"
+	"time"
 
 	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgtype"
 	"github.com/jackc/pgx/v5/pgxpool"
 	"golang.org/x/mod/sumdb/note"
 
@@ -66,23 +68,9 @@ func (db *DB) AuditLedger(ctx context.Context, keys ...note.Verifier) (provenanc
 	}
 	src := provenance.LedgerSource{
 		Events: snapshotStream(ctx, db.pool, snapshot, `SELECT `+eventColumns+` FROM ledger_events e WHERE e.idx IS NOT NULL ORDER BY e.idx`,
-			func(r pgx.CollectableRow) (provenance.LedgerEvent, error) {
-				var e provenance.LedgerEvent
-				err := r.Scan(&e.Seq, &e.Index, &e.Actor, &e.At, &e.Action, &e.EntityType, &e.EntityID, &e.Leaf)
-				return e, err
-			}),
+			new(eventScanner).scan),
 		Hashes: snapshotStream(ctx, db.pool, snapshot, `SELECT idx, hash FROM ledger_hashes ORDER BY idx`,
-			func(r pgx.CollectableRow) (provenance.StoredHash, error) {
-				var h provenance.StoredHash
-				var b []byte
-				err := r.Scan(&h.Index, &b)
-				if len(b) != len(h.Hash) {
-					// A hash of the wrong length cannot match; zeros make it fail the compare.
-					b = nil
-				}
-				copy(h.Hash[:], b)
-				return h, err
-			}),
+			new(hashScanner).scan),
 		Heads: fetchAll(ctx, tx, "audit_trees", func(r pgx.CollectableRow) (provenance.TreeHead, error) {
 			var h provenance.TreeHead
 			var root []byte
@@ -96,6 +84,100 @@ func (db *DB) AuditLedger(ctx context.Context, keys ...note.Verifier) (provenanc
 	}
 	rep, err = provenance.AuditLedger(src, keys...)
 	return rep, mapError(err, "ledger")
+}
+
+// eventScanner reads event rows for the audit without an allocation per column:
+// the leaves are copied into shared blocks, the indexes into a
+// shared array, and the few distinct actors, actions and entity types are kept
+// once each. Nothing a scanned event holds is written again, so events may be
+// handed to another goroutine.
+type eventScanner struct {
+	block   []byte  // where the next bytes go
+	indexes []int64 // where the next index goes
+	names   map[string]string
+	// row and dest are where Scan writes: fields of a long-lived value, so that
+	// passing their addresses allocates nothing.
+	row struct {
+		seq                                       int64
+		index                                     pgtype.Int8
+		at                                        time.Time
+		actor, action, entityType, entityID, leaf pgtype.DriverBytes
+	}
+	dest []any
+}
+
+// eventBlock is the size of the blocks leaves are copied into.
+const eventBlock = 1 << 20
+
+func (s *eventScanner) scan(r pgx.CollectableRow) (provenance.LedgerEvent, error) {
+	w := &s.row
+	if s.dest == nil {
+		s.dest = []any{&w.seq, &w.index, &w.actor, &w.at, &w.action, &w.entityType, &w.entityID, &w.leaf}
+	}
+	if err := r.Scan(s.dest...); err != nil {
+		return provenance.LedgerEvent{}, err
+	}
+	e := provenance.LedgerEvent{Seq: w.seq, At: w.at}
+	if index := w.index; index.Valid {
+		if len(s.indexes) == 0 {
+			s.indexes = make([]int64, auditFetch)
+		}
+		s.indexes[0] = index.Int64
+		e.Index, s.indexes = &s.indexes[0], s.indexes[1:]
+	}
+	e.Actor, e.Action, e.EntityType = s.name(w.actor), s.name(w.action), s.name(w.entityType)
+	e.EntityID = string(w.entityID)
+	e.Leaf = s.copy(w.leaf)
+	return e, nil
+}
+
+// hashScanner reads stored-hash rows for the audit, allocating nothing per row.
+type hashScanner struct {
+	index int64
+	hash  pgtype.DriverBytes
+	dest  []any
+}
+
+func (s *hashScanner) scan(r pgx.CollectableRow) (provenance.StoredHash, error) {
+	if s.dest == nil {
+		s.dest = []any{&s.index, &s.hash}
+	}
+	var h provenance.StoredHash
+	if err := r.Scan(s.dest...); err != nil {
+		return h, err
+	}
+	h.Index = s.index
+	// A hash of the wrong length cannot match; zeros make it fail the compare.
+	if len(s.hash) == len(h.Hash) {
+		copy(h.Hash[:], s.hash)
+	}
+	return h, nil
+}
+
+// copy keeps b in the current block, starting a new one when it is full (a leaf
+// larger than a block gets one of its own).
+func (s *eventScanner) copy(b []byte) []byte {
+	if len(b) > cap(s.block)-len(s.block) {
+		s.block = make([]byte, 0, max(eventBlock, len(b)))
+	}
+	start := len(s.block)
+	s.block = append(s.block, b...)
+	return s.block[start:len(s.block):len(s.block)]
+}
+
+// name returns b as a string, the same string for the same bytes.
+func (s *eventScanner) name(b []byte) string {
+	if v, ok := s.names[string(b)]; ok {
+		return v
+	}
+	if s.names == nil {
+		s.names = map[string]string{}
+	}
+	v := string(b)
+	if len(s.names) < 4096 { // a ledger's actors and kinds; beyond, just copy
+		s.names[v] = v
+	}
+	return v
 }
 
 // snapshotStream yields the rows of query, run in a read-only transaction of its
