@@ -19,6 +19,9 @@ type EstimatePricing struct {
 // accountClass is the rate class an account's share of a charge is priced at: the
 // account's own when it has one, else the project's.
 func accountClass(a *FundingAccount, project accounts.RateClass) accounts.RateClass {
+	if a.RateClass != "" {
+		return a.RateClass
+	}
 	return project
 }
 

@@ -3,6 +3,7 @@ package scheduling
 import (
 	"errors"
 	"fmt"
+	"slices"
 	"strings"
 	"time"
 
@@ -42,6 +43,43 @@ type StatementSources struct {
 	// ProjectFunding is the project's default split, for bookings with none of their own.
 	ProjectFunding []FundingShare
 	Adjustments    []Adjustment
+	// AccountClasses holds the rate class of each funding account that carries its own
+	// (FundingAccount.RateClass); the others' shares are priced at RateClass.
+	AccountClasses map[string]accounts.RateClass
+}
+
+// classGroup is the accounts of a split whose shares are priced at one rate class.
+type classGroup struct {
+	class    accounts.RateClass
+	accounts []string
+}
+
+// classGroups groups a split's accounts by the rate class their shares are priced at,
+// classes in the order their first account appears in the split. A split whose shares
+// are all priced at one class is one group with accounts nil (all of them).
+func classGroups(split []FundingShare, own map[string]accounts.RateClass, project accounts.RateClass) []classGroup {
+	if len(own) == 0 {
+		return []classGroup{{class: project}}
+	}
+	var groups []classGroup
+	for _, sh := range split {
+		c, ok := own[sh.AccountID]
+		if !ok {
+			c = project
+		}
+		i := slices.IndexFunc(groups, func(g classGroup) bool { return g.class == c })
+		if i < 0 {
+			groups, i = append(groups, classGroup{class: c}), len(groups)
+		}
+		groups[i].accounts = append(groups[i].accounts, sh.AccountID)
+	}
+	switch len(groups) {
+	case 0:
+		return []classGroup{{class: project}}
+	case 1:
+		return []classGroup{{class: groups[0].class}}
+	}
+	return groups
 }
 
 // FundingFor is the split a booking's charges go to: its own, else the project's
@@ -65,23 +103,29 @@ func PriceStatement(src StatementSources) (StatementInput, error) {
 		MonthlyCapMinor: src.Facility.MonthlyCapMinor}
 	for _, bb := range src.Bookings {
 		p := src.Facility.With(src.Overrides[bb.Booking.InstrumentID])
-		lines, err := ComputeCharges(ChargeInput{Booking: bb.Booking, RateClass: src.RateClass, Usages: bb.Usages,
-			RebookedMinutes: bb.RebookedMinutes, NoShow: bb.NoShow, DisplacedByService: bb.DisplacedByService, Now: src.Now},
-			src.Schedules, p)
-		if err != nil {
-			return StatementInput{}, fmt.Errorf("booking %s: %w", bb.Booking.ID, err)
-		}
-		if len(lines) == 0 {
-			continue
-		}
 		funding := FundingFor(bb.Funding, src.ProjectFunding)
-		if len(funding) == 0 {
-			return StatementInput{}, beamledger.InvalidField("funding",
-				fmt.Sprintf("booking %s is charged but neither it nor its project has a funding split", bb.Booking.ID))
+		groups := classGroups(funding, src.AccountClasses, src.RateClass)
+		for _, g := range groups {
+			lines, err := ComputeCharges(ChargeInput{Booking: bb.Booking, RateClass: g.class, Usages: bb.Usages,
+				RebookedMinutes: bb.RebookedMinutes, NoShow: bb.NoShow, DisplacedByService: bb.DisplacedByService, Now: src.Now},
+				src.Schedules, p)
+			if err != nil {
+				return StatementInput{}, fmt.Errorf("booking %s: %w", bb.Booking.ID, err)
+			}
+			if len(lines) == 0 {
+				continue
+			}
+			if len(funding) == 0 {
+				return StatementInput{}, beamledger.InvalidField("funding",
+					fmt.Sprintf("booking %s is charged but neither it nor its project has a funding split", bb.Booking.ID))
+			}
+			b := bb.Booking
+			bc := BookingCharges{BookingID: b.ID, InstrumentID: b.InstrumentID, Kind: b.Kind, Start: b.Start, Lines: lines, Funding: funding}
+			if len(groups) > 1 {
+				bc.Accounts, bc.RateClass = g.accounts, g.class
+			}
+			in.Charges = append(in.Charges, bc)
 		}
-		b := bb.Booking
-		in.Charges = append(in.Charges, BookingCharges{BookingID: b.ID, InstrumentID: b.InstrumentID, Kind: b.Kind,
-			Start: b.Start, Lines: lines, Funding: funding})
 	}
 	return in, nil
 }

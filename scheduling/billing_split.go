@@ -6,6 +6,7 @@ import (
 	"time"
 
 	"beamledger"
+	"beamledger/accounts"
 )
 
 // WholeBasisPoints is 100 % in basis points (hundredths of a percent), what the shares of
@@ -109,6 +110,10 @@ type FundingAccount struct {
 	ValidFrom  *time.Time `json:"valid_from,omitempty"`
 	ValidUntil *time.Time `json:"valid_until,omitempty"`
 	CapMinor   int64      `json:"cap_minor"`
+	// RateClass, when set, is the class this account's share of every charge is priced
+	// at (an external grant on an internal project pays external rates); empty means
+	// the project's class.
+	RateClass accounts.RateClass `json:"rate_class,omitempty"`
 }
 
 // Validate checks an account, naming offending fields.
@@ -125,6 +130,9 @@ func (a FundingAccount) Validate() error {
 	}
 	if a.CapMinor < 0 || a.CapMinor > maxAmountMinor {
 		fe.Add("cap_minor", fmt.Sprintf("must be between 0 (no cap) and %d", int64(maxAmountMinor)))
+	}
+	if a.RateClass != "" && !a.RateClass.Valid() {
+		fe.Add("rate_class", "must be one of internal, external_academic, commercial, or empty for the project's class")
 	}
 	return fe.Err()
 }

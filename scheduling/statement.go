@@ -9,6 +9,7 @@ import (
 	"time"
 
 	"beamledger"
+	"beamledger/accounts"
 )
 
 // StatementStatus is whether a statement may still change.
@@ -29,6 +30,12 @@ type BookingCharges struct {
 	Start        time.Time      `json:"start"` // decides the period the charges fall in
 	Lines        []ChargeLine   `json:"lines"`
 	Funding      []FundingShare `json:"funding"`
+	// Accounts, when set, says the lines were priced at RateClass for these accounts of
+	// Funding only (their accounts carry that class, others of the split another): each
+	// line's amount is split by the whole of Funding and only these accounts' parts are
+	// kept, the line's amount becoming their sum.
+	Accounts  []string           `json:"accounts,omitempty"`
+	RateClass accounts.RateClass `json:"rate_class,omitempty"`
 }
 
 // Adjustment is a manager's credit (negative) or debit (positive) with a reason, the
@@ -140,9 +147,13 @@ func AssembleStatement(in StatementInput) (Statement, error) {
 	for _, c := range charges {
 		for _, l := range c.Lines {
 			start, from, to := c.Start, l.From, l.To
-			a.add(StatementLine{BookingID: c.BookingID, InstrumentID: c.InstrumentID, BookingKind: c.Kind,
+			line := StatementLine{BookingID: c.BookingID, InstrumentID: c.InstrumentID, BookingKind: c.Kind,
 				BookingStart: &start, Component: l.Component, Rule: l.Rule, From: &from, To: &to,
-				Minutes: l.Minutes, HourlyRateMinor: l.HourlyRateMinor, AmountMinor: l.AmountMinor}, c.Funding)
+				Minutes: l.Minutes, HourlyRateMinor: l.HourlyRateMinor, AmountMinor: l.AmountMinor}
+			if len(c.Accounts) > 0 {
+				line.Reason = "the share of the split priced at the " + string(c.RateClass) + " rate"
+			}
+			a.addPart(line, c.Funding, c.Accounts)
 		}
 	}
 	if in.MonthlyCapMinor > 0 && a.rec.TotalMinor > in.MonthlyCapMinor {
@@ -181,6 +192,26 @@ func (a *statementAssembler) add(l StatementLine, funding []FundingShare) {
 	if err != nil {
 		a.err = err
 		return
+	}
+	a.append(l, allocs)
+}
+
+// addPart is add keeping only the named accounts' parts of the split (all when
+// accounts is empty); the line's amount becomes the sum of the parts kept.
+func (a *statementAssembler) addPart(l StatementLine, funding []FundingShare, accounts []string) {
+	if len(accounts) == 0 || a.err != nil {
+		a.add(l, funding)
+		return
+	}
+	allocs, err := SplitAmount(l.AmountMinor, funding)
+	if err != nil {
+		a.err = err
+		return
+	}
+	allocs = slices.DeleteFunc(allocs, func(al Allocation) bool { return !slices.Contains(accounts, al.AccountID) })
+	l.AmountMinor = 0
+	for _, al := range allocs {
+		l.AmountMinor += al.AmountMinor // parts of one line's amount: no overflow
 	}
 	a.append(l, allocs)
 }

@@ -162,6 +162,9 @@ type fundingAccountInput struct {
 	ValidFrom  *time.Time `json:"valid_from"`
 	ValidUntil *time.Time `json:"valid_until"`
 	CapMinor   *int64     `json:"cap_minor"`
+	// RateClass prices the account's shares at its own class; "" returns it to the
+	// project's.
+	RateClass *accounts.RateClass `json:"rate_class"`
 }
 
 func (in fundingAccountInput) apply(a scheduling.FundingAccount) scheduling.FundingAccount {
@@ -176,6 +179,9 @@ func (in fundingAccountInput) apply(a scheduling.FundingAccount) scheduling.Fund
 	}
 	if in.CapMinor != nil {
 		a.CapMinor = *in.CapMinor
+	}
+	if in.RateClass != nil {
+		a.RateClass = *in.RateClass
 	}
 	return a
 }
@@ -206,7 +212,7 @@ func (s *Server) handleFundingAccountPatch(c echo.Context) error {
 		return err
 	}
 	if in == (fundingAccountInput{}) {
-		return beamledger.Invalid("nothing to change: send at least one of code, valid_from, valid_until, cap_minor", nil)
+		return beamledger.Invalid("nothing to change: send at least one of code, valid_from, valid_until, cap_minor, rate_class", nil)
 	}
 	ctx := c.Request().Context()
 	cur, err := s.store.FundingAccount(ctx, c.Param("account_id"))

@@ -187,11 +187,13 @@ INSERT INTO rate_schedule_rates (schedule_id, rate_class, independent_hourly_min
 	return s, mapError(err, "rate schedule")
 }
 
-const fundingAccountColumns = `id::text, project_id::text, code, valid_from, valid_until, cap_minor`
+const fundingAccountColumns = `id::text, project_id::text, code, valid_from, valid_until, cap_minor, coalesce(rate_class, '')`
 
 func scanFundingAccount(row pgx.Row) (scheduling.FundingAccount, error) {
 	var a scheduling.FundingAccount
-	err := row.Scan(&a.ID, &a.ProjectID, &a.Code, &a.ValidFrom, &a.ValidUntil, &a.CapMinor)
+	var class string
+	err := row.Scan(&a.ID, &a.ProjectID, &a.Code, &a.ValidFrom, &a.ValidUntil, &a.CapMinor, &class)
+	a.RateClass = accounts.RateClass(class)
 	return a, err
 }
 
@@ -233,14 +235,14 @@ func (db *DB) SaveFundingAccount(ctx context.Context, a scheduling.FundingAccoun
 		if a.ID == "" {
 			action = provenance.ActionCreate
 			const q = `
-INSERT INTO funding_accounts (project_id, code, valid_from, valid_until, cap_minor, created_at, updated_at)
-VALUES ($1, $2, $3, $4, $5, $6, $6) RETURNING ` + fundingAccountColumns
-			a, err = scanFundingAccount(tx.QueryRow(ctx, q, a.ProjectID, a.Code, a.ValidFrom, a.ValidUntil, a.CapMinor, now))
+INSERT INTO funding_accounts (project_id, code, valid_from, valid_until, cap_minor, created_at, updated_at, rate_class)
+VALUES ($1, $2, $3, $4, $5, $6, $6, nullif($7, '')) RETURNING ` + fundingAccountColumns
+			a, err = scanFundingAccount(tx.QueryRow(ctx, q, a.ProjectID, a.Code, a.ValidFrom, a.ValidUntil, a.CapMinor, now, string(a.RateClass)))
 		} else {
 			const q = `
-UPDATE funding_accounts SET code = $2, valid_from = $3, valid_until = $4, cap_minor = $5, updated_at = $6
+UPDATE funding_accounts SET code = $2, valid_from = $3, valid_until = $4, cap_minor = $5, updated_at = $6, rate_class = nullif($7, '')
 WHERE id = $1 RETURNING ` + fundingAccountColumns
-			a, err = scanFundingAccount(tx.QueryRow(ctx, q, a.ID, a.Code, a.ValidFrom, a.ValidUntil, a.CapMinor, now))
+			a, err = scanFundingAccount(tx.QueryRow(ctx, q, a.ID, a.Code, a.ValidFrom, a.ValidUntil, a.CapMinor, now, string(a.RateClass)))
 		}
 		if isConstraint(err, "funding_accounts_project_id_code_key") {
 			return beamledger.Conflict("the project already has a funding account with code %s", a.Code)
@@ -376,4 +378,21 @@ FROM split s JOIN funding_accounts a ON a.id = s.account_id ORDER BY s.position`
 		return mapError(err, "funding split")
 	}
 	return scheduling.CheckFundingAt(shares, accts, start, end)
+}
+
+// accountRateClasses reads the rate class of every funding account of the projects
+// that carries its own (the others' shares are priced at their project's class).
+func accountRateClasses(ctx context.Context, q querier, projectIDs []string) (map[string]accounts.RateClass, error) {
+	rows, err := q.Query(ctx, `SELECT id::text, rate_class FROM funding_accounts
+WHERE project_id = ANY($1::uuid[]) AND rate_class IS NOT NULL`, projectIDs)
+	if err != nil {
+		return nil, err
+	}
+	out := map[string]accounts.RateClass{}
+	var id, class string
+	_, err = pgx.ForEachRow(rows, []any{&id, &class}, func() error {
+		out[id] = accounts.RateClass(class)
+		return nil
+	})
+	return out, err
 }

@@ -242,7 +242,12 @@ func statementSourcesAll(ctx context.Context, tx pgx.Tx, projectIDs []string, fr
 	if err != nil {
 		return nil, err
 	}
+	classes, err := accountRateClasses(ctx, tx, projectIDs)
+	if err != nil {
+		return nil, err
+	}
 	for id, src := range out {
+		src.AccountClasses = classes
 		if f, ok := funding[id]; ok {
 			src.ProjectFunding = f
 		}
