@@ -27,20 +27,27 @@ type uploadOptions struct {
 	mediaType            string
 	statePath            string
 	chunkBytes           int64
-	retries              int           // consecutive failures before a file is given up
-	backoff              time.Duration // the first wait; it doubles up to a minute
-	client               *http.Client
-	progressEvery        time.Duration // how often plain (non-terminal) progress lines appear
-	terminal             bool
+	// hashWhileSending sends each file as it is hashed instead of after, and
+	// declares its digest only on the last request.
+	hashWhileSending bool
+	retries          int           // consecutive failures before a file is given up
+	backoff          time.Duration // the first wait; it doubles up to a minute
+	client           *http.Client
+	progressEvery    time.Duration // how often plain (non-terminal) progress lines appear
+	terminal         bool
 }
 
 // cmdUpload sends files (or folders' files) to the server as resumable uploads,
 // the way an instrument computer hands over what it recorded: each file is hashed
-// while it is sent and its digest declared on the last request, so the server
-// checks it before recording the file; a network
-// failure is waited out and the upload resumed from the offset the server holds,
-// and the upload's address is kept in a state file, so running the command again
-// after a crash resumes too. Prints "<sha256>  <record id>  <path>" per file.
+// first and its digest declared when the upload is created, so the server writes
+// the bytes straight to their content address (and, for bytes it holds already,
+// only checks them) and checks the digest before recording the file. With
+// -hash-while-sending the file is read once, hashed as it goes, and its digest
+// declared on the last request; the server then stores the bytes under a temporary
+// name and copies them to their content address at the end. A network failure is
+// waited out and the upload resumed from the offset the server holds, and the
+// upload's address is kept in a state file, so running the command again after a
+// crash resumes too. Prints "<sha256>  <record id>  <path>" per file.
 func cmdUpload(ctx context.Context, args []string, stdout, stderr io.Writer) error {
 	fs := flag.NewFlagSet("upload", flag.ContinueOnError)
 	fs.SetOutput(stderr)
@@ -52,6 +59,8 @@ func cmdUpload(ctx context.Context, args []string, stdout, stderr io.Writer) err
 	fs.StringVar(&o.mediaType, "media-type", "", "media type of every file (default application/octet-stream)")
 	fs.StringVar(&o.statePath, "state", "", "state file of unfinished uploads (default $XDG_CACHE_HOME/beamledger/uploads.json)")
 	chunk := fs.Int64("chunk-bytes", 0, "bytes sent per request at most (0: no limit; a proxy in the way may need one)")
+	fs.BoolVar(&o.hashWhileSending, "hash-while-sending", false, "hash each file as it is sent rather than before: one read of the file instead of two, "+
+		"for files on a disk slower than the network; the server then copies the stored bytes once more at the end")
 	fs.Usage = func() {
 		fmt.Fprintln(stderr, "usage: beamledger upload -server URL (-acquisition ID | -project ID) [flags] FILE-OR-FOLDER...")
 		fs.PrintDefaults()
@@ -157,10 +166,21 @@ func uploadOne(ctx context.Context, o uploadOptions, state *uploadState, path st
 	hashed := make(chan hashResult, 1)
 	hashCtx, stopHashing := context.WithCancel(ctx)
 	defer stopHashing()
-	go func() { hashed <- hashFile(hashCtx, f, st.Size()) }()
+	var counted io.Writer // hashing shows progress when nothing else does
+	if !o.hashWhileSending {
+		counted = bar.counter("hashing")
+	}
+	go func() { hashed <- hashFile(hashCtx, f, st.Size(), counted) }()
 	abs, _ := filepath.Abs(path)
 	key := strings.Join([]string{o.server, abs, strconv.FormatInt(st.Size(), 10), strconv.FormatInt(st.ModTime().UnixNano(), 10)}, "|")
 	c := &tusClient{o: o, file: f, size: st.Size(), bar: bar, hashed: hashed}
+	if !o.hashWhileSending {
+		if _, err := c.digest(ctx); err != nil {
+			bar.done(err)
+			return "", "", err
+		}
+		c.declared = true
+	}
 	loc := state.get(key)
 	offset := int64(-1)
 	if loc != "" {
@@ -190,9 +210,10 @@ type hashResult struct {
 }
 
 // hashFile hashes the file's size bytes from the start, through its own section
-// reader, so it runs beside the sending without sharing a file offset. Reading in
-// large blocks rather than io.Copy's 32 KiB cuts the system calls.
-func hashFile(ctx context.Context, f *os.File, size int64) hashResult {
+// reader, so it can run beside the sending without sharing a file offset. Reading
+// in large blocks rather than io.Copy's 32 KiB cuts the system calls. The bytes
+// read are also written to progress when it is not nil.
+func hashFile(ctx context.Context, f *os.File, size int64, progress io.Writer) hashResult {
 	h := sha256.New()
 	buf := make([]byte, 1<<20)
 	r := io.NewSectionReader(f, 0, size)
@@ -202,6 +223,9 @@ func hashFile(ctx context.Context, f *os.File, size int64) hashResult {
 		}
 		n, err := r.Read(buf)
 		h.Write(buf[:n])
+		if progress != nil {
+			progress.Write(buf[:n])
+		}
 		if err == io.EOF {
 			return hashResult{sum: hex.EncodeToString(h.Sum(nil))}
 		}
@@ -227,6 +251,9 @@ type tusClient struct {
 	// hashed delivers the file's digest once; sum holds it after.
 	hashed <-chan hashResult
 	sum    string
+	// declared: the digest was known before the upload began, and goes with its
+	// creation.
+	declared bool
 }
 
 // digest waits for the file's SHA-256.
@@ -289,6 +316,9 @@ func (c *tusClient) create(ctx context.Context, name string) (string, error) {
 	}
 	if c.o.mediaType != "" {
 		meta = append(meta, "media_type "+b64(c.o.mediaType))
+	}
+	if c.declared {
+		meta = append(meta, "sha256 "+b64(c.sum))
 	}
 	res, err := c.request(ctx, http.MethodPost, "/api/v1/uploads", nil, map[string]string{
 		"Upload-Length": strconv.FormatInt(c.size, 10), "Upload-Metadata": strings.Join(meta, ",")})
@@ -357,17 +387,23 @@ func (c *tusClient) send(ctx context.Context, loc string, offset int64) (string,
 // errHashing is a file that could not be read for its digest.
 var errHashing = errors.New("the file could not be hashed")
 
-// patch sends the next request's bytes from offset: up to chunkBytes (0: no
-// limit) of all but the file's last lastRequestBytes, or, once those are sent,
-// the rest with the file's digest. It returns the record id once the file is
-// complete, else the new offset.
+// patch sends the next request's bytes from offset, up to chunkBytes (0: no
+// limit). A digest declared at creation goes again, as Repr-Digest, on the request
+// that ends the file. Otherwise the requests carry all but the file's last
+// lastRequestBytes and then the rest with the file's digest. It returns the record
+// id once the file is complete, else the new offset.
 func (c *tusClient) patch(ctx context.Context, loc string, offset int64) (id string, next int64, err error) {
 	header := map[string]string{"Content-Type": "application/offset+octet-stream", "Upload-Offset": strconv.FormatInt(offset, 10)}
 	end := max(c.size-lastRequestBytes, 0)
+	if c.declared {
+		end = c.size
+	}
 	if c.o.chunkBytes > 0 {
 		end = min(end, offset+c.o.chunkBytes)
 	}
-	if offset >= end {
+	if c.declared && end == c.size {
+		header["Repr-Digest"] = reprDigest(c.sum)
+	} else if offset >= end {
 		sum, err := c.digest(ctx)
 		if err != nil {
 			return "", 0, fmt.Errorf("%w: %v", errHashing, err)

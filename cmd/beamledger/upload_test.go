@@ -26,6 +26,7 @@ import (
 
 	"beamledger/accounts"
 	"beamledger/server"
+	"beamledger/storage/objects"
 	"beamledger/storage/postgres"
 	"beamledger/storage/postgres/pgtest"
 )
@@ -37,6 +38,7 @@ const uploadTestPassword = "a long test passphrase for uploads"
 type uploadFacility struct {
 	url, token, projectID string
 	db                    *postgres.DB
+	cfg                   server.Config
 }
 
 func newUploadFacility(t testing.TB, configure ...func(*server.Config)) *uploadFacility {
@@ -57,7 +59,7 @@ func newUploadFacility(t testing.TB, configure ...func(*server.Config)) *uploadF
 	}
 	hs := httptest.NewServer(srv.Handler())
 	t.Cleanup(hs.Close)
-	f := &uploadFacility{url: hs.URL, db: db}
+	f := &uploadFacility{url: hs.URL, db: db, cfg: cfg}
 	f.projectID, f.token = researcherWithProject(t, db, hs.URL)
 	return f
 }
@@ -80,6 +82,20 @@ func researcherWithProject(t testing.TB, db *postgres.DB, base string) (projectI
 		t.Fatal(err)
 	}
 	return p.ID, login(t, base, "ri@test.example", uploadTestPassword)
+}
+
+// objectKeys lists the objects in the facility's local-disk store.
+func (f *uploadFacility) objectKeys(t *testing.T) []string {
+	t.Helper()
+	store, err := objects.NewDisk(f.cfg.ObjectDir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var keys []string
+	if err := store.List(context.Background(), "", func(i objects.Info) error { keys = append(keys, i.Key); return nil }); err != nil {
+		t.Fatal(err)
+	}
+	return keys
 }
 
 // fileRecord is the server's record of a data file.
@@ -312,31 +328,100 @@ func (p *cutProxy) cutFromNow(n int64) {
 	p.cutAt, p.once = p.sent+n, false
 }
 
-// TestUploadCommandDeclaresDigestLast watches the requests `beamledger upload`
-// makes for a 20 MiB file with no chunk limit: one PATCH for all but the last
-// 8 MiB without a digest, then one PATCH with the rest and the file's SHA-256 as
-// Repr-Digest, and nothing declared at creation. A file that changes while it is
-// sent is refused by the server and no record is left.
-func TestUploadCommandDeclaresDigestLast(t *testing.T) {
-	f := newUploadFacility(t)
+// requestLog is a proxy in front of the facility's server that notes each
+// request's method, length, Repr-Digest and whether Upload-Metadata declares a
+// sha256.
+func requestLog(t *testing.T, f *uploadFacility) (proxyURL string, seen func() []string) {
 	target, _ := url.Parse(f.url)
 	var mu sync.Mutex
-	var seen []string
+	var log []string
 	proxy := httptest.NewServer(&httputil.ReverseProxy{Rewrite: func(r *httputil.ProxyRequest) {
 		r.SetURL(target)
 		mu.Lock()
-		seen = append(seen, fmt.Sprintf("%s len=%d digest=%q meta-sha=%t", r.In.Method, r.In.ContentLength,
+		log = append(log, fmt.Sprintf("%s len=%d digest=%q meta-sha=%t", r.In.Method, r.In.ContentLength,
 			r.In.Header.Get("Repr-Digest"), strings.Contains(r.In.Header.Get("Upload-Metadata"), "sha256 ")))
 		mu.Unlock()
 	}})
 	t.Cleanup(proxy.Close)
+	return proxy.URL, func() []string {
+		mu.Lock()
+		defer mu.Unlock()
+		return slices.Clone(log)
+	}
+}
+
+// TestUploadCommandDeclaresDigestFirst watches the requests `beamledger upload`
+// makes by default for a 20 MiB file with no chunk limit: the file's SHA-256 in
+// Upload-Metadata at creation, then one PATCH with every byte and the digest again
+// as Repr-Digest. The bytes go straight to their content address: no temporary
+// object is left or copied. Sent again under another name, the same bytes are
+// only checked, and the project's record of them is the answer.
+func TestUploadCommandDeclaresDigestFirst(t *testing.T) {
+	f := newUploadFacility(t)
+	proxyURL, seen := requestLog(t, f)
 	data := testPattern(20 << 20)
 	path := filepath.Join(t.TempDir(), "scan.raw")
 	if err := os.WriteFile(path, data, 0o644); err != nil {
 		t.Fatal(err)
 	}
-	o := f.options(t, proxy.URL)
+	o := f.options(t, proxyURL)
 	o.chunkBytes = 0
+	var out strings.Builder
+	if err := runUploads(context.Background(), o, []string{path}, &out, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	sum := sha256.Sum256(data)
+	want := []string{
+		`POST len=0 digest="" meta-sha=true`,
+		// [computed: crypto/sha256 of the file] as RFC 9530 writes it.
+		fmt.Sprintf(`PATCH len=%d digest="sha-256=:%s:" meta-sha=false`, 20<<20, base64.StdEncoding.EncodeToString(sum[:])),
+	}
+	if got := seen(); !slices.Equal(got, want) {
+		t.Errorf("requests:\n%s\nwant:\n%s", strings.Join(got, "\n"), strings.Join(want, "\n"))
+	}
+	if !strings.HasPrefix(out.String(), hex.EncodeToString(sum[:])+"  ") {
+		t.Errorf("printed %q", out.String())
+	}
+	first := strings.Fields(out.String())
+	// A second file with the same bytes: the same record, the same object.
+	again := filepath.Join(t.TempDir(), "scan-copy.raw")
+	if err := os.WriteFile(again, data, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	out.Reset()
+	if err := runUploads(context.Background(), o, []string{again}, &out, io.Discard); err != nil {
+		t.Fatal(err)
+	}
+	if second := strings.Fields(out.String()); len(first) != 3 || len(second) != 3 || second[1] != first[1] {
+		t.Errorf("the same bytes sent again printed %q, first %q", second, first)
+	}
+	var list struct{ Items []fileRecord }
+	getJSON(t, f.url+"/api/v1/files?project_id="+f.projectID, f.token, &list)
+	if len(list.Items) != 1 || list.Items[0].SHA256 != hex.EncodeToString(sum[:]) || list.Items[0].Status != "stored" {
+		t.Errorf("records: %+v, want the one stored file", list.Items)
+	}
+	if keys := f.objectKeys(t); len(keys) != 1 || !strings.Contains(keys[0], hex.EncodeToString(sum[:])) {
+		t.Errorf("objects stored: %v, want only the file's content address", keys)
+	}
+}
+
+// TestUploadCommandDeclaresDigestLast watches the requests `beamledger upload
+// -hash-while-sending` makes for a 20 MiB file with no chunk limit: one PATCH for
+// all but the last 8 MiB without a digest, then one PATCH with the rest and the
+// file's SHA-256 as Repr-Digest, and nothing declared at creation. A file that
+// changes while it is sent is refused by the server and no record is left, in this
+// mode and in the default one.
+func TestUploadCommandDeclaresDigestLast(t *testing.T) {
+	f := newUploadFacility(t)
+	proxyURL, seen := requestLog(t, f)
+	data := testPattern(20 << 20)
+	path := filepath.Join(t.TempDir(), "scan.raw")
+	if err := os.WriteFile(path, data, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	o := f.options(t, proxyURL)
+	o.chunkBytes = 0
+	o.hashWhileSending = true
 	var out strings.Builder
 	if err := runUploads(context.Background(), o, []string{path}, &out, io.Discard); err != nil {
 		t.Fatal(err)
@@ -348,8 +433,8 @@ func TestUploadCommandDeclaresDigestLast(t *testing.T) {
 		// [computed: crypto/sha256 of the file] as RFC 9530 writes it.
 		fmt.Sprintf(`PATCH len=%d digest="sha-256=:%s:" meta-sha=false`, 8<<20, base64.StdEncoding.EncodeToString(sum[:])),
 	}
-	if !slices.Equal(seen, want) {
-		t.Errorf("requests:\n%s\nwant:\n%s", strings.Join(seen, "\n"), strings.Join(want, "\n"))
+	if got := seen(); !slices.Equal(got, want) {
+		t.Errorf("requests:\n%s\nwant:\n%s", strings.Join(got, "\n"), strings.Join(want, "\n"))
 	}
 	if !strings.HasPrefix(out.String(), hex.EncodeToString(sum[:])+"  ") {
 		t.Errorf("printed %q", out.String())
@@ -357,44 +442,44 @@ func TestUploadCommandDeclaresDigestLast(t *testing.T) {
 
 	// The file changes after it was hashed and before its end is sent: the digest
 	// the command declares and the bytes the server receives differ.
-	changed := filepath.Join(t.TempDir(), "changing.raw")
-	if err := os.WriteFile(changed, data, 0o644); err != nil {
-		t.Fatal(err)
-	}
-	o = f.options(t, f.url)
-	o.chunkBytes = 4 << 20
-	edited := false
-	o.client = &http.Client{Transport: roundTripFunc(func(r *http.Request) (*http.Response, error) {
-		if r.Method == http.MethodPatch && r.Header.Get("Repr-Digest") != "" && !edited {
-			// The digest is known, so hashing is over; these bytes are not sent yet.
-			edited = true
-			fh, err := os.OpenFile(changed, os.O_WRONLY, 0)
-			if err != nil {
-				return nil, err
+	for _, whileSending := range []bool{true, false} {
+		name := fmt.Sprintf("changing-%t.raw", whileSending)
+		changed := filepath.Join(t.TempDir(), name)
+		if err := os.WriteFile(changed, data, 0o644); err != nil {
+			t.Fatal(err)
+		}
+		o = f.options(t, f.url)
+		o.chunkBytes = 4 << 20
+		o.hashWhileSending = whileSending
+		edited := false
+		o.client = &http.Client{Transport: roundTripFunc(func(r *http.Request) (*http.Response, error) {
+			if r.Method == http.MethodPatch && (r.Header.Get("Repr-Digest") != "" || !whileSending) && !edited {
+				// The digest is known, so hashing is over; these bytes are not sent yet.
+				edited = true
+				fh, err := os.OpenFile(changed, os.O_WRONLY, 0)
+				if err != nil {
+					return nil, err
+				}
+				_, err = fh.WriteAt([]byte("edited"), 19<<20)
+				fh.Close()
+				if err != nil {
+					return nil, err
+				}
 			}
-			_, err = fh.WriteAt([]byte("edited"), 19<<20)
-			fh.Close()
-			if err != nil {
-				return nil, err
+			return http.DefaultTransport.RoundTrip(r)
+		})}
+		var errOut strings.Builder
+		err := runUploads(context.Background(), o, []string{changed}, io.Discard, &errOut)
+		if err == nil || !strings.Contains(errOut.String(), "do not match the declared digest") {
+			t.Fatalf("upload (hash while sending %t) of a file changed while sent: %v\n%s", whileSending, err, errOut.String())
+		}
+		var list struct{ Items []fileRecord }
+		getJSON(t, f.url+"/api/v1/files?project_id="+f.projectID, f.token, &list)
+		for _, r := range list.Items {
+			if r.FileName == name {
+				t.Errorf("a record of the changed file: %+v", r)
 			}
 		}
-		return http.DefaultTransport.RoundTrip(r)
-	})}
-	var errOut strings.Builder
-	err := runUploads(context.Background(), o, []string{changed}, io.Discard, &errOut)
-	if err == nil || !strings.Contains(errOut.String(), "do not match the declared digest") {
-		t.Fatalf("upload of a file changed while sent: %v\n%s", err, errOut.String())
-	}
-	var records []fileRecord
-	var list struct{ Items []fileRecord }
-	getJSON(t, f.url+"/api/v1/files?project_id="+f.projectID, f.token, &list)
-	for _, r := range list.Items {
-		if r.FileName == "changing.raw" {
-			records = append(records, r)
-		}
-	}
-	if len(records) != 0 {
-		t.Errorf("records of the changed file: %+v", records)
 	}
 }
 
