@@ -2,7 +2,9 @@ package provenance
 
 import (
 	"encoding/json"
+	"math/rand/v2"
 	"testing"
+	"time"
 )
 
 // compactJSONCases are edge cases of RFC 8259's grammar, each with what
@@ -64,4 +66,29 @@ func hasControl(b []byte) bool {
 		}
 	}
 	return false
+}
+
+// TestAppendLeafTime checks the audit's time writer against time.Format with the
+// leaf layout [computed: Go's time package], over instants that exercise every
+// field's width, the zone conversion, and years leafTime cannot write in four digits.
+func TestAppendLeafTime(t *testing.T) {
+	zone := time.FixedZone("UTC+13:45", 13*3600+45*60)
+	times := []time.Time{
+		time.Date(2031, 3, 14, 9, 26, 53, 589793000, time.UTC),
+		time.Date(1, 1, 1, 0, 0, 0, 0, time.UTC),
+		time.Date(9999, 12, 31, 23, 59, 59, 999999000, time.UTC),
+		time.Date(2026, 12, 2, 0, 0, 0, 1000, zone),
+		time.Date(2000, 2, 29, 12, 0, 7, 10000, zone),
+		time.Date(10000, 1, 1, 0, 0, 0, 0, time.UTC),
+		time.Date(-1, 6, 1, 0, 0, 0, 0, time.UTC),
+	}
+	r := rand.New(rand.NewPCG(7, 11))
+	for range 2000 {
+		times = append(times, time.Unix(r.Int64N(253402300800), r.Int64N(1e9)).Truncate(time.Microsecond))
+	}
+	for _, at := range times {
+		if got, want := string(appendLeafTime([]byte("x"), at)), "x"+at.UTC().Format(leafTime); got != want {
+			t.Errorf("appendLeafTime(%v) = %s, want %s", at, got, want)
+		}
+	}
 }
