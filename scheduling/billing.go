@@ -81,6 +81,10 @@ type BillingPolicy struct {
 	// instruments; 0 means no cap. Being per project, it is the facility's alone:
 	// BillingPolicyOverride has no field for it, and statements apply it as a line.
 	MonthlyCapMinor int64 `json:"monthly_cap_minor"`
+	// FiscalYearStartMonth is the month (1 to 12) the facility's fiscal year starts
+	// in, which the recovery and utilization reports' years follow (FiscalYearBounds).
+	// Like the monthly cap it is the facility's alone.
+	FiscalYearStartMonth int `json:"fiscal_year_start_month"`
 }
 
 // BillingPolicyOverride is an instrument's departure from the facility's policy: a nil
@@ -99,7 +103,8 @@ type BillingPolicyOverride struct {
 	Displaced                 *DisplacedRule        `json:"displaced,omitempty"`
 }
 
-// DefaultBillingPolicy is the project's default policy from REFERENCE §3 [practice]:
+// DefaultBillingPolicy is the project's default policy from REFERENCE §3 [practice]
+// (with the fiscal year the calendar year):
 // the greater of booked and used time, rounded up to 15 minutes, at least 1 h per
 // booking; cancellations later than 24 h before the start pay the booked time less what
 // others rebooked; a no-show (no usage within 30 min) pays the booked time; assisted
@@ -116,6 +121,7 @@ func DefaultBillingPolicy() BillingPolicy {
 		NoShow:                    NoShowBooked,
 		StaffTimeKinds:            []BookingKind{KindAssisted, KindTraining},
 		Displaced:                 DisplacedNoCharge,
+		FiscalYearStartMonth:      1,
 	}
 }
 
@@ -185,6 +191,7 @@ func (p BillingPolicy) Validate() error {
 		fe.Add("displaced", "must be one of no_charge, as_cancellation")
 	}
 	between("monthly_cap_minor", p.MonthlyCapMinor, 0, maxAmountMinor)
+	between("fiscal_year_start_month", int64(p.FiscalYearStartMonth), 1, 12)
 	return fe.Err()
 }
 

@@ -43,6 +43,22 @@ func (e CostEntry) Validate() error {
 	return fe.Err()
 }
 
+// FiscalYearBounds is fiscal year `year` in the facility's zone, [from, to), for a
+// fiscal year starting on the first of startMonth. A fiscal year is named by the
+// calendar year it ends in: with a July start, fiscal year 2026 runs from 1 July 2025
+// to 1 July 2026. With a January start it is the calendar year.
+func FiscalYearBounds(year, startMonth int, loc *time.Location) (from, to time.Time) {
+	if startMonth < 1 || startMonth > 12 {
+		startMonth = 1
+	}
+	first := year
+	if startMonth > 1 {
+		first = year - 1
+	}
+	from = time.Date(first, time.Month(startMonth), 1, 0, 0, 0, 0, loc)
+	return from, from.AddDate(1, 0, 0)
+}
+
 // RecoveryLine compares one instrument's costs for a fiscal year with the charges
 // issued for it. BalanceMinor = costs − charges: positive is under-recovery (a deficit
 // to carry forward into the next rates), negative over-recovery (a surplus to give

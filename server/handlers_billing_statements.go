@@ -174,19 +174,34 @@ type recoveryAnswer struct {
 	Entries    []scheduling.CostEntry    `json:"entries"`
 }
 
-// handleRecoveryReport compares a fiscal year's (a calendar year in the facility's
-// zone) cost entries with the charges of statements issued for its months.
+// fiscalYear reads the fiscal_year parameter as its bounds in the facility's zone: the
+// facility's fiscal year, which starts in the month its billing policy names and is
+// named by the calendar year it ends in.
+func (s *Server) fiscalYear(c echo.Context, loc *time.Location) (year int, from, to time.Time, err error) {
+	year, perr := strconv.Atoi(c.QueryParam("fiscal_year"))
+	if perr != nil || year < 2000 || year > 2200 {
+		return year, from, to, beamledger.InvalidField("fiscal_year", "must be a year between 2000 and 2200")
+	}
+	p, err := s.store.FacilityBillingPolicy(c.Request().Context())
+	if err != nil {
+		return year, from, to, err
+	}
+	from, to = scheduling.FiscalYearBounds(year, p.FiscalYearStartMonth, loc)
+	return year, from, to, nil
+}
+
+// handleRecoveryReport compares a fiscal year's cost entries with the charges of
+// statements issued for its months.
 func (s *Server) handleRecoveryReport(c echo.Context) error {
 	ctx := c.Request().Context()
-	year, err := strconv.Atoi(c.QueryParam("fiscal_year"))
-	if err != nil || year < 2000 || year > 2200 {
-		return beamledger.InvalidField("fiscal_year", "must be a year between 2000 and 2200")
-	}
 	loc, err := s.facilityLocation(ctx)
 	if err != nil {
 		return err
 	}
-	from, to := time.Date(year, 1, 1, 0, 0, 0, 0, loc), time.Date(year+1, 1, 1, 0, 0, 0, 0, loc)
+	year, from, to, err := s.fiscalYear(c, loc)
+	if err != nil {
+		return err
+	}
 	entries, err := s.reports().CostEntries(ctx, year)
 	if err != nil {
 		return err
@@ -203,7 +218,8 @@ func (s *Server) handleRecoveryReport(c echo.Context) error {
 }
 
 // handleUtilizationReport reports an instrument's use from one local date to another
-// (to exclusive), as JSON or, with format=csv, as scheduling.UtilizationCSVColumns.
+// (to exclusive), or over the facility's fiscal year fiscal_year, as JSON or, with
+// format=csv, as scheduling.UtilizationCSVColumns.
 func (s *Server) handleUtilizationReport(c echo.Context) error {
 	ctx := c.Request().Context()
 	loc, err := s.facilityLocation(ctx)
@@ -214,11 +230,21 @@ func (s *Server) handleUtilizationReport(c echo.Context) error {
 	day := func(field string) time.Time {
 		t, err := time.ParseInLocation(time.DateOnly, c.QueryParam(field), loc)
 		if err != nil {
-			fe.Add(field, "must be a date as YYYY-MM-DD (local to the facility)")
+			fe.Add(field, "must be a date as YYYY-MM-DD (local to the facility), or give fiscal_year instead")
 		}
 		return t
 	}
-	from, to := day("from"), day("to")
+	var from, to time.Time
+	if c.QueryParam("fiscal_year") != "" {
+		if c.QueryParam("from") != "" || c.QueryParam("to") != "" {
+			return beamledger.InvalidField("fiscal_year", "give either fiscal_year or from and to, not both")
+		}
+		if _, from, to, err = s.fiscalYear(c, loc); err != nil {
+			return err
+		}
+	} else {
+		from, to = day("from"), day("to")
+	}
 	instrumentID := c.QueryParam("instrument_id")
 	if instrumentID == "" {
 		fe.Add("instrument_id", "is required")
