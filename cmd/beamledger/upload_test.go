@@ -350,6 +350,21 @@ func requestLog(t *testing.T, f *uploadFacility) (proxyURL string, seen func() [
 	}
 }
 
+// watchedUpload makes a facility, a 20 MiB file to send to it, and options that
+// send it through requestLog's proxy with no chunk limit.
+func watchedUpload(t *testing.T) (f *uploadFacility, seen func() []string, data []byte, path string, o uploadOptions) {
+	f = newUploadFacility(t)
+	proxyURL, seen := requestLog(t, f)
+	data = testPattern(20 << 20)
+	path = filepath.Join(t.TempDir(), "scan.raw")
+	if err := os.WriteFile(path, data, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	o = f.options(t, proxyURL)
+	o.chunkBytes = 0
+	return f, seen, data, path, o
+}
+
 // TestUploadCommandDeclaresDigestFirst watches the requests `beamledger upload`
 // makes by default for a 20 MiB file with no chunk limit: the file's SHA-256 in
 // Upload-Metadata at creation, then one PATCH with every byte and the digest again
@@ -357,15 +372,7 @@ func requestLog(t *testing.T, f *uploadFacility) (proxyURL string, seen func() [
 // object is left or copied. Sent again under another name, the same bytes are
 // only checked, and the project's record of them is the answer.
 func TestUploadCommandDeclaresDigestFirst(t *testing.T) {
-	f := newUploadFacility(t)
-	proxyURL, seen := requestLog(t, f)
-	data := testPattern(20 << 20)
-	path := filepath.Join(t.TempDir(), "scan.raw")
-	if err := os.WriteFile(path, data, 0o644); err != nil {
-		t.Fatal(err)
-	}
-	o := f.options(t, proxyURL)
-	o.chunkBytes = 0
+	f, seen, data, path, o := watchedUpload(t)
 	var out strings.Builder
 	if err := runUploads(context.Background(), o, []string{path}, &out, io.Discard); err != nil {
 		t.Fatal(err)
@@ -412,15 +419,7 @@ func TestUploadCommandDeclaresDigestFirst(t *testing.T) {
 // changes while it is sent is refused by the server and no record is left, in this
 // mode and in the default one.
 func TestUploadCommandDeclaresDigestLast(t *testing.T) {
-	f := newUploadFacility(t)
-	proxyURL, seen := requestLog(t, f)
-	data := testPattern(20 << 20)
-	path := filepath.Join(t.TempDir(), "scan.raw")
-	if err := os.WriteFile(path, data, 0o644); err != nil {
-		t.Fatal(err)
-	}
-	o := f.options(t, proxyURL)
-	o.chunkBytes = 0
+	f, seen, data, path, o := watchedUpload(t)
 	o.hashWhileSending = true
 	var out strings.Builder
 	if err := runUploads(context.Background(), o, []string{path}, &out, io.Discard); err != nil {
