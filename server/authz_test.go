@@ -105,6 +105,7 @@ var routeMatrix = map[string]routeExpectation{
 	"GET /qualifications":   {who: opsPage},
 	"GET /rates":            {who: pagesOnly},
 	"GET /instruments":      {who: readersPage},
+	"GET /people":           {who: readersPage},
 	"GET /signin":           {who: openToAll},
 	"POST /signin":          {who: csrfRefused},
 	"POST /signout":         {who: csrfRefused},

@@ -39,6 +39,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 	pageFor("/qualifications", users(facilityOps...), s.handleQualificationsPage)
 	page("/rates", s.handleRatesPage)
 	pageFor("/instruments", users(readersAll...), s.handleInstrumentsPage)
+	pageFor("/people", users(readersAll...), s.handlePeoplePage)
 	add(http.MethodGet, "/signin", open(), s.handleSignInPage)
 	add(http.MethodPost, "/signin", open(), s.handleSignIn)
 	add(http.MethodPost, "/signout", open(), s.handleSignOut)
@@ -60,7 +61,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 func isPagePath(p string) bool {
 	switch p {
 	case "/", "/calendar", "/acquire", "/files", "/trace", "/statements", "/reports", "/ledger", "/qualifications", "/rates",
-		"/instruments":
+		"/instruments", "/people":
 		return true
 	}
 	return false

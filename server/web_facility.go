@@ -27,3 +27,30 @@ func (s *Server) handleInstrumentsPage(c echo.Context, me accounts.Principal, pg
 	}
 	return s.render(c, http.StatusOK, "instruments", "layout", d)
 }
+
+// handlePeoplePage lists the people and projects (the script reads them from the
+// API); managers add people and projects and change members. Staff and managers also
+// see the instruments' agent tokens, which managers issue and revoke.
+func (s *Server) handlePeoplePage(c echo.Context, me accounts.Principal, pg web.Page) error {
+	pg.Title, pg.Nav, pg.Script = "People and projects", "people", "people.js"
+	d := web.PeopleData{Page: pg, Manage: me.Role == accounts.RoleManager, Staff: me.FacilityWide()}
+	for _, r := range accounts.Roles {
+		d.Roles = append(d.Roles, string(r))
+	}
+	for _, r := range accounts.RateClasses {
+		d.RateClasses = append(d.RateClasses, string(r))
+	}
+	for _, sc := range accounts.Scopes {
+		d.Scopes = append(d.Scopes, string(sc))
+	}
+	if d.Staff {
+		ins, err := s.store.Instruments(c.Request().Context())
+		if err != nil {
+			return err
+		}
+		for _, in := range ins {
+			d.Instruments = append(d.Instruments, web.Option{Value: in.ID, Label: in.Code + " — " + in.Name})
+		}
+	}
+	return s.render(c, http.StatusOK, "people", "layout", d)
+}

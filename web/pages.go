@@ -121,3 +121,13 @@ type InstrumentsData struct {
 	Manage                           bool
 	Kinds, Correctors, DetectorKinds []string
 }
+
+// PeopleData is the people page: users and projects for those who read everything;
+// Staff adds the instruments' agent tokens; Manage lets managers add people and
+// projects, change members and issue or revoke agent tokens.
+type PeopleData struct {
+	Page
+	Manage, Staff              bool
+	Roles, RateClasses, Scopes []string
+	Instruments                []Option
+}
