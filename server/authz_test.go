@@ -106,6 +106,7 @@ var routeMatrix = map[string]routeExpectation{
 	"GET /rates":            {who: pagesOnly},
 	"GET /instruments":      {who: readersPage},
 	"GET /people":           {who: readersPage},
+	"GET /service":          {who: opsPage},
 	"GET /signin":           {who: openToAll},
 	"POST /signin":          {who: csrfRefused},
 	"POST /signout":         {who: csrfRefused},

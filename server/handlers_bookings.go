@@ -96,6 +96,11 @@ func (s *Server) handleBookingCreate(c echo.Context) error {
 	if err != nil {
 		return err
 	}
+	if !start.Before(end) {
+		// Refused before the store reads the range: a service booking looks for the
+		// bookings it displaces first, and a reversed range is no range to look in.
+		return beamledger.RuleViolation("range", "a booking must end after it starts", map[string]string{"end": "must be after start"})
+	}
 	nb, err := s.newBooking(ctx, me, in, start, end)
 	if err != nil {
 		return err

@@ -3,6 +3,7 @@ package server
 import (
 	"net/http"
 	"testing"
+	"time"
 
 	"github.com/google/uuid"
 
@@ -32,5 +33,17 @@ func exerciseInstrumentBookable(t *testing.T, w *world) {
 	w.expect(http.StatusOK, http.MethodPut, path, manager, map[string]any{"bookable": true}, &got)
 	if !got.Bookable {
 		t.Errorf("reopened instrument not bookable: %+v", got)
+	}
+}
+
+// TestServiceRangeReversed: service time that ends before it starts is refused naming
+// the end, as any booking is, not answered with a server error.
+func TestServiceRangeReversed(t *testing.T) {
+	w := newWorld(t)
+	day := w.clock.Now().AddDate(0, 0, 7).Format(time.DateOnly)
+	r := w.expect(http.StatusUnprocessableEntity, http.MethodPost, "/api/v1/bookings", w.tokens[accounts.RoleStaff],
+		map[string]string{"instrument_id": w.instr.ID, "kind": "service", "start": day + "T12:00", "end": day + "T09:00"}, nil)
+	if !fieldNamed(r, "end") {
+		t.Errorf("a reversed range should name the end: %s", r.Body)
 	}
 }

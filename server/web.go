@@ -40,6 +40,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 	page("/rates", s.handleRatesPage)
 	pageFor("/instruments", users(readersAll...), s.handleInstrumentsPage)
 	pageFor("/people", users(readersAll...), s.handlePeoplePage)
+	pageFor("/service", users(facilityOps...), s.handleServicePage)
 	add(http.MethodGet, "/signin", open(), s.handleSignInPage)
 	add(http.MethodPost, "/signin", open(), s.handleSignIn)
 	add(http.MethodPost, "/signout", open(), s.handleSignOut)
@@ -61,7 +62,7 @@ func (s *Server) webRoutes(add func(method, path string, r rule, h echo.HandlerF
 func isPagePath(p string) bool {
 	switch p {
 	case "/", "/calendar", "/acquire", "/files", "/trace", "/statements", "/reports", "/ledger", "/qualifications", "/rates",
-		"/instruments", "/people":
+		"/instruments", "/people", "/service":
 		return true
 	}
 	return false

@@ -85,6 +85,8 @@ func exerciseWeb(t *testing.T, w *world) {
 	w.expect(http.StatusForbidden, http.MethodGet, "/instruments", w.tokens[accounts.RoleResearcher], nil, nil)
 	w.expect(http.StatusOK, http.MethodGet, "/people", w.tokens[accounts.RoleAuditor], nil, nil)
 	w.expect(http.StatusForbidden, http.MethodGet, "/people", w.tokens[accounts.RoleResearcher], nil, nil)
+	w.expect(http.StatusOK, http.MethodGet, "/service", w.tokens[accounts.RoleStaff], nil, nil)
+	w.expect(http.StatusForbidden, http.MethodGet, "/service", w.tokens[accounts.RoleAuditor], nil, nil)
 	w.expect(http.StatusBadRequest, http.MethodGet, "/calendar?date=31.12.2026", w.tokens[accounts.RoleStaff], nil, nil)
 
 	b := newBrowserClient(w)

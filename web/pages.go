@@ -131,3 +131,25 @@ type PeopleData struct {
 	Roles, RateClasses, Scopes []string
 	Instruments                []Option
 }
+
+// ServiceData is the service page: the service windows of the last month and the
+// coming quarter, each with the bookings it displaced, and the form to book one.
+type ServiceData struct {
+	Page
+	Instruments    []Option
+	Coming, Recent []ServiceWindow
+	DefaultStart   string // YYYY-MM-DDTHH:MM, facility time
+	DefaultEnd     string
+}
+
+// ServiceWindow is one service booking.
+type ServiceWindow struct {
+	ID, Instrument, When, Note, BookedBy string
+	Displaced                            []DisplacedBooking
+}
+
+// DisplacedBooking is a booking a service window cancelled, with what staff need to
+// offer its holder other time.
+type DisplacedBooking struct {
+	When, Kind, Person, Email, Project, RebookLink string
+}

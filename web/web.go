@@ -36,7 +36,7 @@ type Pages struct {
 }
 
 // pageNames are the page templates; partials live in the page that owns them.
-var pageNames = []string{"signin", "start", "calendar", "acquire", "files", "trace", "statements", "reports", "ledger", "qualifications", "rates", "instruments", "people"}
+var pageNames = []string{"signin", "start", "calendar", "acquire", "files", "trace", "statements", "reports", "ledger", "qualifications", "rates", "instruments", "people", "service"}
 
 var funcs = template.FuncMap{
 	"lower": strings.ToLower,
