@@ -48,8 +48,11 @@ func checkFundingCaps(ctx context.Context, tx pgx.Tx, b scheduling.Booking, prev
 		return nil
 	}
 	// Ordered row locks: two bookings on overlapping sets of accounts never wait on
-	// each other the other way round.
-	if _, err := tx.Exec(ctx, `SELECT 1 FROM funding_accounts WHERE id = ANY($1::uuid[]) ORDER BY id FOR UPDATE`, capped); err != nil {
+	// each other the other way round. NO KEY UPDATE does not conflict with the key-share
+	// locks that inserting a split's rows (foreign keys to the accounts) takes, so a
+	// split being set, which checks its caps after writing its rows, cannot deadlock
+	// with another.
+	if _, err := tx.Exec(ctx, `SELECT 1 FROM funding_accounts WHERE id = ANY($1::uuid[]) ORDER BY id FOR NO KEY UPDATE`, capped); err != nil {
 		return err
 	}
 	var class string
