@@ -3,6 +3,7 @@ package server
 import (
 	"net/http"
 	"slices"
+	"strconv"
 	"strings"
 	"time"
 
@@ -54,6 +55,18 @@ func (s *Server) handleAcquirePage(c echo.Context, me accounts.Principal, pg web
 	}
 	for _, sp := range sps {
 		d.Specimens = append(d.Specimens, web.Option{Value: sp.ID, Label: sp.Code + " — " + sp.Description})
+	}
+	af := provenance.AcquisitionFilter{Limit: 50, ProjectIDs: sf.ProjectIDs}
+	as, err := s.store.Acquisitions(ctx, af)
+	if err != nil {
+		return err
+	}
+	for _, a := range as {
+		if me.FacilityWide() || a.UserID == me.UserID {
+			d.Correctable = append(d.Correctable, web.Option{Value: a.ID, Selected: a.ID == c.QueryParam("correct"),
+				Label: n.instruments[a.InstrumentID] + " · " + a.StartedAt.In(n.loc).Format("Mon 2 Jan 15:04") + " · " + n.project(ctx, a.ProjectID) +
+					" · version " + strconv.Itoa(a.Version)})
+		}
 	}
 	return s.render(c, http.StatusOK, "acquire", "layout", d)
 }

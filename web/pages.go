@@ -57,6 +57,9 @@ type AcquireData struct {
 	Page
 	Bookings  []AcquireBooking
 	Specimens []Option
+	// Correctable are the recent acquisitions the viewer may correct: their own as the
+	// booked user, or any for staff and managers.
+	Correctable []Option
 }
 
 // AcquireBooking is a booking an acquisition may be recorded on.

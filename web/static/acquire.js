@@ -162,3 +162,66 @@
     fillFromBooking();
   });
 })();
+
+// Corrections: an acquisition's conditions as recorded, to be changed where they were
+// wrong and sent as a new version with a reason (POST .../corrections). Conditions
+// with no field here (detectors, aberrations, facility fields) go back as recorded.
+(function () {
+  const $ = (s) => document.querySelector(s);
+  const scalars = [["accelerating_voltage", "Accelerating voltage"], ["beam_current", "Beam current"], ["convergence_semiangle", "Convergence semi-angle"],
+    ["dwell_time", "Dwell time"], ["pixel_size", "Pixel size"], ["camera_length", "Camera length"], ["frame_count", "Frame count"],
+    ["exposure_time", "Exposure time"], ["defocus", "Defocus"]];
+  let current = null;
+
+  // client turns the stored form of conditions ({si, unit, text}) back into what a
+  // client sends ("300 kV").
+  function client(v) {
+    if (Array.isArray(v)) return v.map(client);
+    if (v && typeof v === "object") {
+      if ("si" in v && "unit" in v) return v.text || v.si;
+      return Object.fromEntries(Object.entries(v).map(([k, x]) => [k, client(x)]));
+    }
+    return v;
+  }
+
+  async function load() {
+    const id = $("#cor-acq").value;
+    $("#cor-ok").textContent = "";
+    $("#cor-error").replaceChildren();
+    const r = await BL.api("/api/v1/acquisitions/" + id);
+    if (!r.ok || id !== $("#cor-acq").value) { if (!r.ok) BL.showError($("#cor-error"), r.body); return; }
+    current = r.body;
+    const cond = client(current.conditions || {});
+    const box = $("#cor-fields");
+    box.replaceChildren(...scalars.map(([k, label]) => BL.el("div", {}, BL.el("label", { for: "cor-" + k, text: label }),
+      BL.el("input", { id: "cor-" + k, name: k, value: cond[k] === undefined ? "" : String(cond[k]) }))));
+    const kept = Object.keys(cond).filter((k) => !scalars.some(([s]) => s === k));
+    $("#cor-kept").textContent = "Version " + current.version + (kept.length ? "; kept as recorded: " + kept.join(", ") + "." : ".");
+  }
+
+  document.addEventListener("DOMContentLoaded", () => {
+    const f = $("#cor-form");
+    if (!f) return;
+    $("#cor-acq").addEventListener("change", load);
+    f.addEventListener("submit", async (ev) => {
+      ev.preventDefault();
+      if (!current) return;
+      const conditions = client(current.conditions || {});
+      for (const [k] of scalars) {
+        const v = f.elements[k].value.trim();
+        if (v === "") delete conditions[k];
+        else conditions[k] = k === "frame_count" ? Number(v) : v;
+      }
+      const body = { started_at: current.started_at, ended_at: current.ended_at, notes: current.notes, operator_id: current.operator_id,
+        conditions, reason: f.elements.reason.value, base_version: current.version };
+      if (current.specimen_id) body.specimen_id = current.specimen_id;
+      const r = await BL.api("/api/v1/acquisitions/" + current.id + "/corrections", { method: "POST", body });
+      if (!r.ok) { BL.showError($("#cor-error"), r.body); $("#cor-ok").textContent = ""; return; }
+      f.elements.reason.value = "";
+      await load();
+      const w = r.body.warnings && r.body.warnings.length ? " Warnings kept with it: " + r.body.warnings.join("; ") + "." : "";
+      $("#cor-ok").textContent = "Corrected: version " + r.body.version + " is now in force." + w;
+    });
+    load();
+  });
+})();

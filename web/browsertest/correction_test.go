@@ -1,0 +1,62 @@
+package browsertest
+
+import (
+	"encoding/json"
+	"net/http"
+	"testing"
+	"time"
+
+	"github.com/chromedp/chromedp"
+
+	"beamledger/accounts"
+)
+
+// TestCorrectAcquisition: the researcher opens one of their recorded acquisitions
+// under the acquisition form, sees its conditions as recorded, is refused a correction
+// without a reason and one with a beam current that is no current (each naming the
+// field), then records the right current; the acquisition's history keeps both
+// versions, the new one with the reason.
+func TestCorrectAcquisition(t *testing.T) {
+	s := newSite(t)
+	ctx := newBrowser(t)
+	s.signIn(t, ctx, accounts.RoleResearcher)
+	run(t, ctx, "open the form", chromedp.Navigate(s.url+"/acquire"), chromedp.WaitVisible(css("#cor-form")))
+	waitText(t, ctx, "#cor-kept", "Version 1", 10*time.Second)
+	id := eval[string](t, ctx, "chosen acquisition", `document.querySelector("#cor-acq").value`)
+	if v := eval[string](t, ctx, "voltage", `document.querySelector("#cor-accelerating_voltage").value`); v == "" {
+		t.Fatal("the recorded accelerating voltage is not shown")
+	}
+	run(t, ctx, "no reason", retype("#cor-beam_current", "75 pA"), chromedp.Click(css("#cor-submit")))
+	waitText(t, ctx, "#cor-error", "reason", 10*time.Second)
+	run(t, ctx, "no current", retype("#cor-beam_current", "75 parsecs"), retype("#cor-reason", "current read from the wrong meter"), chromedp.Click(css("#cor-submit")))
+	waitText(t, ctx, "#cor-error", "beam_current", 10*time.Second)
+	run(t, ctx, "the right current", retype("#cor-beam_current", "75 pA"), chromedp.Click(css("#cor-submit")))
+	waitText(t, ctx, "#cor-ok", "Corrected: version 2 is now in force.", 10*time.Second)
+	waitText(t, ctx, "#cor-kept", "Version 2", 10*time.Second)
+	screenshot(t, ctx, "acquisition-correction")
+
+	var history struct {
+		Items []struct {
+			Version    int             `json:"version"`
+			Reason     string          `json:"reason"`
+			Conditions json.RawMessage `json:"conditions"`
+		} `json:"items"`
+	}
+	if code := s.api(t, accounts.RoleResearcher, http.MethodGet, "/api/v1/acquisitions/"+id+"/versions", nil, &history); code != http.StatusOK {
+		t.Fatalf("versions: %d", code)
+	}
+	if len(history.Items) != 2 {
+		t.Fatalf("%d versions after one correction", len(history.Items))
+	}
+	last := history.Items[len(history.Items)-1]
+	var cond struct {
+		BeamCurrent struct{ SI float64 } `json:"beam_current"`
+	}
+	if err := json.Unmarshal(last.Conditions, &cond); err != nil {
+		t.Fatal(err)
+	}
+	// 75 pA is 7.5e-11 A [constructed: the value typed above].
+	if last.Version != 2 || last.Reason != "current read from the wrong meter" || cond.BeamCurrent.SI < 7.49e-11 || cond.BeamCurrent.SI > 7.51e-11 {
+		t.Fatalf("the new version: %d %q %s", last.Version, last.Reason, last.Conditions)
+	}
+}
