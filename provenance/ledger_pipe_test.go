@@ -12,7 +12,7 @@ import (
 func TestPipe(t *testing.T) {
 	const n = 2*pipeBatch + 17
 	boom := errors.New("boom")
-	seq := func(failAt int, stopped *bool) iter.Seq2[int, error] {
+	seq := func(n, failAt int, stopped *bool) iter.Seq2[int, error] {
 		return func(yield func(int, error) bool) {
 			for i := 0; i < n; i++ {
 				if i == failAt {
@@ -27,7 +27,7 @@ func TestPipe(t *testing.T) {
 		}
 	}
 	var stopped bool
-	next, stop := pipe(seq(-1, &stopped), func(i int) int { return i * 2 })
+	next, stop := pipe(seq(n, -1, &stopped), func(i int) int { return i * 2 })
 	for want := 0; ; want++ {
 		v, err, ok := next()
 		if !ok {
@@ -42,7 +42,7 @@ func TestPipe(t *testing.T) {
 	}
 	stop()
 
-	next, stop = pipe(seq(pipeBatch+5, &stopped), func(i int) int { return i })
+	next, stop = pipe(seq(n, pipeBatch+5, &stopped), func(i int) int { return i })
 	got := 0
 	for {
 		_, err, ok := next()
@@ -62,8 +62,11 @@ func TestPipe(t *testing.T) {
 	}
 	stop()
 
+	// The pipe reads at most four batches ahead (one being filled, two in the
+	// channel, one being taken from): a longer sequence is still running at the
+	// stop, however slowly the taker went.
 	stopped = false
-	next, stop = pipe(seq(-1, &stopped), func(i int) int { return i })
+	next, stop = pipe(seq(10*pipeBatch, -1, &stopped), func(i int) int { return i })
 	if _, _, ok := next(); !ok {
 		t.Fatal("no first element")
 	}
