@@ -336,7 +336,7 @@ func (a *audit) tail() error {
 }
 
 // pipeBatch is how many elements a pipe passes at a time.
-const pipeBatch = 1000
+const pipeBatch = 4096
 
 // pipeMsg is one batch through a pipe, or the error that ended the sequence.
 type pipeMsg[U any] struct {

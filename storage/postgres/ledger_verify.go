@@ -19,7 +19,7 @@ import (
 // auditFetch is how many rows each cursor fetches at a time, and how many rows a
 // stream reads ahead: the audit's memory is a few batches per table, whatever the
 // ledger's length.
-const auditFetch = 1000
+const auditFetch = 4096
 
 // auditConns is how many connections an audit holds: one for the snapshot, the
 // tree heads and the checkpoints, and one for each of the two long streams.
