@@ -15,7 +15,7 @@ test: fmt-check
 # Every benchmark beside its anchor, in one run, written to BENCHMARKS.md with the
 # machine, versions, medians and ratios (deploy/benchreport). SUITES=booking,ledger
 # runs some; the suites are booking, files (about 12 GiB of disk), ledger, trace,
-# cost-recovery and ledger-append. The whole run takes about 30 minutes on 2 cores.
+# cost-recovery and ledger-append. The whole run takes about 15 minutes on 2 cores.
 SUITES ?=
 bench:
 	$(GO) run ./deploy/testenv -- $(GO) run ./deploy/benchreport -only '$(SUITES)'

@@ -53,7 +53,7 @@ var suites = []suite{
 	},
 	{
 		Name: "files", Packages: []string{"./storage/objects/", "./server/", "./cmd/beamledger/"},
-		Bench: "^Benchmark(RawPutObject|FileUpload|UploadCommand|Scrub)$", Benchtime: "1x", Count: 1,
+		Bench: "^Benchmark(RawPutObject|FileUpload|UploadCommand|Scrub)$", Benchtime: "1x", Count: 3,
 		About: "2 GiB through the harness's S3 server on local disk. Anchors: minio-go PutObject of the same bytes, and a plain " +
 			"Go SHA-256 pass over a stored object read from the same store. Needs about 12 GiB of disk.",
 		Figures: []figure{
