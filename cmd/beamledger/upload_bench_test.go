@@ -44,6 +44,7 @@ func BenchmarkUploadCommand(b *testing.B) {
 	b.SetBytes(objectstest.BenchObjectBytes)
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
+		objectstest.Settle(b)
 		var out strings.Builder
 		if err := runUploads(context.Background(), o, []string{path}, &out, io.Discard); err != nil {
 			b.Fatal(err)

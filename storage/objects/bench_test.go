@@ -25,6 +25,7 @@ func BenchmarkRawPutObject(b *testing.B) {
 	b.SetBytes(objectstest.BenchObjectBytes)
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
+		objectstest.Settle(b)
 		r := objectstest.NewPattern(objectstest.BenchObjectBytes, i)
 		if _, err := client.PutObject(context.Background(), cfg.Bucket, "bench/raw", r, objectstest.BenchObjectBytes, minio.PutObjectOptions{}); err != nil {
 			b.Fatal(err)
