@@ -99,7 +99,7 @@ func (db *DB) createBookingDirect(ctx context.Context, nb scheduling.NewBooking,
 	}
 	for attempt := 0; ; attempt++ {
 		b, err = insertBooking(ctx, conn, nb, now, nil)
-		if !retryable(err) || attempt == 4 {
+		if !retryable(err) || !retryPause(ctx, attempt) {
 			// Name the range hit while the connection is still ours.
 			return b, bookingError(ctx, conn, err, nb.InstrumentID, nb.StaffID, nb.Start, nb.End, ""), true
 		}

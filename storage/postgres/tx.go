@@ -3,6 +3,7 @@ package postgres
 import (
 	"context"
 	"errors"
+	"math/rand/v2"
 	"time"
 
 	"github.com/jackc/pgx/v5"
@@ -15,18 +16,34 @@ import (
 // then sees the committed winner and fails with a real conflict.
 func (db *DB) retryTx(ctx context.Context, fn func(pgx.Tx) error) error {
 	var err error
-	for attempt := 0; attempt < 5; attempt++ {
+	for attempt := 0; attempt < retryAttempts; attempt++ {
 		err = pgx.BeginFunc(ctx, db.pool, fn)
-		if !retryable(err) {
+		if !retryable(err) || !retryPause(ctx, attempt) {
 			return err
-		}
-		select {
-		case <-ctx.Done():
-			return err
-		case <-time.After(time.Duration(1<<attempt) * 5 * time.Millisecond):
 		}
 	}
 	return err
+}
+
+// retryAttempts is how many times a write aborted by a deadlock or a serialization
+// conflict is tried in all.
+const retryAttempts = 7
+
+// retryPause waits before the next attempt after a retryable abort: a random time up
+// to 5 ms doubled per attempt. The randomness matters: writers that deadlocked with
+// each other and came back after the same pause would meet again. false when the
+// context ended or the attempts are used up.
+func retryPause(ctx context.Context, attempt int) bool {
+	if attempt+1 >= retryAttempts {
+		return false
+	}
+	limit := time.Duration(1<<attempt) * 5 * time.Millisecond
+	select {
+	case <-ctx.Done():
+		return false
+	case <-time.After(limit/2 + rand.N(limit/2+1)):
+		return true
+	}
 }
 
 func retryable(err error) bool {
