@@ -18,6 +18,33 @@ import (
 	"beamledger/storage/postgres"
 )
 
+// ownCluster starts a throwaway PostgreSQL cluster of the test's own, stopped when
+// the test ends, and runs the admin statements in its postgres database.
+func ownCluster(t *testing.T, admin ...string) *pgcluster.Cluster {
+	t.Helper()
+	ctx := context.Background()
+	bins, err := pgcluster.FindBinaries()
+	if err != nil {
+		t.Fatalf("PostgreSQL binaries (make test installs them): %v", err)
+	}
+	cluster, err := pgcluster.Start(ctx, pgcluster.Options{Throwaway: true, Binaries: bins})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { _ = cluster.Stop() })
+	conn, err := pgx.Connect(ctx, cluster.URL("postgres"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close(ctx)
+	for _, sql := range admin {
+		if _, err := conn.Exec(ctx, sql); err != nil {
+			t.Fatal(err)
+		}
+	}
+	return cluster
+}
+
 // TestDatabaseCrashUnderLoad crashes PostgreSQL (an immediate shutdown, as a dying
 // database host) while researchers book and read, keeps it down for three seconds
 // and starts it again. While it is down every request that needs it is answered
@@ -29,27 +56,9 @@ func TestDatabaseCrashUnderLoad(t *testing.T) {
 		t.Skip("starts and crashes a PostgreSQL server of its own")
 	}
 	ctx := context.Background()
-	bins, err := pgcluster.FindBinaries()
-	if err != nil {
-		t.Fatalf("PostgreSQL binaries (make test installs them): %v", err)
-	}
-	cluster, err := pgcluster.Start(ctx, pgcluster.Options{Throwaway: true, Binaries: bins})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { _ = cluster.Stop() })
-	admin, err := pgx.Connect(ctx, cluster.URL("postgres"))
-	if err != nil {
-		t.Fatal(err)
-	}
 	// A throwaway cluster acknowledges commits before their WAL is written; an
 	// acknowledged booking must survive the crash, as in production.
-	for _, sql := range []string{`ALTER SYSTEM SET synchronous_commit = on`, `SELECT pg_reload_conf()`, `CREATE DATABASE crash`} {
-		if _, err := admin.Exec(ctx, sql); err != nil {
-			t.Fatal(err)
-		}
-	}
-	admin.Close(ctx)
+	cluster := ownCluster(t, `ALTER SYSTEM SET synchronous_commit = on`, `SELECT pg_reload_conf()`, `CREATE DATABASE crash`)
 	db, err := postgres.Open(ctx, cluster.URL("crash"), 8)
 	if err != nil {
 		t.Fatal(err)

@@ -14,7 +14,6 @@ import (
 	"github.com/jackc/pgx/v5"
 
 	"beamledger/accounts"
-	"beamledger/deploy/pgcluster"
 	"beamledger/scheduling"
 	"beamledger/storage/postgres"
 )
@@ -67,23 +66,7 @@ func TestReportsReadTheReplica(t *testing.T) {
 		t.Skip("starts a PostgreSQL primary and a streaming replica of its own")
 	}
 	ctx := context.Background()
-	bins, err := pgcluster.FindBinaries()
-	if err != nil {
-		t.Fatalf("PostgreSQL binaries (make test installs them): %v", err)
-	}
-	primary, err := pgcluster.Start(ctx, pgcluster.Options{Throwaway: true, Binaries: bins})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { _ = primary.Stop() })
-	admin, err := pgx.Connect(ctx, primary.URL("postgres"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	if _, err := admin.Exec(ctx, `CREATE DATABASE reports`); err != nil {
-		t.Fatal(err)
-	}
-	admin.Close(ctx)
+	primary := ownCluster(t, `CREATE DATABASE reports`)
 	db, err := postgres.Open(ctx, primary.URL("reports"), 8)
 	if err != nil {
 		t.Fatal(err)
