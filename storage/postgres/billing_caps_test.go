@@ -8,7 +8,6 @@ import (
 	"time"
 
 	"beamledger"
-	"beamledger/accounts"
 	"beamledger/scheduling"
 )
 
@@ -18,17 +17,8 @@ import (
 func TestBillingCapHoldsUnderConcurrentBookings(t *testing.T) {
 	db, _ := openRaw(t)
 	ctx := context.Background()
-	if _, err := db.SetFacility(ctx, scheduling.Facility{Name: "F", TimeZone: "UTC", Currency: "EUR"}); err != nil {
-		t.Fatal(err)
-	}
-	mgr := mustCreateUser(t, db, "m@example.org", accounts.RoleManager)
-	pi := mustCreateUser(t, db, "pi@example.org", accounts.RoleResearcher)
-	in := mustCreateInstrument(t, db, "TEM-1")
 	from := time.Date(2031, 4, 1, 0, 0, 0, 0, time.UTC)
-	if _, err := db.CreateRateSchedule(ctx, scheduling.RateSchedule{InstrumentID: in.ID, EffectiveFrom: from, Currency: "EUR",
-		Classes: []scheduling.ClassRates{{RateClass: accounts.RateInternal, IndependentHourlyMinor: 12000}}}, mgr.ID, t0); err != nil {
-		t.Fatal(err)
-	}
+	mgr, pi, in := billingFacility(t, db, from)
 	p := mustCreateProject(t, db, "P-1", pi.ID)
 	// [constructed] 2 h at 120.00 = 240.00 a booking: the cap has room for two.
 	a, err := db.SaveFundingAccount(ctx, scheduling.FundingAccount{ProjectID: p.ID, Code: "CAP-C", CapMinor: 48000}, mgr.ID, t0)

@@ -6,7 +6,6 @@ import (
 	"testing"
 	"time"
 
-	"beamledger/accounts"
 	"beamledger/provenance"
 	"beamledger/scheduling"
 )
@@ -18,18 +17,9 @@ import (
 func TestComputeStatementsForManyProjects(t *testing.T) {
 	db, conn := openRaw(t)
 	ctx := context.Background()
-	if _, err := db.SetFacility(ctx, scheduling.Facility{Name: "F", TimeZone: "UTC", Currency: "EUR"}); err != nil {
-		t.Fatal(err)
-	}
-	mgr := mustCreateUser(t, db, "m@example.org", accounts.RoleManager)
-	pi := mustCreateUser(t, db, "pi@example.org", accounts.RoleResearcher)
-	in := mustCreateInstrument(t, db, "TEM-1")
 	from := time.Date(2031, 3, 1, 0, 0, 0, 0, time.UTC)
 	to := from.AddDate(0, 1, 0)
-	if _, err := db.CreateRateSchedule(ctx, scheduling.RateSchedule{InstrumentID: in.ID, EffectiveFrom: from, Currency: "EUR",
-		Classes: []scheduling.ClassRates{{RateClass: accounts.RateInternal, IndependentHourlyMinor: 12000}}}, mgr.ID, t0); err != nil {
-		t.Fatal(err)
-	}
+	mgr, pi, in := billingFacility(t, db, from)
 	project := func(code string, funded bool) string {
 		p := mustCreateProject(t, db, code, pi.ID)
 		if funded {

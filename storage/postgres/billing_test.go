@@ -9,7 +9,6 @@ import (
 	"github.com/jackc/pgx/v5/pgconn"
 
 	"beamledger"
-	"beamledger/accounts"
 	"beamledger/provenance"
 	"beamledger/scheduling"
 )
@@ -20,18 +19,9 @@ import (
 func TestIssuedStatementIsFinalInTheDatabase(t *testing.T) {
 	db, conn := openRaw(t)
 	ctx := context.Background()
-	if _, err := db.SetFacility(ctx, scheduling.Facility{Name: "F", TimeZone: "UTC", Currency: "EUR"}); err != nil {
-		t.Fatal(err)
-	}
-	mgr := mustCreateUser(t, db, "m@example.org", accounts.RoleManager)
-	pi := mustCreateUser(t, db, "pi@example.org", accounts.RoleResearcher)
-	p := mustCreateProject(t, db, "P-1", pi.ID)
-	in := mustCreateInstrument(t, db, "TEM-1")
 	from := time.Date(2031, 3, 1, 0, 0, 0, 0, time.UTC)
-	if _, err := db.CreateRateSchedule(ctx, scheduling.RateSchedule{InstrumentID: in.ID, EffectiveFrom: from, Currency: "EUR",
-		Classes: []scheduling.ClassRates{{RateClass: accounts.RateInternal, IndependentHourlyMinor: 12000}}}, mgr.ID, t0); err != nil {
-		t.Fatal(err)
-	}
+	mgr, pi, in := billingFacility(t, db, from)
+	p := mustCreateProject(t, db, "P-1", pi.ID)
 	acct, err := db.SaveFundingAccount(ctx, scheduling.FundingAccount{ProjectID: p.ID, Code: "G-1"}, mgr.ID, t0)
 	if err != nil {
 		t.Fatal(err)

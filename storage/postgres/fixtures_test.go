@@ -91,3 +91,22 @@ func ptr[T any](v T) *T { return &v }
 func newUserFor(email string) accounts.NewUser {
 	return accounts.NewUser{Email: email, DisplayName: "User " + email, Role: accounts.RoleResearcher}
 }
+
+// billingFacility sets up what the billing tests share: a facility in UTC billing in
+// EUR, a manager, a principal investigator and the instrument TEM-1 with one rate
+// schedule from `from`, internal independent time at 120.00 an hour.
+func billingFacility(t *testing.T, db *postgres.DB, from time.Time) (mgr, pi accounts.User, in scheduling.Instrument) {
+	t.Helper()
+	ctx := context.Background()
+	if _, err := db.SetFacility(ctx, scheduling.Facility{Name: "F", TimeZone: "UTC", Currency: "EUR"}); err != nil {
+		t.Fatal(err)
+	}
+	mgr = mustCreateUser(t, db, "m@example.org", accounts.RoleManager)
+	pi = mustCreateUser(t, db, "pi@example.org", accounts.RoleResearcher)
+	in = mustCreateInstrument(t, db, "TEM-1")
+	if _, err := db.CreateRateSchedule(ctx, scheduling.RateSchedule{InstrumentID: in.ID, EffectiveFrom: from, Currency: "EUR",
+		Classes: []scheduling.ClassRates{{RateClass: accounts.RateInternal, IndependentHourlyMinor: 12000}}}, mgr.ID, t0); err != nil {
+		t.Fatal(err)
+	}
+	return mgr, pi, in
+}
