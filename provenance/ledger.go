@@ -116,13 +116,9 @@ const leafTime = "2006-01-02T15:04:05.000000Z07:00"
 // integer above 2⁵³ would lose digits, so such values belong in strings (ids and
 // byte counts here stay far below).
 func NewLedgerEvent(actor, action, entityType, entityID string, at time.Time, state any) (LedgerEvent, error) {
-	raw, err := json.Marshal(state)
-	if err != nil {
-		return LedgerEvent{}, fmt.Errorf("ledger event state: %w", err)
-	}
 	at = at.UTC().Truncate(time.Microsecond)
 	body := leafBody{V: LedgerFormat, Action: action, Actor: actor, At: at.Format(leafTime),
-		EntityID: entityID, EntityType: entityType, State: raw}
+		EntityID: entityID, EntityType: entityType}
 	if err := body.check(); err != nil {
 		return LedgerEvent{}, err
 	}
@@ -133,9 +129,9 @@ func NewLedgerEvent(actor, action, entityType, entityID string, at time.Time, st
 	}
 	// Only the state needs the general canonicalization; the members around it are
 	// strings this package writes as RFC 8785 does, in RFC 8785's member order.
-	canon, err := jcs.Transform(raw)
+	canon, err := canonicalState(state)
 	if err != nil {
-		return LedgerEvent{}, fmt.Errorf("ledger event canonical form: %w", err)
+		return LedgerEvent{}, err
 	}
 	e := LedgerEvent{Actor: actor, At: at, Action: action, EntityType: entityType, EntityID: entityID}
 	leaf := e.appendLeafPrefix(make([]byte, 0, 160+len(canon)))
@@ -144,6 +140,33 @@ func NewLedgerEvent(actor, action, entityType, entityID string, at time.Time, st
 	e.Leaf = leaf
 	e.State = leaf[len(leaf)-len(leafSuffix)-len(canon) : len(leaf)-len(leafSuffix)]
 	return e, nil
+}
+
+// CanonicalState is a state that writes its own RFC 8785 canonical JSON, for states
+// large enough that the general way (encoding/json, then canonicalization) would cost
+// more than producing them. The bytes must be exactly the general way's; a type that
+// implements it keeps a test saying so. An error means "not covered": the general way
+// is used instead.
+type CanonicalState interface {
+	AppendCanonicalJSON(dst []byte) ([]byte, error)
+}
+
+// canonicalState is the RFC 8785 form of state's JSON.
+func canonicalState(state any) ([]byte, error) {
+	if c, ok := state.(CanonicalState); ok {
+		if canon, err := c.AppendCanonicalJSON(nil); err == nil {
+			return canon, nil
+		}
+	}
+	raw, err := json.Marshal(state)
+	if err != nil {
+		return nil, fmt.Errorf("ledger event state: %w", err)
+	}
+	canon, err := jcs.Transform(raw)
+	if err != nil {
+		return nil, fmt.Errorf("ledger event canonical form: %w", err)
+	}
+	return canon, nil
 }
 
 func (b leafBody) check() error {

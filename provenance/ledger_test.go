@@ -14,6 +14,7 @@ import (
 	"golang.org/x/mod/sumdb/tlog"
 
 	"beamledger/provenance"
+	"beamledger/scheduling"
 )
 
 func mustHex(t *testing.T, s string) []byte {
@@ -203,6 +204,42 @@ func TestLedgerEventCanonical(t *testing.T) {
 	}
 	if _, err := provenance.NewLedgerEvent("", "create", "specimen", "x", at, nil); err == nil {
 		t.Error("an event without actor was built")
+	}
+}
+
+// TestLedgerEventOwnCanonicalState checks that a state writing its own canonical JSON
+// (a statement record) gives the very leaf the general way gives, and that a state the
+// own writer declines (an amount beyond 2^53) still gets the general way's leaf.
+func TestLedgerEventOwnCanonicalState(t *testing.T) {
+	at := time.Date(2031, 4, 1, 6, 0, 0, 0, time.UTC)
+	start := at.AddDate(0, -1, 0)
+	rec := scheduling.StatementRecord{ID: "st-1", ProjectID: "p-1", Currency: "EUR", PeriodStart: start, PeriodEnd: at,
+		Status: scheduling.StatementDraft, TotalMinor: 12000,
+		Lines: []scheduling.StatementLine{{LineNo: 1, BookingID: "b-1", InstrumentID: "i-1", BookingKind: scheduling.KindIndependent,
+			BookingStart: &start, Component: scheduling.ComponentInstrumentTime, Rule: "greater_of_booked_and_used", Minutes: 60,
+			HourlyRateMinor: 12000, AmountMinor: 12000, Reason: "tab\tand \"quotes\" é",
+			Allocations: []scheduling.Allocation{{AccountID: "a-1", AmountMinor: 12000}}}},
+		AccountTotals: []scheduling.Allocation{{AccountID: "a-1", AmountMinor: 12000}}}
+	for name, rec := range map[string]scheduling.StatementRecord{
+		"own writer":   rec,
+		"general only": func() scheduling.StatementRecord { r := rec; r.TotalMinor = 1<<53 + 1; return r }(),
+	} {
+		if _, ok := any(rec).(provenance.CanonicalState); !ok {
+			t.Fatal("a statement record does not write its own canonical JSON")
+		}
+		ev, err := provenance.NewLedgerEvent("m-1", provenance.ActionCreate, provenance.EntityStatement, rec.ID, at, rec)
+		if err != nil {
+			t.Fatal(err)
+		}
+		raw, err := json.Marshal(rec)
+		if err != nil {
+			t.Fatal(err)
+		}
+		// [computed] the general way: the record's encoding/json bytes as a raw state.
+		general, err := provenance.NewLedgerEvent("m-1", provenance.ActionCreate, provenance.EntityStatement, rec.ID, at, json.RawMessage(raw))
+		if err != nil || !bytes.Equal(ev.Leaf, general.Leaf) {
+			t.Errorf("%s: leaf\n%s\nwant\n%s (%v)", name, ev.Leaf, general.Leaf, err)
+		}
 	}
 }
 
