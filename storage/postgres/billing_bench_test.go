@@ -25,7 +25,7 @@ var benchYear = time.Date(2031, 1, 1, 0, 0, 0, 0, time.UTC)
 // utilization report for the year (one read, UtilizationInputsAll, then one report per
 // instrument), each beside the single SQL aggregate that gives the same totals (the
 // anchor, "raw_sql"). The beamledger side prices line by line, splits across funding
-// accounts and stores every statement with its lines and ledger event; the anchor only
+// accounts and stores every statement with its ledger event holding its lines; the anchor only
 // sums. Each side's totals are checked against the other's before timing.
 //
 //	go run ./deploy/testenv -- go test -run '^$' -bench CostRecovery -benchtime 3x -timeout 60m ./storage/postgres/

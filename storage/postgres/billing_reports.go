@@ -52,14 +52,15 @@ FROM cost_entries WHERE fiscal_year = $1 ORDER BY instrument_id, entered_at, id`
 }
 
 // IssuedChargesByInstrument sums, per instrument, the lines of issued statements whose
-// period starts in [from, to). Monthly-cap and adjustment lines name no instrument and
-// are not counted: they are not any one instrument's recovery.
+// period starts in [from, to) (each statement keeps its per-instrument sums beside
+// its lines). Monthly-cap and adjustment lines name no instrument and are not counted:
+// they are not any one instrument's recovery.
 func (db *DB) IssuedChargesByInstrument(ctx context.Context, from, to time.Time) (map[string]int64, error) {
 	const q = `
-SELECT l.instrument_id::text, sum(l.amount_minor)::bigint
-FROM statement_lines l JOIN statements s ON s.id = l.statement_id
-WHERE s.status = 'issued' AND s.period_start >= $1 AND s.period_start < $2 AND l.instrument_id IS NOT NULL
-GROUP BY l.instrument_id`
+SELECT t.key, sum(t.value::bigint)::bigint
+FROM statements s CROSS JOIN LATERAL jsonb_each_text(s.instrument_totals) t
+WHERE s.status = 'issued' AND s.period_start >= $1 AND s.period_start < $2
+GROUP BY t.key`
 	rows, err := db.pool.Query(ctx, q, from, to)
 	if err != nil {
 		return nil, mapError(err, "statement")

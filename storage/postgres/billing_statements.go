@@ -47,58 +47,33 @@ func (db *DB) Statement(ctx context.Context, id string) (scheduling.Statement, e
 	return st, mapError(err, "statement")
 }
 
+// readStatement reads a statement's row and the ledger event it names, whose state is
+// the statement's record with every line. The two must agree (the event is the one
+// written with the row's present state); a disagreement is reported as an error, never
+// shown.
 func readStatement(ctx context.Context, q querier, id string) (scheduling.Statement, error) {
+	const sql = `
+SELECT s.status, s.issued_at, s.total_minor, e.entity_type, e.entity_id, e.leaf
+FROM statements s JOIN ledger_events e ON e.seq = s.event_seq WHERE s.id = $1`
+	var status, entityType, entityID string
+	var issuedAt *time.Time
+	var total int64
+	var leaf []byte
+	if err := q.QueryRow(ctx, sql, id).Scan(&status, &issuedAt, &total, &entityType, &entityID, &leaf); err != nil {
+		return scheduling.Statement{}, err
+	}
+	ev, err := provenance.ParseLeaf(leaf)
+	if err != nil {
+		return scheduling.Statement{}, fmt.Errorf("stored statement %s: %w", id, err)
+	}
 	var rec scheduling.StatementRecord
-	var status string
-	var components, accountTotals []byte
-	const head = `
-SELECT id::text, project_id::text, currency, period_start, period_end, status, issued_at, total_minor, component_totals, account_totals
-FROM statements WHERE id = $1`
-	if err := q.QueryRow(ctx, head, id).Scan(&rec.ID, &rec.ProjectID, &rec.Currency, &rec.PeriodStart, &rec.PeriodEnd, &status,
-		&rec.IssuedAt, &rec.TotalMinor, &components, &accountTotals); err != nil {
-		return scheduling.Statement{}, err
+	if err := json.Unmarshal(ev.State, &rec); err != nil {
+		return scheduling.Statement{}, fmt.Errorf("stored statement %s: its ledger event: %w", id, err)
 	}
-	rec.Status, rec.PeriodStart, rec.PeriodEnd = scheduling.StatementStatus(status), rec.PeriodStart.UTC(), rec.PeriodEnd.UTC()
-	if rec.IssuedAt != nil {
-		t := rec.IssuedAt.UTC()
-		rec.IssuedAt = &t
-	}
-	if err := json.Unmarshal(components, &rec.ComponentTotals); err != nil {
-		return scheduling.Statement{}, err
-	}
-	if err := json.Unmarshal(accountTotals, &rec.AccountTotals); err != nil {
-		return scheduling.Statement{}, err
-	}
-	const lines = `
-SELECT line_no, coalesce(booking_id::text, ''), coalesce(instrument_id::text, ''), coalesce(booking_kind, ''), booking_start,
-       component, rule, from_at, to_at, minutes, hourly_rate_minor, amount_minor, reason, coalesce(adjustment_id::text, ''),
-       coalesce(corrects_statement_id::text, ''), allocations
-FROM statement_lines WHERE statement_id = $1 ORDER BY line_no`
-	rows, err := q.Query(ctx, lines, id)
-	if err != nil {
-		return scheduling.Statement{}, err
-	}
-	var l scheduling.StatementLine
-	var kind, component, rule string
-	var allocs []byte
-	_, err = pgx.ForEachRow(rows, []any{&l.LineNo, &l.BookingID, &l.InstrumentID, &kind, &l.BookingStart, &component, &rule,
-		&l.From, &l.To, &l.Minutes, &l.HourlyRateMinor, &l.AmountMinor, &l.Reason, &l.AdjustmentID, &l.CorrectsStatementID, &allocs}, func() error {
-		l.BookingKind, l.Component, l.Rule = scheduling.BookingKind(kind), scheduling.ChargeComponent(component), scheduling.ChargeRule(rule)
-		for _, t := range []**time.Time{&l.BookingStart, &l.From, &l.To} {
-			if *t != nil {
-				u := (*t).UTC()
-				*t = &u
-			}
-		}
-		l.Allocations = nil
-		if err := json.Unmarshal(allocs, &l.Allocations); err != nil {
-			return err
-		}
-		rec.Lines = append(rec.Lines, l)
-		return nil
-	})
-	if err != nil {
-		return scheduling.Statement{}, err
+	sameIssue := (issuedAt == nil) == (rec.IssuedAt == nil) && (issuedAt == nil || issuedAt.Equal(*rec.IssuedAt))
+	if entityType != provenance.EntityStatement || entityID != id || rec.ID != id || string(rec.Status) != status ||
+		rec.TotalMinor != total || !sameIssue {
+		return scheduling.Statement{}, fmt.Errorf("stored statement %s: its row and the ledger event it names disagree", id)
 	}
 	st, err := scheduling.RestoreStatement(rec)
 	if err != nil {
@@ -126,7 +101,8 @@ FROM statements WHERE project_id = $1 ORDER BY period_start DESC`
 	return out, mapError(err, "statement")
 }
 
-// IssueStatement makes a draft final, with its ledger event holding every line.
+// IssueStatement makes a draft final, with its ledger event holding every line; the
+// statement's row then names that event.
 // ErrConflict when it was issued already.
 func (db *DB) IssueStatement(ctx context.Context, id, actor string, now time.Time) (scheduling.Statement, error) {
 	if !accounts.ValidID(id) {
@@ -144,10 +120,17 @@ func (db *DB) IssueStatement(ctx context.Context, id, actor string, now time.Tim
 		if out, err = st.Issue(now.UTC().Truncate(time.Microsecond)); err != nil {
 			return err
 		}
-		if _, err := tx.Exec(ctx, `UPDATE statements SET status = 'issued', issued_at = $2, issued_by = $3 WHERE id = $1`, id, now, actor); err != nil {
+		ev, err := provenance.NewLedgerEvent(actor, provenance.ActionIssue, provenance.EntityStatement, id, now, out.Record())
+		if err != nil {
 			return err
 		}
-		return appendChange(ctx, tx, actor, provenance.ActionIssue, provenance.EntityStatement, id, now, out.Record())
+		seq, err := appendEventSeq(ctx, tx, ev)
+		if err != nil {
+			return err
+		}
+		const q = `UPDATE statements SET status = 'issued', issued_at = $2, issued_by = $3, event_seq = $4 WHERE id = $1`
+		_, err = tx.Exec(ctx, q, id, out.Record().IssuedAt, actor, seq)
+		return err
 	})
 	return out, mapError(err, "statement")
 }

@@ -1,10 +1,12 @@
 package postgres
 
 import (
+	"cmp"
 	"context"
 	"encoding/json"
 	"errors"
 	"runtime"
+	"slices"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -20,9 +22,10 @@ import (
 
 // Computing drafts reads the sources of every project asked for in a few set-based
 // queries, prices each project in Go with the scheduling package's pure functions,
-// and writes every draft, its lines and its ledger event in the same transaction with
-// COPY and multi-row statements: the round trips do not grow with the projects or
-// bookings, so a month's statements for the whole facility cost about what one does.
+// and writes every draft's ledger event (holding its record, every line included) and
+// its row naming that event in the same transaction with COPY and multi-row
+// statements: the round trips do not grow with the projects or bookings, so a month's
+// statements for the whole facility cost about what one does.
 
 // ComputeStatement prices a project's bookings and adjustments of the period holding
 // at (bounds given by the caller in the facility's zone) and stores the result as
@@ -109,8 +112,9 @@ type draft struct {
 // facility does not exist.
 func computeDrafts(ctx context.Context, tx pgx.Tx, projectIDs []string, from, to time.Time, actor string, now time.Time) ([]draft, error) {
 	// The reads below are many rows but simple plans: compiling them (JIT) would cost
-	// more than running them.
-	if _, err := tx.Exec(ctx, `SET LOCAL jit = off`); err != nil {
+	// more than running them. A month's bookings are hashed against all usage; with
+	// the default 4 MB of working memory that hash spills to disk in batches.
+	if _, err := tx.Exec(ctx, `SET LOCAL jit = off; SET LOCAL work_mem = '64MB'`); err != nil {
 		return nil, err
 	}
 	// Computations of one period take turns, whichever process runs them: two that
@@ -276,13 +280,14 @@ WHERE project_id = ANY($1::uuid[]) ORDER BY project_id, position`, projectIDs)
 }
 
 // billableBookingsAll reads the projects' bookings starting in [from, to), keyed by
-// project, each with its usage, no-show mark, displacement, the minutes of a cancelled
-// booking others booked after its cancellation (active bookings of one instrument
-// never overlap, so the sum is their union), and the booking's own split.
+// project and in booking order (start, then id), each with its usage in order of
+// start, no-show mark, displacement, the minutes of a cancelled booking others booked
+// after its cancellation (active bookings of one instrument never overlap, so the sum
+// is their union), and the booking's own split.
 func billableBookingsAll(ctx context.Context, q querier, projectIDs []string, from, to time.Time) (map[string][]scheduling.BillableBooking, error) {
-	// One row per booking and usage (NULL usage for a booking without), grouped by
-	// project and in booking order within it: a flat join the planner can hash, with
-	// binary timestamps.
+	// One row per booking and usage (NULL usage for a booking without): a flat join
+	// the planner can hash, with binary timestamps, in no particular order (sorting a
+	// month of rows in the database cost more than sorting each project's in Go).
 	const sql = `
 SELECT b.project_id::text, b.id::text, b.instrument_id::text, b.user_id::text, b.kind, lower(b.during), upper(b.during), b.status, b.cancelled_at,
        b.displaced_by IS NOT NULL, n.booking_id IS NOT NULL,
@@ -291,57 +296,77 @@ SELECT b.project_id::text, b.id::text, b.instrument_id::text, b.user_id::text, b
            FROM bookings c
            WHERE c.instrument_id = b.instrument_id AND c.status = 'active' AND c.kind <> 'service' AND c.id <> b.id
              AND c.during && b.during AND c.created_at >= b.cancelled_at), 0) ELSE 0 END,
-       CASE WHEN EXISTS (SELECT 1 FROM booking_funding f WHERE f.booking_id = b.id) THEN
-           (SELECT json_agg(json_build_object('account_id', f.account_id, 'basis_points', f.basis_points) ORDER BY f.position)
-            FROM booking_funding f WHERE f.booking_id = b.id) END,
        u.started_at, u.ended_at
 FROM bookings b
 LEFT JOIN no_shows n ON n.booking_id = b.id
 LEFT JOIN usages u ON u.booking_id = b.id
-WHERE b.project_id = ANY($1::uuid[]) AND b.kind <> 'service' AND lower(b.during) >= $2 AND lower(b.during) < $3
-ORDER BY b.project_id, lower(b.during), b.id, u.started_at`
+WHERE b.project_id = ANY($1::uuid[]) AND b.kind <> 'service' AND lower(b.during) >= $2 AND lower(b.during) < $3`
 	rows, err := q.Query(ctx, sql, projectIDs, from, to)
 	if err != nil {
 		return nil, err
 	}
+	type ref struct {
+		project string
+		i       int
+	}
 	out := map[string][]scheduling.BillableBooking{}
-	var cur []scheduling.BillableBooking // the bookings of project curID, in order
-	curID := ""
+	at := map[string]ref{} // booking id → its place in out
 	var bb scheduling.BillableBooking
 	var projectID, kind, status string
 	var rebooked int64
-	var funding []byte
 	var started, ended *time.Time
 	b := &bb.Booking
 	_, err = pgx.ForEachRow(rows, []any{&projectID, &b.ID, &b.InstrumentID, &b.UserID, &kind, &b.Start, &b.End, &status, &b.CancelledAt,
-		&bb.DisplacedByService, &bb.NoShow, &rebooked, &funding, &started, &ended}, func() error {
-		if projectID != curID {
-			if curID != "" {
-				out[curID] = cur
-			}
-			cur, curID = nil, projectID
-		}
-		if n := len(cur); n == 0 || cur[n-1].Booking.ID != b.ID {
+		&bb.DisplacedByService, &bb.NoShow, &rebooked, &started, &ended}, func() error {
+		r, seen := at[b.ID]
+		if !seen {
 			b.ProjectID, b.Kind, b.Status, bb.RebookedMinutes = projectID, scheduling.BookingKind(kind), scheduling.BookingStatus(status), int(rebooked)
 			b.Start, b.End = b.Start.UTC(), b.End.UTC()
 			bb.Usages, bb.Funding = nil, nil
-			if funding != nil {
-				if err := json.Unmarshal(funding, &bb.Funding); err != nil {
-					return err
-				}
-			}
-			cur = append(cur, bb)
+			r = ref{projectID, len(out[projectID])}
+			at[b.ID] = r
+			out[projectID] = append(out[projectID], bb)
 		}
 		if started != nil {
-			last := &cur[len(cur)-1]
+			last := &out[r.project][r.i]
 			last.Usages = append(last.Usages, scheduling.Usage{BookingID: b.ID, StartedAt: *started, EndedAt: ended})
 		}
 		return nil
 	})
-	if curID != "" {
-		out[curID] = cur
+	if err != nil {
+		return nil, err
 	}
-	return out, err
+	// A booking's own split, for the few that have one.
+	const splits = `
+SELECT f.booking_id::text, f.account_id::text, f.basis_points
+FROM booking_funding f JOIN bookings b ON b.id = f.booking_id
+WHERE b.project_id = ANY($1::uuid[]) AND b.kind <> 'service' AND lower(b.during) >= $2 AND lower(b.during) < $3
+ORDER BY f.booking_id, f.position`
+	if rows, err = q.Query(ctx, splits, projectIDs, from, to); err != nil {
+		return nil, err
+	}
+	var bookingID string
+	var share scheduling.FundingShare
+	if _, err := pgx.ForEachRow(rows, []any{&bookingID, &share.AccountID, &share.BasisPoints}, func() error {
+		if r, ok := at[bookingID]; ok {
+			f := &out[r.project][r.i].Funding
+			*f = append(*f, share)
+		}
+		return nil
+	}); err != nil {
+		return nil, err
+	}
+	for _, bs := range out {
+		slices.SortFunc(bs, func(x, y scheduling.BillableBooking) int {
+			return cmp.Or(x.Booking.Start.Compare(y.Booking.Start), cmp.Compare(x.Booking.ID, y.Booking.ID))
+		})
+		for _, x := range bs {
+			if len(x.Usages) > 1 {
+				slices.SortFunc(x.Usages, func(u, v scheduling.Usage) int { return u.StartedAt.Compare(v.StartedAt) })
+			}
+		}
+	}
+	return out, nil
 }
 
 // adjustmentsAll reads the projects' adjustments made in [from, to), keyed by project.
@@ -369,47 +394,45 @@ FROM adjustments WHERE project_id = ANY($1::uuid[]) AND at >= $2 AND at < $3 ORD
 	return out, err
 }
 
-// writeStatements stores drafts in tx: new ones (created) are inserted, earlier
-// drafts have their row updated and their lines replaced; then every line goes in
-// with one COPY and every statement gets its ledger event, the same event
-// ComputeStatement has always written (create for a new statement, correct for a
-// recomputed one, holding the statement's record).
+// writeStatements stores drafts in tx: every statement's ledger event (create for a
+// new statement, correct for a recomputed one), whose state is the statement's record
+// with every line, then the statements' rows naming their events: new ones (created)
+// inserted, earlier drafts updated. The lines are kept in the events only.
 func writeStatements(ctx context.Context, tx pgx.Tx, recs []scheduling.StatementRecord, created []bool, actor string, now time.Time) error {
 	if len(recs) == 0 {
 		return nil
 	}
-	// Encoding the lines and the events (canonical JSON) is per statement: spread it
-	// over the processors too.
+	// Encoding the events (canonical JSON of every line) is per statement: spread it
+	// over the processors.
 	type encoded struct {
-		components, accountTotals string
-		lines                     [][]any
-		event                     provenance.LedgerEvent
+		components, accountTotals, instrumentTotals string
+		event                                       provenance.LedgerEvent
 	}
 	enc := make([]encoded, len(recs))
 	err := parallel(len(recs), func(i int) error {
 		rec := recs[i]
-		components, err := json.Marshal(rec.ComponentTotals)
-		if err != nil {
-			return err
+		perInstrument := map[string]int64{}
+		for _, l := range rec.Lines {
+			if l.InstrumentID != "" {
+				perInstrument[l.InstrumentID] += l.AmountMinor
+			}
 		}
-		accountTotals, err := json.Marshal(rec.AccountTotals)
-		if err != nil {
-			return err
-		}
-		e := encoded{components: string(components), accountTotals: string(accountTotals), lines: make([][]any, len(rec.Lines))}
-		for k, l := range rec.Lines {
-			allocs, err := json.Marshal(l.Allocations)
+		var e encoded
+		for _, f := range []struct {
+			dst *string
+			v   any
+		}{{&e.components, rec.ComponentTotals}, {&e.accountTotals, rec.AccountTotals}, {&e.instrumentTotals, perInstrument}} {
+			b, err := json.Marshal(f.v)
 			if err != nil {
 				return err
 			}
-			e.lines[k] = []any{rec.ID, l.LineNo, nullID(l.BookingID), nullID(l.InstrumentID), nullText(string(l.BookingKind)), l.BookingStart,
-				string(l.Component), string(l.Rule), l.From, l.To, l.Minutes, l.HourlyRateMinor, l.AmountMinor, l.Reason,
-				nullID(l.AdjustmentID), nullID(l.CorrectsStatementID), string(allocs)}
+			*f.dst = string(b)
 		}
 		action := provenance.ActionCreate
 		if !created[i] {
 			action = provenance.ActionCorrect
 		}
+		var err error
 		if e.event, err = provenance.NewLedgerEvent(actor, action, provenance.EntityStatement, rec.ID, now, rec); err != nil {
 			return err
 		}
@@ -419,40 +442,45 @@ func writeStatements(ctx context.Context, tx pgx.Tx, recs []scheduling.Statement
 	if err != nil {
 		return err
 	}
-	var inserts, lines [][]any
-	var upd struct {
-		ids, currencies, components, accountTotals []string
-		totals                                     []int64
+	events := make([]provenance.LedgerEvent, len(enc))
+	for i, e := range enc {
+		events[i] = e.event
 	}
-	events := make([]provenance.LedgerEvent, len(recs))
+	seqs, err := appendStatementEvents(ctx, tx, events)
+	if err != nil {
+		return err
+	}
+	var inserts [][]any
+	var upd struct {
+		ids, currencies, components, accountTotals, instrumentTotals []string
+		totals, seqs                                                 []int64
+	}
 	for i, rec := range recs {
-		e := enc[i]
+		e, seq := enc[i], seqs[rec.ID]
 		if created[i] {
 			inserts = append(inserts, []any{rec.ID, rec.ProjectID, rec.PeriodStart, rec.PeriodEnd, rec.Currency, "draft", now,
-				rec.TotalMinor, e.components, e.accountTotals})
-		} else {
-			upd.ids, upd.currencies, upd.totals = append(upd.ids, rec.ID), append(upd.currencies, rec.Currency), append(upd.totals, rec.TotalMinor)
-			upd.components, upd.accountTotals = append(upd.components, e.components), append(upd.accountTotals, e.accountTotals)
+				rec.TotalMinor, e.components, e.accountTotals, e.instrumentTotals, seq})
+			continue
 		}
-		lines = append(lines, e.lines...)
-		events[i] = e.event
+		upd.ids, upd.currencies, upd.totals = append(upd.ids, rec.ID), append(upd.currencies, rec.Currency), append(upd.totals, rec.TotalMinor)
+		upd.components, upd.accountTotals = append(upd.components, e.components), append(upd.accountTotals, e.accountTotals)
+		upd.instrumentTotals, upd.seqs = append(upd.instrumentTotals, e.instrumentTotals), append(upd.seqs, seq)
 	}
 	if len(inserts) > 0 {
 		if _, err := tx.CopyFrom(ctx, pgx.Identifier{"statements"}, []string{"id", "project_id", "period_start", "period_end",
-			"currency", "status", "computed_at", "total_minor", "component_totals", "account_totals"}, pgx.CopyFromRows(inserts)); err != nil {
+			"currency", "status", "computed_at", "total_minor", "component_totals", "account_totals", "instrument_totals", "event_seq"},
+			pgx.CopyFromRows(inserts)); err != nil {
 			return err
 		}
 	}
 	if len(upd.ids) > 0 {
-		if _, err := tx.Exec(ctx, `DELETE FROM statement_lines WHERE statement_id = ANY($1::uuid[])`, upd.ids); err != nil {
-			return err
-		}
 		const q = `
-UPDATE statements s SET computed_at = $6, currency = v.currency, total_minor = v.total,
-       component_totals = v.components::jsonb, account_totals = v.account_totals::jsonb
-FROM unnest($1::uuid[], $2::text[], $3::bigint[], $4::text[], $5::text[]) AS v(id, currency, total, components, account_totals)
+UPDATE statements s SET computed_at = $8, currency = v.currency, total_minor = v.total, component_totals = v.components::jsonb,
+       account_totals = v.account_totals::jsonb, instrument_totals = v.instrument_totals::jsonb, event_seq = v.seq
+FROM unnest($1::uuid[], $2::text[], $3::bigint[], $4::text[], $5::text[], $6::text[], $7::bigint[])
+     AS v(id, currency, total, components, account_totals, instrument_totals, seq)
 WHERE s.id = v.id`
-		tag, err := tx.Exec(ctx, q, upd.ids, upd.currencies, upd.totals, upd.components, upd.accountTotals, now)
+		tag, err := tx.Exec(ctx, q, upd.ids, upd.currencies, upd.totals, upd.components, upd.accountTotals, upd.instrumentTotals, upd.seqs, now)
 		if err != nil {
 			return err
 		}
@@ -460,22 +488,48 @@ WHERE s.id = v.id`
 			return errors.New("statements: a draft being recomputed vanished")
 		}
 	}
-	if len(lines) > 0 {
-		if _, err := tx.CopyFrom(ctx, pgx.Identifier{"statement_lines"}, []string{"statement_id", "line_no", "booking_id", "instrument_id",
-			"booking_kind", "booking_start", "component", "rule", "from_at", "to_at", "minutes", "hourly_rate_minor", "amount_minor",
-			"reason", "adjustment_id", "corrects_statement_id", "allocations"}, pgx.CopyFromRows(lines)); err != nil {
-			return err
-		}
+	return nil
+}
+
+// appendStatementEvents appends one ledger event per statement with one COPY and
+// returns each event's seq by statement id. COPY returns nothing, so the seqs are read
+// back as the statements' events this transaction inserted (xmin): the statements are
+// locked, and an event for one of them inserted by anyone else is not taken for ours.
+// Inside a savepoint the rows would carry the subtransaction's id and none would be
+// found, an error rather than a wrong seq.
+func appendStatementEvents(ctx context.Context, tx pgx.Tx, events []provenance.LedgerEvent) (map[string]int64, error) {
+	ids := make([]string, len(events))
+	for i, ev := range events {
+		ids[i] = ev.EntityID
 	}
-	if len(events) == 1 {
-		return appendEvent(ctx, tx, events[0])
-	}
-	_, err = tx.CopyFrom(ctx, pgx.Identifier{"ledger_events"}, []string{"actor", "at", "action", "entity_type", "entity_id", "leaf"},
+	if _, err := tx.CopyFrom(ctx, pgx.Identifier{"ledger_events"}, []string{"actor", "at", "action", "entity_type", "entity_id", "leaf"},
 		pgx.CopyFromSlice(len(events), func(i int) ([]any, error) {
 			ev := events[i]
 			return []any{ev.Actor, ev.At, ev.Action, ev.EntityType, ev.EntityID, ev.Leaf}, nil
-		}))
-	return err
+		})); err != nil {
+		return nil, err
+	}
+	const q = `
+SELECT entity_id, seq FROM ledger_events
+WHERE entity_type = 'statement' AND entity_id = ANY($1::text[]) AND xmin = pg_current_xact_id()::xid`
+	rows, err := tx.Query(ctx, q, ids)
+	if err != nil {
+		return nil, err
+	}
+	out := make(map[string]int64, len(events))
+	var id string
+	var seq int64
+	_, err = pgx.ForEachRow(rows, []any{&id, &seq}, func() error {
+		if _, twice := out[id]; twice {
+			return errors.New("statements: two ledger events for one statement in one transaction")
+		}
+		out[id] = seq
+		return nil
+	})
+	if err == nil && len(out) != len(events) {
+		err = errors.New("statements: the ledger events written were not found again")
+	}
+	return out, err
 }
 
 // parallel runs f(0) … f(n-1) on as many goroutines as there are processors and

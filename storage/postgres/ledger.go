@@ -20,11 +20,19 @@ var _ provenance.LedgerStore = (*DB)(nil)
 // yet: the sealer gives it one after it commits (see SealLedger), which is why
 // writers never wait for one another here.
 func appendEvent(ctx context.Context, tx pgx.Tx, ev provenance.LedgerEvent) error {
+	_, err := appendEventSeq(ctx, tx, ev)
+	return err
+}
+
+// appendEventSeq is appendEvent, returning the event's seq (for a row that names the
+// event holding its content).
+func appendEventSeq(ctx context.Context, tx pgx.Tx, ev provenance.LedgerEvent) (int64, error) {
 	const q = `
 INSERT INTO ledger_events (actor, at, action, entity_type, entity_id, leaf)
-VALUES ($1, $2, $3, $4, $5, $6)`
-	_, err := tx.Exec(ctx, q, ev.Actor, ev.At, ev.Action, ev.EntityType, ev.EntityID, ev.Leaf)
-	return err
+VALUES ($1, $2, $3, $4, $5, $6) RETURNING seq`
+	var seq int64
+	err := tx.QueryRow(ctx, q, ev.Actor, ev.At, ev.Action, ev.EntityType, ev.EntityID, ev.Leaf).Scan(&seq)
+	return seq, err
 }
 
 // appendChange builds the event for a change (state is the entity's new state) and
