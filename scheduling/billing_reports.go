@@ -96,8 +96,9 @@ func Recovery(costs, charged map[string]int64) []RecoveryLine {
 }
 
 // UtilizationBooking is a booking as the utilization report reads it.
+// The report needs no booking's identity, nor its usages': Usages may leave their ID
+// and BookingID empty.
 type UtilizationBooking struct {
-	ID          string
 	ProjectID   string
 	Kind        BookingKind
 	Start, End  time.Time
@@ -182,8 +183,14 @@ func Utilization(instrumentID string, from, to time.Time, loc *time.Location, op
 		switch {
 		case b.Status == StatusActive:
 			f.BookedMinutes = clip(b.Start, b.End)
-			for _, s := range mergeSpans(b.Usages, now) {
-				f.UsedMinutes += clip(s.Start, s.End)
+			if len(b.Usages) == 1 { // the usual case, without merging's allocations
+				if s := b.Usages[0].Span(now); s.Start.Before(s.End) {
+					f.UsedMinutes = clip(s.Start, s.End)
+				}
+			} else {
+				for _, s := range mergeSpans(b.Usages, now) {
+					f.UsedMinutes += clip(s.Start, s.End)
+				}
 			}
 			if b.NoShow && len(b.Usages) == 0 {
 				f.NoShowMinutes = f.BookedMinutes

@@ -7,6 +7,7 @@ import (
 
 	"github.com/google/uuid"
 	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgtype"
 
 	"beamledger"
 	"beamledger/accounts"
@@ -159,10 +160,12 @@ func (db *DB) utilizationInputs(ctx context.Context, instrumentID string, from, 
 // utilizationBookings reads the bookings overlapping [from, to) of one instrument (or
 // all when instrumentID is empty) into their instruments' inputs: one row per booking
 // and usage (NULL usage for a booking without), a flat join the planner can hash, with
-// binary timestamps instead of JSON.
+// binary timestamps and identifiers. A year of a facility is a million rows, so the
+// per-row work is kept small: identifiers stay 16-byte keys (an instrument's or
+// project's text is made once), and usages share one backing array.
 func utilizationBookings(ctx context.Context, q querier, instrumentID string, from, to time.Time, out map[string]*UtilizationInputs) error {
 	const cols = `
-SELECT b.instrument_id::text, b.id::text, coalesce(b.project_id::text, ''), b.kind, lower(b.during), upper(b.during), b.status,
+SELECT b.instrument_id, b.id, b.project_id, b.kind, lower(b.during), upper(b.during), b.status,
        b.cancelled_at, b.displaced_by IS NOT NULL, n.booking_id IS NOT NULL, u.started_at, u.ended_at
 FROM bookings b
 LEFT JOIN no_shows n ON n.booking_id = b.id
@@ -178,26 +181,81 @@ WHERE b.during && tstzrange($1, $2, '[)')`
 	if err != nil {
 		return err
 	}
-	at := map[string]int{} // booking id → index in its instrument's Bookings
-	var b scheduling.UtilizationBooking
-	var inst, kind, status string
-	var started, ended *time.Time
-	_, err = pgx.ForEachRow(rows, []any{&inst, &b.ID, &b.ProjectID, &kind, &b.Start, &b.End, &status, &b.CancelledAt,
+	instruments := make(map[[16]byte]*UtilizationInputs, len(out))
+	for id, in := range out {
+		key, err := uuid.Parse(id)
+		if err != nil {
+			return err
+		}
+		instruments[key] = in
+	}
+	projects := map[[16]byte]string{}
+	type ref struct {
+		in *UtilizationInputs
+		i  int
+	}
+	at := map[[16]byte]ref{} // booking → its place, for a booking's further usages
+	var (
+		b                 scheduling.UtilizationBooking
+		inst, id, project pgtype.UUID
+		kind, status      string
+		started, ended    pgtype.Timestamptz
+		usages            []scheduling.Usage // shared backing array
+		ends              []time.Time        // the same for usage ends
+		kinds             = map[string]scheduling.BookingKind{}
+		statuses          = map[string]scheduling.BookingStatus{}
+	)
+	_, err = pgx.ForEachRow(rows, []any{&inst, &id, &project, &kind, &b.Start, &b.End, &status, &b.CancelledAt,
 		&b.Displaced, &b.NoShow, &started, &ended}, func() error {
-		in, ok := out[inst]
+		in, ok := instruments[inst.Bytes]
 		if !ok {
 			return nil
 		}
-		i, seen := at[b.ID]
+		r, seen := at[id.Bytes]
 		if !seen {
-			b.Kind, b.Status, b.Usages = scheduling.BookingKind(kind), scheduling.BookingStatus(status), nil
-			i = len(in.Bookings)
-			at[b.ID] = i
+			b.ProjectID = ""
+			if project.Valid {
+				if b.ProjectID, ok = projects[project.Bytes]; !ok {
+					b.ProjectID = uuid.UUID(project.Bytes).String()
+					projects[project.Bytes] = b.ProjectID
+				}
+			}
+			if b.Kind, ok = kinds[kind]; !ok {
+				b.Kind = scheduling.BookingKind(kind)
+				kinds[kind] = b.Kind
+			}
+			if b.Status, ok = statuses[status]; !ok {
+				b.Status = scheduling.BookingStatus(status)
+				statuses[status] = b.Status
+			}
+			b.Usages = nil
+			r = ref{in, len(in.Bookings)}
+			at[id.Bytes] = r
 			in.Bookings = append(in.Bookings, b)
 		}
-		if started != nil {
-			in.Bookings[i].Usages = append(in.Bookings[i].Usages, scheduling.Usage{BookingID: b.ID, StartedAt: *started, EndedAt: ended})
+		if !started.Valid {
+			return nil
 		}
+		u := scheduling.Usage{StartedAt: started.Time}
+		if ended.Valid {
+			if len(ends) == cap(ends) {
+				ends = make([]time.Time, 0, 4096)
+			}
+			ends = append(ends, ended.Time)
+			u.EndedAt = &ends[len(ends)-1]
+		}
+		dst := &r.in.Bookings[r.i].Usages
+		if *dst == nil {
+			// The first usage of a booking takes one slot of the shared array (a
+			// second, rare, copies it out on append: the capacity is one).
+			if len(usages) == cap(usages) {
+				usages = make([]scheduling.Usage, 0, 4096)
+			}
+			usages = append(usages, u)
+			*dst = usages[len(usages)-1 : len(usages) : len(usages)]
+			return nil
+		}
+		*dst = append(*dst, u)
 		return nil
 	})
 	return err
