@@ -1,6 +1,7 @@
 package server
 
 import (
+	"bytes"
 	"context"
 	"net/http"
 	"testing"
@@ -126,7 +127,12 @@ func exerciseBilling(t *testing.T, _ *world) {
 	for _, f := range []string{"", "?format=csv", "?format=html"} {
 		w.expect(http.StatusOK, http.MethodGet, "/api/v1/statements/"+st.ID+f, researcher, nil, nil)
 	}
-	w.expect(http.StatusBadRequest, http.MethodGet, "/api/v1/statements/"+st.ID+"?format=pdf", researcher, nil, nil)
+	pdf := w.expect(http.StatusOK, http.MethodGet, "/api/v1/statements/"+st.ID+"?format=pdf", researcher, nil, nil)
+	if pdf.Header.Get("Content-Type") != "application/pdf" || !bytes.HasPrefix(pdf.Body, []byte("%PDF-")) {
+		t.Errorf("statement as PDF: %s, %.20q", pdf.Header.Get("Content-Type"), pdf.Body)
+	}
+	w.expect(http.StatusNotFound, http.MethodGet, "/api/v1/statements/"+st.ID+"?format=pdf", w.login(w.other.Email, testPassword).AccessToken, nil, nil)
+	w.expect(http.StatusBadRequest, http.MethodGet, "/api/v1/statements/"+st.ID+"?format=xml", researcher, nil, nil)
 	w.expect(http.StatusOK, http.MethodPost, "/api/v1/statements/"+st.ID+"/issue", manager, nil, nil)
 	w.expect(http.StatusConflict, http.MethodPost, "/api/v1/statements/"+st.ID+"/issue", manager, nil, nil)
 	w.expect(http.StatusConflict, http.MethodPost, own+"/statements", manager, map[string]string{"month": month}, nil)

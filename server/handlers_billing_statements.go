@@ -13,6 +13,7 @@ import (
 
 	"beamledger"
 	"beamledger/scheduling"
+	"beamledger/statementpdf"
 )
 
 // statementPeriod reads a month ("2026-03") as its bounds in the facility's zone.
@@ -83,8 +84,8 @@ func (s *Server) visibleStatement(c echo.Context) (scheduling.Statement, error) 
 }
 
 // handleStatementGet answers a statement as JSON, as CSV for finance systems
-// (format=csv, columns of scheduling.StatementCSVColumns) or as a printable page
-// (format=html).
+// (format=csv, columns of scheduling.StatementCSVColumns), as a printable page
+// (format=html) or as a PDF (format=pdf).
 func (s *Server) handleStatementGet(c echo.Context) error {
 	st, err := s.visibleStatement(c)
 	if err != nil {
@@ -103,8 +104,32 @@ func (s *Server) handleStatementGet(c echo.Context) error {
 		return c.Blob(http.StatusOK, "text/csv; charset=utf-8", buf.Bytes())
 	case "html":
 		return s.renderStatementHTML(c, st)
+	case "pdf":
+		return s.renderStatementPDF(c, st)
 	}
-	return beamledger.InvalidField("format", "must be one of json, csv, html")
+	return beamledger.InvalidField("format", "must be one of json, csv, html, pdf")
+}
+
+// renderStatementPDF answers the statement as a PDF for filing (statementpdf), with the
+// facility's name and the project's code and title beside the record.
+func (s *Server) renderStatementPDF(c echo.Context, st scheduling.Statement) error {
+	ctx := c.Request().Context()
+	rec := st.Record()
+	f, err := s.store.Facility(ctx)
+	if err != nil {
+		return err
+	}
+	p, err := s.visibleProject(ctx, rec.ProjectID)
+	if err != nil {
+		return err
+	}
+	var buf bytes.Buffer
+	if err := statementpdf.Write(&buf, rec, statementpdf.Meta{Facility: f.Name, ProjectCode: p.Code, ProjectTitle: p.Title,
+		Generated: s.now()}); err != nil {
+		return err
+	}
+	c.Response().Header().Set("Content-Disposition", fmt.Sprintf(`attachment; filename="statement-%s.pdf"`, rec.ID))
+	return c.Blob(http.StatusOK, "application/pdf", buf.Bytes())
 }
 
 func (s *Server) handleStatementIssue(c echo.Context) error {

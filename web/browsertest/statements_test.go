@@ -35,15 +35,15 @@ func TestIssueStatement(t *testing.T) {
 	if n := eval[int](t, ctx, "drafts left", `document.querySelectorAll('#st-list tr[data-status="draft"]').length`); n != 0 {
 		t.Fatalf("%d drafts left after issuing", n)
 	}
-	got := eval[string](t, ctx, "read the CSV and the printable page", `(async () => {
+	got := eval[string](t, ctx, "read the printable page, the CSV and the PDF", `(async () => {
 		const row = document.querySelector('#st-list tr[data-status="issued"]');
 		const links = row.querySelectorAll("a");
 		const out = [];
 		for (const a of links) { const r = await fetch(a.href); out.push(r.status + " " + r.headers.get("Content-Type").split(";")[0]); }
 		return out.join(", ");
 	})()`)
-	if got != "200 text/html, 200 text/csv" {
-		t.Fatalf("printable page and CSV: %s", got)
+	if got != "200 text/html, 200 text/csv, 200 application/pdf" {
+		t.Fatalf("printable page, CSV and PDF: %s", got)
 	}
 	screenshot(t, ctx, "statements-issued")
 

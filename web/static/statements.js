@@ -16,7 +16,8 @@
     tb.replaceChildren(...r.body.items.map((s) => {
       const actions = BL.el("td", { class: "actions" },
         BL.el("a", { href: "/api/v1/statements/" + s.id + "?format=html", target: "_blank", rel: "noopener", text: "Printable" }), " · ",
-        BL.el("a", { href: "/api/v1/statements/" + s.id + "?format=csv", download: "", text: "CSV" }), " · ");
+        BL.el("a", { href: "/api/v1/statements/" + s.id + "?format=csv", download: "", text: "CSV" }), " · ",
+        BL.el("a", { href: "/api/v1/statements/" + s.id + "?format=pdf", download: "", text: "PDF" }), " · ");
       const lines = BL.el("button", { type: "button", class: "quiet small", text: "Lines" });
       lines.addEventListener("click", () => detail(s.id));
       actions.append(lines);
