@@ -129,16 +129,17 @@ func NewLedgerEvent(actor, action, entityType, entityID string, at time.Time, st
 	}
 	// Only the state needs the general canonicalization; the members around it are
 	// strings this package writes as RFC 8785 does, in RFC 8785's member order.
-	canon, err := canonicalState(state)
+	e := LedgerEvent{Actor: actor, At: at, Action: action, EntityType: entityType, EntityID: entityID}
+	leaf := e.appendLeafPrefix(make([]byte, 0, 256))
+	start := len(leaf)
+	leaf, err := appendCanonicalState(leaf, state)
 	if err != nil {
 		return LedgerEvent{}, err
 	}
-	e := LedgerEvent{Actor: actor, At: at, Action: action, EntityType: entityType, EntityID: entityID}
-	leaf := e.appendLeafPrefix(make([]byte, 0, 160+len(canon)))
-	leaf = append(leaf, canon...)
+	end := len(leaf)
 	leaf = append(leaf, leafSuffix...)
 	e.Leaf = leaf
-	e.State = leaf[len(leaf)-len(leafSuffix)-len(canon) : len(leaf)-len(leafSuffix)]
+	e.State = leaf[start:end]
 	return e, nil
 }
 
@@ -146,16 +147,17 @@ func NewLedgerEvent(actor, action, entityType, entityID string, at time.Time, st
 // large enough that the general way (encoding/json, then canonicalization) would cost
 // more than producing them. The bytes must be exactly the general way's; a type that
 // implements it keeps a test saying so. An error means "not covered": the general way
-// is used instead.
+// is used instead, after dst[:len(dst)] (what was there before the call).
 type CanonicalState interface {
 	AppendCanonicalJSON(dst []byte) ([]byte, error)
 }
 
-// canonicalState is the RFC 8785 form of state's JSON.
-func canonicalState(state any) ([]byte, error) {
+// appendCanonicalState appends the RFC 8785 form of state's JSON to dst: written by
+// the state itself when it can, straight into dst, else the general way.
+func appendCanonicalState(dst []byte, state any) ([]byte, error) {
 	if c, ok := state.(CanonicalState); ok {
-		if canon, err := c.AppendCanonicalJSON(nil); err == nil {
-			return canon, nil
+		if out, err := c.AppendCanonicalJSON(dst); err == nil {
+			return out, nil
 		}
 	}
 	raw, err := json.Marshal(state)
@@ -166,7 +168,7 @@ func canonicalState(state any) ([]byte, error) {
 	if err != nil {
 		return nil, fmt.Errorf("ledger event canonical form: %w", err)
 	}
-	return canon, nil
+	return append(dst, canon...), nil
 }
 
 func (b leafBody) check() error {

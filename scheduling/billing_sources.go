@@ -101,14 +101,33 @@ func PriceStatement(src StatementSources) (StatementInput, error) {
 	in := StatementInput{ID: src.StatementID, ProjectID: src.ProjectID, Currency: src.Currency,
 		PeriodStart: src.PeriodStart, PeriodEnd: src.PeriodEnd, Adjustments: src.Adjustments,
 		MonthlyCapMinor: src.Facility.MonthlyCapMinor}
+	// Each instrument's policy and schedules, found once rather than per booking (a
+	// month of a busy facility is tens of thousands of bookings on a few instruments).
+	type instrumentTerms struct {
+		policy    BillingPolicy
+		schedules []RateSchedule
+	}
+	terms := map[string]*instrumentTerms{}
+	if len(src.Bookings) > 0 {
+		in.Charges = make([]BookingCharges, 0, len(src.Bookings))
+	}
 	for _, bb := range src.Bookings {
-		p := src.Facility.With(src.Overrides[bb.Booking.InstrumentID])
+		t := terms[bb.Booking.InstrumentID]
+		if t == nil {
+			t = &instrumentTerms{policy: src.Facility.With(src.Overrides[bb.Booking.InstrumentID])}
+			for _, rs := range src.Schedules {
+				if rs.InstrumentID == bb.Booking.InstrumentID {
+					t.schedules = append(t.schedules, rs)
+				}
+			}
+			terms[bb.Booking.InstrumentID] = t
+		}
 		funding := FundingFor(bb.Funding, src.ProjectFunding)
 		groups := classGroups(funding, src.AccountClasses, src.RateClass)
 		for _, g := range groups {
 			lines, err := ComputeCharges(ChargeInput{Booking: bb.Booking, RateClass: g.class, Usages: bb.Usages,
 				RebookedMinutes: bb.RebookedMinutes, NoShow: bb.NoShow, DisplacedByService: bb.DisplacedByService, Now: src.Now},
-				src.Schedules, p)
+				t.schedules, t.policy)
 			if err != nil {
 				return StatementInput{}, fmt.Errorf("booking %s: %w", bb.Booking.ID, err)
 			}

@@ -144,11 +144,22 @@ func AssembleStatement(in StatementInput) (Statement, error) {
 	slices.SortStableFunc(charges, func(x, y BookingCharges) int {
 		return cmp.Or(x.Start.Compare(y.Start), strings.Compare(x.BookingID, y.BookingID))
 	})
+	n := len(in.Adjustments) + 1
+	for _, c := range charges {
+		n += len(c.Lines)
+	}
+	a.rec.Lines = make([]StatementLine, 0, n)
+	// The lines' instants, three per charge line, share one array (its capacity is
+	// never passed, so the pointers stay put).
+	instants := make([]time.Time, 0, 3*(n-len(in.Adjustments)-1))
+	at := func(t time.Time) *time.Time {
+		instants = append(instants, t)
+		return &instants[len(instants)-1]
+	}
 	for _, c := range charges {
 		for _, l := range c.Lines {
-			start, from, to := c.Start, l.From, l.To
 			line := StatementLine{BookingID: c.BookingID, InstrumentID: c.InstrumentID, BookingKind: c.Kind,
-				BookingStart: &start, Component: l.Component, Rule: l.Rule, From: &from, To: &to,
+				BookingStart: at(c.Start), Component: l.Component, Rule: l.Rule, From: at(l.From), To: at(l.To),
 				Minutes: l.Minutes, HourlyRateMinor: l.HourlyRateMinor, AmountMinor: l.AmountMinor}
 			if len(c.Accounts) > 0 {
 				line.Reason = "the share of the split priced at the " + string(c.RateClass) + " rate"

@@ -189,7 +189,7 @@ WHERE b.during && tstzrange($1, $2, '[)')`
 		}
 		instruments[key] = in
 	}
-	projects := map[[16]byte]string{}
+	projects := names{}
 	type ref struct {
 		in *UtilizationInputs
 		i  int
@@ -199,9 +199,9 @@ WHERE b.during && tstzrange($1, $2, '[)')`
 		b                 scheduling.UtilizationBooking
 		inst, id, project pgtype.UUID
 		kind, status      string
-		started, ended    pgtype.Timestamptz
-		usages            []scheduling.Usage // shared backing array
-		ends              []time.Time        // the same for usage ends
+		started           pgtype.Timestamptz
+		ended             pgtype.Timestamptz
+		arena             usageArena
 		kinds             = map[string]scheduling.BookingKind{}
 		statuses          = map[string]scheduling.BookingStatus{}
 	)
@@ -213,13 +213,7 @@ WHERE b.during && tstzrange($1, $2, '[)')`
 		}
 		r, seen := at[id.Bytes]
 		if !seen {
-			b.ProjectID = ""
-			if project.Valid {
-				if b.ProjectID, ok = projects[project.Bytes]; !ok {
-					b.ProjectID = uuid.UUID(project.Bytes).String()
-					projects[project.Bytes] = b.ProjectID
-				}
-			}
+			b.ProjectID = projects.of(project)
 			if b.Kind, ok = kinds[kind]; !ok {
 				b.Kind = scheduling.BookingKind(kind)
 				kinds[kind] = b.Kind
@@ -233,29 +227,9 @@ WHERE b.during && tstzrange($1, $2, '[)')`
 			at[id.Bytes] = r
 			in.Bookings = append(in.Bookings, b)
 		}
-		if !started.Valid {
-			return nil
+		if started.Valid {
+			arena.add(&r.in.Bookings[r.i].Usages, "", started.Time, ended)
 		}
-		u := scheduling.Usage{StartedAt: started.Time}
-		if ended.Valid {
-			if len(ends) == cap(ends) {
-				ends = make([]time.Time, 0, 4096)
-			}
-			ends = append(ends, ended.Time)
-			u.EndedAt = &ends[len(ends)-1]
-		}
-		dst := &r.in.Bookings[r.i].Usages
-		if *dst == nil {
-			// The first usage of a booking takes one slot of the shared array (a
-			// second, rare, copies it out on append: the capacity is one).
-			if len(usages) == cap(usages) {
-				usages = make([]scheduling.Usage, 0, 4096)
-			}
-			usages = append(usages, u)
-			*dst = usages[len(usages)-1 : len(usages) : len(usages)]
-			return nil
-		}
-		*dst = append(*dst, u)
 		return nil
 	})
 	return err

@@ -13,6 +13,7 @@ import (
 
 	"github.com/google/uuid"
 	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgtype"
 
 	"beamledger"
 	"beamledger/accounts"
@@ -289,7 +290,7 @@ func billableBookingsAll(ctx context.Context, q querier, projectIDs []string, fr
 	// the planner can hash, with binary timestamps, in no particular order (sorting a
 	// month of rows in the database cost more than sorting each project's in Go).
 	const sql = `
-SELECT b.project_id::text, b.id::text, b.instrument_id::text, b.user_id::text, b.kind, lower(b.during), upper(b.during), b.status, b.cancelled_at,
+SELECT b.project_id, b.id, b.instrument_id, b.user_id, b.kind, lower(b.during), upper(b.during), b.status, b.cancelled_at,
        b.displaced_by IS NOT NULL, n.booking_id IS NOT NULL,
        CASE WHEN b.status = 'cancelled' THEN coalesce((
            SELECT sum(extract(epoch FROM upper(b.during * c.during) - lower(b.during * c.during)))::bigint / 60
@@ -310,26 +311,32 @@ WHERE b.project_id = ANY($1::uuid[]) AND b.kind <> 'service' AND lower(b.during)
 		i       int
 	}
 	out := map[string][]scheduling.BillableBooking{}
-	at := map[string]ref{} // booking id → its place in out
-	var bb scheduling.BillableBooking
-	var projectID, kind, status string
-	var rebooked int64
-	var started, ended *time.Time
+	at := map[[16]byte]ref{} // booking → its place in out
+	ids := names{}           // instruments, users and projects
+	var (
+		bb                            scheduling.BillableBooking
+		project, id, instrument, user pgtype.UUID
+		kind, status                  string
+		rebooked                      int64
+		started, ended                pgtype.Timestamptz
+		arena                         usageArena
+	)
 	b := &bb.Booking
-	_, err = pgx.ForEachRow(rows, []any{&projectID, &b.ID, &b.InstrumentID, &b.UserID, &kind, &b.Start, &b.End, &status, &b.CancelledAt,
+	_, err = pgx.ForEachRow(rows, []any{&project, &id, &instrument, &user, &kind, &b.Start, &b.End, &status, &b.CancelledAt,
 		&bb.DisplacedByService, &bb.NoShow, &rebooked, &started, &ended}, func() error {
-		r, seen := at[b.ID]
+		r, seen := at[id.Bytes]
 		if !seen {
-			b.ProjectID, b.Kind, b.Status, bb.RebookedMinutes = projectID, scheduling.BookingKind(kind), scheduling.BookingStatus(status), int(rebooked)
+			b.ID, b.ProjectID, b.InstrumentID, b.UserID = uuid.UUID(id.Bytes).String(), ids.of(project), ids.of(instrument), ids.of(user)
+			b.Kind, b.Status, bb.RebookedMinutes = scheduling.BookingKind(kind), scheduling.BookingStatus(status), int(rebooked)
 			b.Start, b.End = b.Start.UTC(), b.End.UTC()
 			bb.Usages, bb.Funding = nil, nil
-			r = ref{projectID, len(out[projectID])}
-			at[b.ID] = r
-			out[projectID] = append(out[projectID], bb)
+			r = ref{b.ProjectID, len(out[b.ProjectID])}
+			at[id.Bytes] = r
+			out[b.ProjectID] = append(out[b.ProjectID], bb)
 		}
-		if started != nil {
+		if started.Valid {
 			last := &out[r.project][r.i]
-			last.Usages = append(last.Usages, scheduling.Usage{BookingID: b.ID, StartedAt: *started, EndedAt: ended})
+			arena.add(&last.Usages, last.Booking.ID, started.Time, ended)
 		}
 		return nil
 	})
@@ -338,17 +345,17 @@ WHERE b.project_id = ANY($1::uuid[]) AND b.kind <> 'service' AND lower(b.during)
 	}
 	// A booking's own split, for the few that have one.
 	const splits = `
-SELECT f.booking_id::text, f.account_id::text, f.basis_points
+SELECT f.booking_id, f.account_id::text, f.basis_points
 FROM booking_funding f JOIN bookings b ON b.id = f.booking_id
 WHERE b.project_id = ANY($1::uuid[]) AND b.kind <> 'service' AND lower(b.during) >= $2 AND lower(b.during) < $3
 ORDER BY f.booking_id, f.position`
 	if rows, err = q.Query(ctx, splits, projectIDs, from, to); err != nil {
 		return nil, err
 	}
-	var bookingID string
+	var bookingID pgtype.UUID
 	var share scheduling.FundingShare
 	if _, err := pgx.ForEachRow(rows, []any{&bookingID, &share.AccountID, &share.BasisPoints}, func() error {
-		if r, ok := at[bookingID]; ok {
+		if r, ok := at[bookingID.Bytes]; ok {
 			f := &out[r.project][r.i].Funding
 			*f = append(*f, share)
 		}
