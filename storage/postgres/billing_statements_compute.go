@@ -170,9 +170,12 @@ WHERE project_id = ANY($1::uuid[]) AND period_start = $2 ORDER BY id FOR UPDATE`
 		}
 		todo, ids = append(todo, i), append(ids, x.id)
 	}
-	records := make([]scheduling.StatementRecord, len(todo))
-	created := make([]bool, len(todo))
-	err = parallel(len(todo), func(k int) error {
+	// Pricing, assembling and encoding are pure and per project: they run on as many
+	// goroutines as there are processors, and each statement's ledger event goes into
+	// the COPY as soon as it is encoded, so the database stores events while the
+	// rest are still being priced.
+	enc := make([]encodedStatement, len(todo))
+	err = parallelInto(ctx, tx, len(todo), func(k int) error {
 		i := todo[k]
 		src := srcs[projectIDs[i]]
 		src.StatementID = ids[k]
@@ -183,13 +186,13 @@ WHERE project_id = ANY($1::uuid[]) AND period_start = $2 ORDER BY id FOR UPDATE`
 		if drafts[i].st, err = scheduling.AssembleStatement(in); err != nil {
 			return err
 		}
-		records[k], created[k] = drafts[i].st.Record(), drafts[i].created
-		return nil
-	})
+		enc[k], err = encodeStatement(drafts[i].st.Record(), drafts[i].created, actor, now)
+		return err
+	}, func(k int) provenance.LedgerEvent { return enc[k].event })
 	if err != nil {
 		return nil, err
 	}
-	if err := writeStatements(ctx, tx, records, created, actor, now); err != nil {
+	if err := writeStatementRows(ctx, tx, enc, now); err != nil {
 		return nil, err
 	}
 	return drafts, nil
@@ -401,59 +404,116 @@ FROM adjustments WHERE project_id = ANY($1::uuid[]) AND at >= $2 AND at < $3 ORD
 	return out, err
 }
 
-// writeStatements stores drafts in tx: every statement's ledger event (create for a
-// new statement, correct for a recomputed one), whose state is the statement's record
-// with every line, then the statements' rows naming their events: new ones (created)
-// inserted, earlier drafts updated. The lines are kept in the events only.
-func writeStatements(ctx context.Context, tx pgx.Tx, recs []scheduling.StatementRecord, created []bool, actor string, now time.Time) error {
-	if len(recs) == 0 {
-		return nil
+// encodedStatement is a draft ready to store: its record, the row's JSON columns and
+// its ledger event (create for a new statement, correct for a recomputed one), whose
+// state is the record with every line; seq is the event's, once stored.
+type encodedStatement struct {
+	rec                                         scheduling.StatementRecord
+	created                                     bool
+	components, accountTotals, instrumentTotals string
+	event                                       provenance.LedgerEvent
+	seq                                         int64
+}
+
+func encodeStatement(rec scheduling.StatementRecord, created bool, actor string, now time.Time) (encodedStatement, error) {
+	e := encodedStatement{rec: rec, created: created}
+	perInstrument := map[string]int64{}
+	for _, l := range rec.Lines {
+		if l.InstrumentID != "" {
+			perInstrument[l.InstrumentID] += l.AmountMinor
+		}
 	}
-	// Encoding the events (canonical JSON of every line) is per statement: spread it
-	// over the processors.
-	type encoded struct {
-		components, accountTotals, instrumentTotals string
-		event                                       provenance.LedgerEvent
+	for _, f := range []struct {
+		dst *string
+		v   any
+	}{{&e.components, rec.ComponentTotals}, {&e.accountTotals, rec.AccountTotals}, {&e.instrumentTotals, perInstrument}} {
+		b, err := json.Marshal(f.v)
+		if err != nil {
+			return e, err
+		}
+		*f.dst = string(b)
 	}
-	enc := make([]encoded, len(recs))
-	err := parallel(len(recs), func(i int) error {
-		rec := recs[i]
-		perInstrument := map[string]int64{}
-		for _, l := range rec.Lines {
-			if l.InstrumentID != "" {
-				perInstrument[l.InstrumentID] += l.AmountMinor
+	action := provenance.ActionCreate
+	if !created {
+		action = provenance.ActionCorrect
+	}
+	var err error
+	e.event, err = provenance.NewLedgerEvent(actor, action, provenance.EntityStatement, rec.ID, now, rec)
+	return e, err
+}
+
+// parallelInto runs f(0) … f(n-1) on as many goroutines as there are processors and
+// appends to the ledger, in tx with one COPY, event(k) of every k as soon as f(k)
+// succeeds. When any f fails it returns the error of the lowest index that failed (so
+// that the error reported does not depend on scheduling), whatever the COPY did; the
+// caller's transaction is then to be rolled back. Otherwise every f succeeded and
+// every event is stored (statementEventSeqs finds their seqs).
+func parallelInto(ctx context.Context, tx pgx.Tx, n int, f func(k int) error, event func(k int) provenance.LedgerEvent) error {
+	errs := make([]error, n)
+	done := make(chan int, n) // buffered for all: workers never wait on the COPY
+	var next atomic.Int64
+	var wg sync.WaitGroup
+	for range min(runtime.GOMAXPROCS(0), n) {
+		wg.Go(func() {
+			for k := int(next.Add(1)) - 1; k < n; k = int(next.Add(1)) - 1 {
+				if errs[k] = f(k); errs[k] == nil {
+					done <- k
+				}
 			}
-		}
-		var e encoded
-		for _, f := range []struct {
-			dst *string
-			v   any
-		}{{&e.components, rec.ComponentTotals}, {&e.accountTotals, rec.AccountTotals}, {&e.instrumentTotals, perInstrument}} {
-			b, err := json.Marshal(f.v)
-			if err != nil {
-				return err
-			}
-			*f.dst = string(b)
-		}
-		action := provenance.ActionCreate
-		if !created[i] {
-			action = provenance.ActionCorrect
-		}
-		var err error
-		if e.event, err = provenance.NewLedgerEvent(actor, action, provenance.EntityStatement, rec.ID, now, rec); err != nil {
-			return err
-		}
-		enc[i] = e
-		return nil
-	})
-	if err != nil {
+		})
+	}
+	go func() { wg.Wait(); close(done) }()
+	src := &eventStream{done: done, event: event}
+	_, copyErr := tx.CopyFrom(ctx, pgx.Identifier{"ledger_events"}, []string{"actor", "at", "action", "entity_type", "entity_id", "leaf"}, src)
+	for range done { // the COPY may have stopped early: let the workers finish
+	}
+	if err := firstError(errs); err != nil {
 		return err
 	}
-	events := make([]provenance.LedgerEvent, len(enc))
-	for i, e := range enc {
-		events[i] = e.event
+	if copyErr != nil {
+		return copyErr
 	}
-	seqs, err := appendStatementEvents(ctx, tx, events)
+	if src.rows != n {
+		return errors.New("statements: not every ledger event was written")
+	}
+	return nil
+}
+
+// eventStream feeds a COPY with the events of finished statements as they arrive.
+type eventStream struct {
+	done  <-chan int
+	event func(k int) provenance.LedgerEvent
+	cur   provenance.LedgerEvent
+	rows  int
+}
+
+func (s *eventStream) Next() bool {
+	k, ok := <-s.done
+	if ok {
+		s.cur, s.rows = s.event(k), s.rows+1
+	}
+	return ok
+}
+
+func (s *eventStream) Values() ([]any, error) {
+	ev := s.cur
+	return []any{ev.Actor, ev.At, ev.Action, ev.EntityType, ev.EntityID, ev.Leaf}, nil
+}
+
+func (s *eventStream) Err() error { return nil }
+
+// writeStatementRows stores the rows of drafts whose events are in the ledger: the
+// events' seqs are read back, new statements inserted and earlier drafts updated, each
+// naming its event. The lines are kept in the events only.
+func writeStatementRows(ctx context.Context, tx pgx.Tx, enc []encodedStatement, now time.Time) error {
+	if len(enc) == 0 {
+		return nil
+	}
+	ids := make([]string, len(enc))
+	for i, e := range enc {
+		ids[i] = e.rec.ID
+	}
+	seqs, err := statementEventSeqs(ctx, tx, ids)
 	if err != nil {
 		return err
 	}
@@ -462,9 +522,9 @@ func writeStatements(ctx context.Context, tx pgx.Tx, recs []scheduling.Statement
 		ids, currencies, components, accountTotals, instrumentTotals []string
 		totals, seqs                                                 []int64
 	}
-	for i, rec := range recs {
-		e, seq := enc[i], seqs[rec.ID]
-		if created[i] {
+	for _, e := range enc {
+		rec, seq := e.rec, seqs[e.rec.ID]
+		if e.created {
 			inserts = append(inserts, []any{rec.ID, rec.ProjectID, rec.PeriodStart, rec.PeriodEnd, rec.Currency, "draft", now,
 				rec.TotalMinor, e.components, e.accountTotals, e.instrumentTotals, seq})
 			continue
@@ -498,24 +558,13 @@ WHERE s.id = v.id`
 	return nil
 }
 
-// appendStatementEvents appends one ledger event per statement with one COPY and
-// returns each event's seq by statement id. COPY returns nothing, so the seqs are read
-// back as the statements' events this transaction inserted (xmin): the statements are
-// locked, and an event for one of them inserted by anyone else is not taken for ours.
-// Inside a savepoint the rows would carry the subtransaction's id and none would be
-// found, an error rather than a wrong seq.
-func appendStatementEvents(ctx context.Context, tx pgx.Tx, events []provenance.LedgerEvent) (map[string]int64, error) {
-	ids := make([]string, len(events))
-	for i, ev := range events {
-		ids[i] = ev.EntityID
-	}
-	if _, err := tx.CopyFrom(ctx, pgx.Identifier{"ledger_events"}, []string{"actor", "at", "action", "entity_type", "entity_id", "leaf"},
-		pgx.CopyFromSlice(len(events), func(i int) ([]any, error) {
-			ev := events[i]
-			return []any{ev.Actor, ev.At, ev.Action, ev.EntityType, ev.EntityID, ev.Leaf}, nil
-		})); err != nil {
-		return nil, err
-	}
+// statementEventSeqs reads back the seq of the ledger event this transaction wrote
+// for each statement (COPY returns nothing). The events are found by xmin, the
+// transaction's own id: the statements are locked, and an event for one of them
+// inserted by anyone else is not taken for ours. Inside a savepoint the rows would
+// carry the subtransaction's id and none would be found, an error rather than a wrong
+// seq.
+func statementEventSeqs(ctx context.Context, tx pgx.Tx, ids []string) (map[string]int64, error) {
 	const q = `
 SELECT entity_id, seq FROM ledger_events
 WHERE entity_type = 'statement' AND entity_id = ANY($1::text[]) AND xmin = pg_current_xact_id()::xid`
@@ -523,7 +572,7 @@ WHERE entity_type = 'statement' AND entity_id = ANY($1::text[]) AND xmin = pg_cu
 	if err != nil {
 		return nil, err
 	}
-	out := make(map[string]int64, len(events))
+	out := make(map[string]int64, len(ids))
 	var id string
 	var seq int64
 	_, err = pgx.ForEachRow(rows, []any{&id, &seq}, func() error {
@@ -533,28 +582,10 @@ WHERE entity_type = 'statement' AND entity_id = ANY($1::text[]) AND xmin = pg_cu
 		out[id] = seq
 		return nil
 	})
-	if err == nil && len(out) != len(events) {
+	if err == nil && len(out) != len(ids) {
 		err = errors.New("statements: the ledger events written were not found again")
 	}
 	return out, err
-}
-
-// parallel runs f(0) … f(n-1) on as many goroutines as there are processors and
-// returns the error of the lowest index that failed, so that the error reported does
-// not depend on scheduling.
-func parallel(n int, f func(i int) error) error {
-	errs := make([]error, n)
-	var next atomic.Int64
-	var wg sync.WaitGroup
-	for range min(runtime.GOMAXPROCS(0), n) {
-		wg.Go(func() {
-			for i := int(next.Add(1)) - 1; i < n; i = int(next.Add(1)) - 1 {
-				errs[i] = f(i)
-			}
-		})
-	}
-	wg.Wait()
-	return firstError(errs)
 }
 
 func firstError(errs []error) error {
