@@ -14,6 +14,10 @@
 -- instrument, the sum of the lines naming it, for the recovery report.
 ALTER TABLE statements ADD COLUMN event_seq bigint REFERENCES ledger_events (seq);
 ALTER TABLE statements ADD COLUMN instrument_totals jsonb NOT NULL DEFAULT '{}'::jsonb;
+-- The SHA-256 of the event's state (the record's canonical JSON), so that recomputing
+-- a draft that comes out the same writes nothing. Unknown (NULL) for statements made
+-- before: their next recomputation writes an event, as it always did.
+ALTER TABLE statements ADD COLUMN state_sha256 bytea CHECK (state_sha256 IS NULL OR length(state_sha256) = 32);
 
 -- Every statement so far had a ledger event for each change, holding its record.
 -- Point each at its latest, and refuse to go on if that event does not hold what the
@@ -120,5 +124,6 @@ CREATE TRIGGER statement_lines_final BEFORE INSERT OR UPDATE OR DELETE ON statem
 CREATE TRIGGER statement_lines_no_truncate BEFORE TRUNCATE ON statement_lines EXECUTE FUNCTION refuse_change();
 ALTER TABLE statements DISABLE TRIGGER statements_final;
 ALTER TABLE statements DROP COLUMN instrument_totals;
+ALTER TABLE statements DROP COLUMN state_sha256;
 ALTER TABLE statements DROP COLUMN event_seq;
 ALTER TABLE statements ENABLE TRIGGER statements_final;

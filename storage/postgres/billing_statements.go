@@ -2,6 +2,7 @@ package postgres
 
 import (
 	"context"
+	"crypto/sha256"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -128,8 +129,9 @@ func (db *DB) IssueStatement(ctx context.Context, id, actor string, now time.Tim
 		if err != nil {
 			return err
 		}
-		const q = `UPDATE statements SET status = 'issued', issued_at = $2, issued_by = $3, event_seq = $4 WHERE id = $1`
-		_, err = tx.Exec(ctx, q, id, out.Record().IssuedAt, actor, seq)
+		digest := sha256.Sum256(ev.State)
+		const q = `UPDATE statements SET status = 'issued', issued_at = $2, issued_by = $3, event_seq = $4, state_sha256 = $5 WHERE id = $1`
+		_, err = tx.Exec(ctx, q, id, out.Record().IssuedAt, actor, seq, digest[:])
 		return err
 	})
 	return out, mapError(err, "statement")

@@ -1,8 +1,10 @@
 package postgres
 
 import (
+	"bytes"
 	"cmp"
 	"context"
+	"crypto/sha256"
 	"encoding/json"
 	"errors"
 	"runtime"
@@ -129,17 +131,18 @@ func computeDrafts(ctx context.Context, tx pgx.Tx, projectIDs []string, from, to
 	type existing struct {
 		id     string
 		issued bool
+		digest []byte // of the draft's state as stored; nil when unknown
 	}
 	found := map[string]existing{}
 	rows, err := tx.Query(ctx, `
-SELECT project_id::text, id::text, status = 'issued' FROM statements
+SELECT project_id::text, id::text, status = 'issued', state_sha256 FROM statements
 WHERE project_id = ANY($1::uuid[]) AND period_start = $2 ORDER BY id FOR UPDATE`, projectIDs, from)
 	if err != nil {
 		return nil, err
 	}
 	var pid string
 	var e existing
-	if _, err := pgx.ForEachRow(rows, []any{&pid, &e.id, &e.issued}, func() error { found[pid] = e; return nil }); err != nil {
+	if _, err := pgx.ForEachRow(rows, []any{&pid, &e.id, &e.issued, &e.digest}, func() error { found[pid] = e; return nil }); err != nil {
 		return nil, err
 	}
 
@@ -173,21 +176,25 @@ WHERE project_id = ANY($1::uuid[]) AND period_start = $2 ORDER BY id FOR UPDATE`
 	// Pricing, assembling and encoding are pure and per project: they run on as many
 	// goroutines as there are processors, and each statement's ledger event goes into
 	// the COPY as soon as it is encoded, so the database stores events while the
-	// rest are still being priced.
+	// rest are still being priced. A recomputed draft that comes out exactly as stored
+	// (the same canonical state) writes nothing: no event, no row change.
 	enc := make([]encodedStatement, len(todo))
-	err = parallelInto(ctx, tx, len(todo), func(k int) error {
+	err = parallelInto(ctx, tx, len(todo), func(k int) (bool, error) {
 		i := todo[k]
 		src := srcs[projectIDs[i]]
 		src.StatementID = ids[k]
 		in, err := scheduling.PriceStatement(src)
 		if err != nil {
-			return err
+			return false, err
 		}
 		if drafts[i].st, err = scheduling.AssembleStatement(in); err != nil {
-			return err
+			return false, err
 		}
-		enc[k], err = encodeStatement(drafts[i].st.Record(), drafts[i].created, actor, now)
-		return err
+		if enc[k], err = encodeStatement(drafts[i].st.Record(), drafts[i].created, actor, now); err != nil {
+			return false, err
+		}
+		enc[k].unchanged = !drafts[i].created && bytes.Equal(found[projectIDs[i]].digest, enc[k].digest[:])
+		return !enc[k].unchanged, nil
 	}, func(k int) provenance.LedgerEvent { return enc[k].event })
 	if err != nil {
 		return nil, err
@@ -412,7 +419,8 @@ type encodedStatement struct {
 	created                                     bool
 	components, accountTotals, instrumentTotals string
 	event                                       provenance.LedgerEvent
-	seq                                         int64
+	digest                                      [sha256.Size]byte // of event.State
+	unchanged                                   bool              // a draft recomputed as stored: nothing to write
 }
 
 func encodeStatement(rec scheduling.StatementRecord, created bool, actor string, now time.Time) (encodedStatement, error) {
@@ -438,25 +446,30 @@ func encodeStatement(rec scheduling.StatementRecord, created bool, actor string,
 		action = provenance.ActionCorrect
 	}
 	var err error
-	e.event, err = provenance.NewLedgerEvent(actor, action, provenance.EntityStatement, rec.ID, now, rec)
-	return e, err
+	if e.event, err = provenance.NewLedgerEvent(actor, action, provenance.EntityStatement, rec.ID, now, rec); err != nil {
+		return e, err
+	}
+	e.digest = sha256.Sum256(e.event.State)
+	return e, nil
 }
 
 // parallelInto runs f(0) … f(n-1) on as many goroutines as there are processors and
 // appends to the ledger, in tx with one COPY, event(k) of every k as soon as f(k)
-// succeeds. When any f fails it returns the error of the lowest index that failed (so
+// succeeds asking for it. When any f fails it returns the error of the lowest index that failed (so
 // that the error reported does not depend on scheduling), whatever the COPY did; the
 // caller's transaction is then to be rolled back. Otherwise every f succeeded and
 // every event is stored (statementEventSeqs finds their seqs).
-func parallelInto(ctx context.Context, tx pgx.Tx, n int, f func(k int) error, event func(k int) provenance.LedgerEvent) error {
+func parallelInto(ctx context.Context, tx pgx.Tx, n int, f func(k int) (bool, error), event func(k int) provenance.LedgerEvent) error {
 	errs := make([]error, n)
 	done := make(chan int, n) // buffered for all: workers never wait on the COPY
-	var next atomic.Int64
+	var next, sent atomic.Int64
 	var wg sync.WaitGroup
 	for range min(runtime.GOMAXPROCS(0), n) {
 		wg.Go(func() {
 			for k := int(next.Add(1)) - 1; k < n; k = int(next.Add(1)) - 1 {
-				if errs[k] = f(k); errs[k] == nil {
+				var send bool
+				if send, errs[k] = f(k); errs[k] == nil && send {
+					sent.Add(1)
 					done <- k
 				}
 			}
@@ -473,7 +486,7 @@ func parallelInto(ctx context.Context, tx pgx.Tx, n int, f func(k int) error, ev
 	if copyErr != nil {
 		return copyErr
 	}
-	if src.rows != n {
+	if int64(src.rows) != sent.Load() {
 		return errors.New("statements: not every ledger event was written")
 	}
 	return nil
@@ -504,14 +517,17 @@ func (s *eventStream) Err() error { return nil }
 
 // writeStatementRows stores the rows of drafts whose events are in the ledger: the
 // events' seqs are read back, new statements inserted and earlier drafts updated, each
-// naming its event. The lines are kept in the events only.
+// naming its event and the digest of its state. The lines are kept in the events
+// only. Drafts recomputed unchanged are left as they are.
 func writeStatementRows(ctx context.Context, tx pgx.Tx, enc []encodedStatement, now time.Time) error {
-	if len(enc) == 0 {
-		return nil
+	var ids []string
+	for _, e := range enc {
+		if !e.unchanged {
+			ids = append(ids, e.rec.ID)
+		}
 	}
-	ids := make([]string, len(enc))
-	for i, e := range enc {
-		ids[i] = e.rec.ID
+	if len(ids) == 0 {
+		return nil
 	}
 	seqs, err := statementEventSeqs(ctx, tx, ids)
 	if err != nil {
@@ -521,33 +537,40 @@ func writeStatementRows(ctx context.Context, tx pgx.Tx, enc []encodedStatement, 
 	var upd struct {
 		ids, currencies, components, accountTotals, instrumentTotals []string
 		totals, seqs                                                 []int64
+		digests                                                      [][]byte
 	}
 	for _, e := range enc {
 		rec, seq := e.rec, seqs[e.rec.ID]
-		if e.created {
+		switch {
+		case e.unchanged:
+			continue
+		case e.created:
 			inserts = append(inserts, []any{rec.ID, rec.ProjectID, rec.PeriodStart, rec.PeriodEnd, rec.Currency, "draft", now,
-				rec.TotalMinor, e.components, e.accountTotals, e.instrumentTotals, seq})
+				rec.TotalMinor, e.components, e.accountTotals, e.instrumentTotals, seq, e.digest[:]})
 			continue
 		}
 		upd.ids, upd.currencies, upd.totals = append(upd.ids, rec.ID), append(upd.currencies, rec.Currency), append(upd.totals, rec.TotalMinor)
 		upd.components, upd.accountTotals = append(upd.components, e.components), append(upd.accountTotals, e.accountTotals)
 		upd.instrumentTotals, upd.seqs = append(upd.instrumentTotals, e.instrumentTotals), append(upd.seqs, seq)
+		upd.digests = append(upd.digests, e.digest[:])
 	}
 	if len(inserts) > 0 {
 		if _, err := tx.CopyFrom(ctx, pgx.Identifier{"statements"}, []string{"id", "project_id", "period_start", "period_end",
-			"currency", "status", "computed_at", "total_minor", "component_totals", "account_totals", "instrument_totals", "event_seq"},
-			pgx.CopyFromRows(inserts)); err != nil {
+			"currency", "status", "computed_at", "total_minor", "component_totals", "account_totals", "instrument_totals", "event_seq",
+			"state_sha256"}, pgx.CopyFromRows(inserts)); err != nil {
 			return err
 		}
 	}
 	if len(upd.ids) > 0 {
 		const q = `
-UPDATE statements s SET computed_at = $8, currency = v.currency, total_minor = v.total, component_totals = v.components::jsonb,
-       account_totals = v.account_totals::jsonb, instrument_totals = v.instrument_totals::jsonb, event_seq = v.seq
-FROM unnest($1::uuid[], $2::text[], $3::bigint[], $4::text[], $5::text[], $6::text[], $7::bigint[])
-     AS v(id, currency, total, components, account_totals, instrument_totals, seq)
+UPDATE statements s SET computed_at = $9, currency = v.currency, total_minor = v.total, component_totals = v.components::jsonb,
+       account_totals = v.account_totals::jsonb, instrument_totals = v.instrument_totals::jsonb, event_seq = v.seq,
+       state_sha256 = v.digest
+FROM unnest($1::uuid[], $2::text[], $3::bigint[], $4::text[], $5::text[], $6::text[], $7::bigint[], $8::bytea[])
+     AS v(id, currency, total, components, account_totals, instrument_totals, seq, digest)
 WHERE s.id = v.id`
-		tag, err := tx.Exec(ctx, q, upd.ids, upd.currencies, upd.totals, upd.components, upd.accountTotals, upd.instrumentTotals, upd.seqs, now)
+		tag, err := tx.Exec(ctx, q, upd.ids, upd.currencies, upd.totals, upd.components, upd.accountTotals, upd.instrumentTotals,
+			upd.seqs, upd.digests, now)
 		if err != nil {
 			return err
 		}

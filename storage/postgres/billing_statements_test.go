@@ -3,6 +3,7 @@ package postgres_test
 import (
 	"context"
 	"encoding/json"
+	"reflect"
 	"testing"
 	"time"
 
@@ -113,6 +114,30 @@ func TestComputeStatementsForManyProjects(t *testing.T) {
 		if err := json.Unmarshal(evs[len(evs)-1].State, &state); err != nil || state.TotalMinor != c.st.Record().TotalMinor ||
 			len(state.Lines) != len(c.st.Record().Lines) {
 			t.Errorf("last event of %s holds total %d with %d lines (%v)", c.st.Record().ID, state.TotalMinor, len(state.Lines), err)
+		}
+	}
+
+	// Recomputing drafts that come out the same writes nothing: no ledger event, and
+	// the statements read as before.
+	countEvents := func() (n int) {
+		t.Helper()
+		if err := conn.QueryRow(ctx, `SELECT count(*) FROM ledger_events`).Scan(&n); err != nil {
+			t.Fatal(err)
+		}
+		return n
+	}
+	quiet := countEvents()
+	again, err := db.ComputeStatements(ctx, []string{fresh, redo}, from, to, mgr.ID, to.Add(90*time.Minute))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if n := countEvents(); n != quiet {
+		t.Errorf("recomputing unchanged drafts wrote %d ledger events", n-quiet)
+	}
+	for i, st := range again {
+		stored, err := db.Statement(ctx, st.Record().ID)
+		if err != nil || !reflect.DeepEqual(stored.Record(), sts[i].Record()) || !reflect.DeepEqual(st.Record(), sts[i].Record()) {
+			t.Errorf("unchanged recompute of %s: stored %+v (%v)", sts[i].Record().ID, stored.Record(), err)
 		}
 	}
 
