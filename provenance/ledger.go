@@ -3,6 +3,7 @@ package provenance
 import (
 	"bytes"
 	"context"
+	"crypto/sha256"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -150,6 +151,17 @@ func NewLedgerEvent(actor, action, entityType, entityID string, at time.Time, st
 // is used instead, after dst[:len(dst)] (what was there before the call).
 type CanonicalState interface {
 	AppendCanonicalJSON(dst []byte) ([]byte, error)
+}
+
+// StateDigest is the SHA-256 of state's RFC 8785 canonical JSON: the digest of the
+// state an event for it holds, so that a copy of a record (a printed statement) can be
+// matched to its ledger event without the ledger at hand.
+func StateDigest(state any) ([sha256.Size]byte, error) {
+	canon, err := appendCanonicalState(nil, state)
+	if err != nil {
+		return [sha256.Size]byte{}, err
+	}
+	return sha256.Sum256(canon), nil
 }
 
 // appendCanonicalState appends the RFC 8785 form of state's JSON to dst: written by

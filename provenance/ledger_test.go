@@ -3,6 +3,7 @@ package provenance_test
 import (
 	"bytes"
 	"crypto/ed25519"
+	"crypto/sha256"
 	"encoding/base64"
 	"encoding/hex"
 	"encoding/json"
@@ -378,5 +379,26 @@ func TestCheckpointFormat(t *testing.T) {
 	}
 	if !bytes.HasPrefix([]byte(cp.Note), []byte(provenance.CheckpointBody("ledger.test.example", 42, root))) {
 		t.Error("CheckpointBody differs from the signed text")
+	}
+}
+
+// TestStateDigest checks that a state's digest is the SHA-256 of the state an event
+// for it holds, by its own writer and by the general way.
+func TestStateDigest(t *testing.T) {
+	at := time.Date(2031, 4, 1, 6, 0, 0, 0, time.UTC)
+	for name, state := range map[string]any{
+		"record":      scheduling.StatementRecord{ID: "st-1", Currency: "EUR", PeriodStart: at, PeriodEnd: at, TotalMinor: 5},
+		"record, big": scheduling.StatementRecord{ID: "st-1", Currency: "EUR", PeriodStart: at, PeriodEnd: at, TotalMinor: 1<<53 + 1},
+		"map":         map[string]any{"b": 1, "a": "x"},
+	} {
+		ev, err := provenance.NewLedgerEvent("m-1", provenance.ActionCreate, provenance.EntityStatement, "st-1", at, state)
+		if err != nil {
+			t.Fatal(err)
+		}
+		got, err := provenance.StateDigest(state)
+		// [computed] crypto/sha256 over the event's state bytes.
+		if want := sha256.Sum256(ev.State); err != nil || got != want {
+			t.Errorf("%s: digest %x, want %x (%v)", name, got, want, err)
+		}
 	}
 }

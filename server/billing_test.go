@@ -2,13 +2,18 @@ package server
 
 import (
 	"bytes"
+	"crypto/sha256"
 	"encoding/csv"
+	"encoding/hex"
+	"encoding/json"
 	"net/http"
 	"slices"
 	"strconv"
 	"strings"
 	"testing"
 	"time"
+
+	"github.com/gowebpki/jcs"
 
 	"beamledger/accounts"
 	"beamledger/scheduling"
@@ -178,6 +183,19 @@ func TestStatementReferenceMonthThroughAPI(t *testing.T) {
 	r := w.expect(http.StatusOK, http.MethodGet, "/api/v1/statements/"+rec.ID+"?format=html", w.tokens[accounts.RoleResearcher], nil, nil)
 	if !bytes.Contains(r.Body, []byte("1550.00")) && !bytes.Contains(r.Body, []byte("1,550.00")) && !bytes.Contains(r.Body, []byte("1 550.00")) {
 		t.Errorf("statement page shows no total of 1550.00: %.300s", r.Body)
+	}
+	// The page names the SHA-256 of the state the issue event holds: the issued
+	// record's canonical JSON, computed here by encoding/json and github.com/gowebpki/jcs.
+	raw, err := json.Marshal(issued)
+	if err != nil {
+		t.Fatal(err)
+	}
+	canon, err := jcs.Transform(raw)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if sum := sha256.Sum256(canon); !bytes.Contains(r.Body, []byte(hex.EncodeToString(sum[:]))) {
+		t.Errorf("statement page does not show the state digest %x", sum)
 	}
 	w.expect(http.StatusNotFound, http.MethodGet, "/api/v1/statements/"+rec.ID, w.login(w.other.Email, testPassword).AccessToken, nil, nil)
 

@@ -3,6 +3,7 @@ package server
 import (
 	"bytes"
 	"encoding/csv"
+	"encoding/hex"
 	"fmt"
 	"html/template"
 	"net/http"
@@ -12,6 +13,7 @@ import (
 	"github.com/labstack/echo/v4"
 
 	"beamledger"
+	"beamledger/provenance"
 	"beamledger/scheduling"
 	"beamledger/statementpdf"
 )
@@ -326,6 +328,7 @@ td.n,th.n{text-align:right;font-variant-numeric:tabular-nums}
 </style></head><body>
 <h1>Statement of charges</h1>
 <p>Project {{.ProjectID}} · period {{date .PeriodStart}} to {{date .PeriodEnd}} (end exclusive) · {{.Status}}{{if .IssuedAt}} on {{instant .IssuedAt}}{{end}} · amounts in {{.Currency}}</p>
+<p>Statement {{.ID}} · ledger state SHA-256 <code class="digest">{{.Digest}}</code></p>
 <table>
 <thead><tr><th>#</th><th>Booking</th><th>Component</th><th>Rule</th><th>From</th><th>To</th><th class="n">Minutes</th><th class="n">Rate/h</th><th class="n">Amount</th><th>Accounts</th></tr></thead>
 <tbody>
@@ -340,8 +343,17 @@ td.n,th.n{text-align:right;font-variant-numeric:tabular-nums}
 `))
 
 func (s *Server) renderStatementHTML(c echo.Context, st scheduling.Statement) error {
+	rec := st.Record()
+	digest, err := provenance.StateDigest(rec)
+	if err != nil {
+		return err
+	}
+	page := struct {
+		scheduling.StatementRecord
+		Digest string // of the state its ledger event holds
+	}{rec, hex.EncodeToString(digest[:])}
 	var buf bytes.Buffer
-	if err := statementPage.Execute(&buf, st.Record()); err != nil {
+	if err := statementPage.Execute(&buf, page); err != nil {
 		return err
 	}
 	return c.HTMLBlob(http.StatusOK, buf.Bytes())

@@ -1,11 +1,14 @@
 // Package statementpdf writes a statement of charges as a PDF for filing and mail:
 // the same lines, totals and accounts as the printable page and the CSV, on A4
-// landscape pages with the statement's identity on every page. It wraps
+// landscape pages with the statement's identity on every page, including the SHA-256
+// of its state as its ledger event holds it, so that a paper copy can be matched to
+// the ledger. It wraps
 // github.com/signintech/gopdf and embeds the Go fonts (golang.org/x/image/font/gofont,
 // BSD licence), so the file shows the same wherever it is opened.
 package statementpdf
 
 import (
+	"encoding/hex"
 	"fmt"
 	"io"
 	"strconv"
@@ -16,6 +19,7 @@ import (
 	"golang.org/x/image/font/gofont/gobold"
 	"golang.org/x/image/font/gofont/goregular"
 
+	"beamledger/provenance"
 	"beamledger/scheduling"
 )
 
@@ -87,7 +91,11 @@ func Write(w io.Writer, rec scheduling.StatementRecord, meta Meta) error {
 	if err := pdf.AddTTFFontData("bold", gobold.TTF); err != nil {
 		return err
 	}
-	p := printer{pdf: pdf, rec: rec, meta: meta, pages: Pages(rec)}
+	digest, err := provenance.StateDigest(rec)
+	if err != nil {
+		return err
+	}
+	p := printer{pdf: pdf, rec: rec, meta: meta, pages: Pages(rec), digest: hex.EncodeToString(digest[:])}
 	accountNo := map[string]int{}
 	for i, a := range rec.AccountTotals {
 		accountNo[a.AccountID] = i + 1
@@ -129,7 +137,7 @@ func Write(w io.Writer, rec scheduling.StatementRecord, meta Meta) error {
 	if p.err != nil {
 		return p.err
 	}
-	_, err := pdf.WriteTo(w)
+	_, err = pdf.WriteTo(w)
 	return err
 }
 
@@ -142,6 +150,9 @@ type printer struct {
 	pages int
 	y     float64
 	err   error
+	// digest is the SHA-256 of the record's canonical JSON, which is the state of the
+	// ledger event holding this statement as it stands.
+	digest string
 }
 
 // newPage starts a page with the statement's identity, the column headings and the
@@ -158,7 +169,7 @@ func (p *printer) newPage() {
 	p.text("regular", 9, margin, headTop+18, fmt.Sprintf("%s · project %s %s · period %s to %s (end exclusive) · %s · amounts in %s",
 		p.meta.Facility, p.meta.ProjectCode, p.meta.ProjectTitle, rec.PeriodStart.UTC().Format(time.DateOnly),
 		rec.PeriodEnd.UTC().Format(time.DateOnly), status, rec.Currency))
-	p.text("regular", 9, margin, headTop+31, "Statement "+rec.ID)
+	p.text("regular", 9, margin, headTop+31, "Statement "+rec.ID+" · ledger state SHA-256 "+p.digest)
 	p.y = tableTop
 	heads := make([]string, len(columns))
 	for i, c := range columns {

@@ -1,6 +1,7 @@
 package postgres_test
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"reflect"
@@ -138,6 +139,16 @@ func TestComputeStatementsForManyProjects(t *testing.T) {
 		stored, err := db.Statement(ctx, st.Record().ID)
 		if err != nil || !reflect.DeepEqual(stored.Record(), sts[i].Record()) || !reflect.DeepEqual(st.Record(), sts[i].Record()) {
 			t.Errorf("unchanged recompute of %s: stored %+v (%v)", sts[i].Record().ID, stored.Record(), err)
+		}
+		// The record read back encodes to the state its event holds, whose digest the
+		// row keeps: a printed copy's digest matches the ledger's.
+		digest, err := provenance.StateDigest(stored.Record())
+		var kept []byte
+		if err := conn.QueryRow(ctx, `SELECT state_sha256 FROM statements WHERE id = $1`, st.Record().ID).Scan(&kept); err != nil {
+			t.Fatal(err)
+		}
+		if err != nil || !bytes.Equal(kept, digest[:]) {
+			t.Errorf("statement %s: state digest %x read back, %x kept (%v)", st.Record().ID, digest, kept, err)
 		}
 	}
 
