@@ -3,6 +3,7 @@ package postgres
 import (
 	"context"
 	"encoding/json"
+	"fmt"
 	"time"
 
 	"github.com/google/uuid"
@@ -164,19 +165,24 @@ func (db *DB) utilizationInputs(ctx context.Context, instrumentID string, from, 
 // per-row work is kept small: identifiers stay 16-byte keys (an instrument's or
 // project's text is made once), and usages share one backing array.
 func utilizationBookings(ctx context.Context, q querier, instrumentID string, from, to time.Time, out map[string]*UtilizationInputs) error {
+	// Kind and status travel as their positions in scheduling's lists (1-based), so
+	// that no row allocates their text.
 	const cols = `
-SELECT b.instrument_id, b.id, b.project_id, b.kind, lower(b.during), upper(b.during), b.status,
-       b.cancelled_at, b.displaced_by IS NOT NULL, n.booking_id IS NOT NULL, u.started_at, u.ended_at
+SELECT b.instrument_id, b.id, b.project_id, array_position($3::text[], b.kind), lower(b.during), upper(b.during),
+       array_position($4::text[], b.status), b.cancelled_at, b.displaced_by IS NOT NULL, n.booking_id IS NOT NULL,
+       u.started_at, u.ended_at
 FROM bookings b
 LEFT JOIN no_shows n ON n.booking_id = b.id
 LEFT JOIN usages u ON u.booking_id = b.id
 WHERE b.during && tstzrange($1, $2, '[)')`
 	var rows pgx.Rows
 	var err error
+	kinds := scheduling.BookingKinds
+	statuses := []scheduling.BookingStatus{scheduling.StatusActive, scheduling.StatusCancelled}
 	if instrumentID == "" {
-		rows, err = q.Query(ctx, cols, from, to)
+		rows, err = q.Query(ctx, cols, from, to, kinds, statuses)
 	} else {
-		rows, err = q.Query(ctx, cols+` AND b.instrument_id = $3`, from, to, instrumentID)
+		rows, err = q.Query(ctx, cols+` AND b.instrument_id = $5`, from, to, kinds, statuses, instrumentID)
 	}
 	if err != nil {
 		return err
@@ -198,12 +204,10 @@ WHERE b.during && tstzrange($1, $2, '[)')`
 	var (
 		b                 scheduling.UtilizationBooking
 		inst, id, project pgtype.UUID
-		kind, status      string
+		kind, status      pgtype.Int4
 		started           pgtype.Timestamptz
 		ended             pgtype.Timestamptz
 		arena             usageArena
-		kinds             = map[string]scheduling.BookingKind{}
-		statuses          = map[string]scheduling.BookingStatus{}
 	)
 	_, err = pgx.ForEachRow(rows, []any{&inst, &id, &project, &kind, &b.Start, &b.End, &status, &b.CancelledAt,
 		&b.Displaced, &b.NoShow, &started, &ended}, func() error {
@@ -213,15 +217,10 @@ WHERE b.during && tstzrange($1, $2, '[)')`
 		}
 		r, seen := at[id.Bytes]
 		if !seen {
-			b.ProjectID = projects.of(project)
-			if b.Kind, ok = kinds[kind]; !ok {
-				b.Kind = scheduling.BookingKind(kind)
-				kinds[kind] = b.Kind
+			if !kind.Valid || !status.Valid {
+				return fmt.Errorf("booking %s: a kind or status beamledger does not know", uuid.UUID(id.Bytes))
 			}
-			if b.Status, ok = statuses[status]; !ok {
-				b.Status = scheduling.BookingStatus(status)
-				statuses[status] = b.Status
-			}
+			b.ProjectID, b.Kind, b.Status = projects.of(project), kinds[kind.Int32-1], statuses[status.Int32-1]
 			b.Usages = nil
 			r = ref{in, len(in.Bookings)}
 			at[id.Bytes] = r
