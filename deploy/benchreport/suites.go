@@ -93,7 +93,7 @@ var suites = []suite{
 		Name: "cost-recovery", Packages: []string{"./storage/postgres/"}, Bench: "^BenchmarkCostRecovery$", Benchtime: "3x", Count: 1,
 		About: "One generated year: 40 instruments, 300 projects, 1,000,000 bookings with usage. Anchors: the single SQL aggregate " +
 			"giving the same totals; measured: every project's statement for a month (priced line by line, split across funding " +
-			"accounts, stored with its lines and ledger event) and every instrument's utilization report for the year.",
+			"accounts, stored with its ledger event holding its lines; each run a month not billed before) and every instrument's utilization report for the year.",
 		Figures: []figure{
 			{Label: "a month's statements for every project vs one SQL aggregate", Of: at("CostRecovery/statements_month/beamledger", "ns/op"),
 				Per: anchor("CostRecovery/statements_month/raw_sql", "ns/op"), Op: "≤", Limit: 1.5},
