@@ -160,7 +160,7 @@ WHERE project_id = ANY($1::uuid[]) AND period_start = $2 ORDER BY id FOR UPDATE`
 		return nil, err
 	}
 
-	// Pricing is pure and per project: spread it over the processors.
+	// The statements to price: every project's not issued, new ones with a new id.
 	var todo []int   // indexes into projectIDs
 	var ids []string // the statement of each
 	for i, id := range projectIDs {

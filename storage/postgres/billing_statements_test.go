@@ -23,17 +23,10 @@ func TestComputeStatementsForManyProjects(t *testing.T) {
 	to := from.AddDate(0, 1, 0)
 	mgr, pi, in := billingFacility(t, db, from)
 	project := func(code string, funded bool) string {
-		p := mustCreateProject(t, db, code, pi.ID)
 		if funded {
-			a, err := db.SaveFundingAccount(ctx, scheduling.FundingAccount{ProjectID: p.ID, Code: "G-" + code}, mgr.ID, t0)
-			if err != nil {
-				t.Fatal(err)
-			}
-			if err := db.SetProjectFunding(ctx, p.ID, []scheduling.FundingShare{{AccountID: a.ID, BasisPoints: 10000}}, mgr.ID, t0); err != nil {
-				t.Fatal(err)
-			}
+			return fundedProject(t, db, mgr, pi, code).ID
 		}
-		return p.ID
+		return mustCreateProject(t, db, code, pi.ID).ID
 	}
 	book := func(projectID string, start time.Time, d time.Duration) {
 		t.Helper()

@@ -25,14 +25,7 @@ func TestIssuedStatementIsFinalInTheDatabase(t *testing.T) {
 	ctx := context.Background()
 	from := time.Date(2031, 3, 1, 0, 0, 0, 0, time.UTC)
 	mgr, pi, in := billingFacility(t, db, from)
-	p := mustCreateProject(t, db, "P-1", pi.ID)
-	acct, err := db.SaveFundingAccount(ctx, scheduling.FundingAccount{ProjectID: p.ID, Code: "G-1"}, mgr.ID, t0)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if err := db.SetProjectFunding(ctx, p.ID, []scheduling.FundingShare{{AccountID: acct.ID, BasisPoints: 10000}}, mgr.ID, t0); err != nil {
-		t.Fatal(err)
-	}
+	p := fundedProject(t, db, mgr, pi, "P-1")
 	start := from.Add(9 * time.Hour)
 	if err := db.InsertBookingRow(ctx, scheduling.NewBooking{InstrumentID: in.ID, ProjectID: p.ID, UserID: pi.ID,
 		Kind: scheduling.KindIndependent, Start: start, End: start.Add(2 * time.Hour), Actor: pi.ID}); err != nil {
@@ -106,14 +99,7 @@ func TestStatementLinesMigrateIntoTheLedger(t *testing.T) {
 	mgr, pi, in := billingFacility(t, db, from)
 	var ids []string
 	for i, code := range []string{"P-1", "P-2"} {
-		p := mustCreateProject(t, db, code, pi.ID)
-		acct, err := db.SaveFundingAccount(ctx, scheduling.FundingAccount{ProjectID: p.ID, Code: "G-" + code}, mgr.ID, t0)
-		if err != nil {
-			t.Fatal(err)
-		}
-		if err := db.SetProjectFunding(ctx, p.ID, []scheduling.FundingShare{{AccountID: acct.ID, BasisPoints: 10000}}, mgr.ID, t0); err != nil {
-			t.Fatal(err)
-		}
+		p := fundedProject(t, db, mgr, pi, code)
 		for k := range 2 {
 			start := from.Add(time.Duration(24*(2*i+k)+9) * time.Hour)
 			if err := db.InsertBookingRow(ctx, scheduling.NewBooking{InstrumentID: in.ID, ProjectID: p.ID, UserID: pi.ID,

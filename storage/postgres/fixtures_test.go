@@ -110,3 +110,19 @@ func billingFacility(t *testing.T, db *postgres.DB, from time.Time) (mgr, pi acc
 	}
 	return mgr, pi, in
 }
+
+// fundedProject makes the project code led by pi with one funding account, G-code,
+// taking the whole of its default split.
+func fundedProject(t *testing.T, db *postgres.DB, mgr, pi accounts.User, code string) accounts.Project {
+	t.Helper()
+	ctx := context.Background()
+	p := mustCreateProject(t, db, code, pi.ID)
+	acct, err := db.SaveFundingAccount(ctx, scheduling.FundingAccount{ProjectID: p.ID, Code: "G-" + code}, mgr.ID, t0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := db.SetProjectFunding(ctx, p.ID, []scheduling.FundingShare{{AccountID: acct.ID, BasisPoints: 10000}}, mgr.ID, t0); err != nil {
+		t.Fatal(err)
+	}
+	return p
+}
