@@ -184,11 +184,11 @@ func (p *printer) newPage() {
 
 // row writes one table row at the current height and moves down.
 func (p *printer) row(font string, cells ...string) {
+	if p.err == nil {
+		p.err = p.pdf.SetFont(font, "", fontSize)
+	}
 	x := margin
 	for i, c := range columns {
-		if p.err == nil {
-			p.err = p.pdf.SetFont(font, "", fontSize)
-		}
 		text := p.fit(cells[i], c.width-4)
 		opt := gopdf.CellOption{Align: gopdf.Left | gopdf.Middle}
 		if c.right {

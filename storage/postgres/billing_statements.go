@@ -30,15 +30,6 @@ type StatementSummary struct {
 	TotalMinor  int64                      `json:"total_minor"`
 }
 
-func nullID(s string) any {
-	if s == "" {
-		return nil
-	}
-	return s
-}
-
-func nullText(s string) any { return nullID(s) }
-
 // Statement reads a statement with its lines. ErrNotFound when there is none.
 func (db *DB) Statement(ctx context.Context, id string) (scheduling.Statement, error) {
 	if !accounts.ValidID(id) {
