@@ -286,12 +286,11 @@ func (s *Server) handleUtilizationReport(c echo.Context) error {
 	if format != "" && format != "json" && format != "csv" {
 		return beamledger.InvalidField("format", "must be json or csv")
 	}
-	in, err := s.reports().UtilizationInputs(ctx, instrumentID, from, to)
+	in, err := s.reports().UtilizationInputs(ctx, instrumentID, from, to, s.now())
 	if err != nil {
 		return err
 	}
-	rep := scheduling.Utilization(instrumentID, from.UTC(), to.UTC(), loc, in.Rules.OpeningHours,
-		time.Duration(in.Policy.CancellationWindowMinutes)*time.Minute, in.Bookings, in.Quotas, s.now())
+	rep := scheduling.Utilization(instrumentID, from.UTC(), to.UTC(), loc, in.Rules.OpeningHours, in.Sums, in.Quotas)
 	if format != "csv" {
 		return c.JSON(http.StatusOK, rep)
 	}

@@ -94,15 +94,14 @@ func BenchmarkCostRecovery(b *testing.B) {
 
 	yearTo := benchYear.AddDate(1, 0, 0)
 	utilization := func() map[string][2]int {
-		all, err := db.UtilizationInputsAll(ctx, benchYear, yearTo)
+		all, err := db.UtilizationInputsAll(ctx, benchYear, yearTo, yearTo)
 		if err != nil {
 			b.Fatal(err)
 		}
 		out := map[string][2]int{}
 		for _, id := range instruments {
 			in := all[id]
-			r := scheduling.Utilization(id, benchYear, yearTo, time.UTC, in.Rules.OpeningHours,
-				time.Duration(in.Policy.CancellationWindowMinutes)*time.Minute, in.Bookings, in.Quotas, yearTo)
+			r := scheduling.Utilization(id, benchYear, yearTo, time.UTC, in.Rules.OpeningHours, in.Sums, in.Quotas)
 			out[id] = [2]int{r.BookedMinutes, r.UsedMinutes}
 		}
 		return out
@@ -129,7 +128,7 @@ func BenchmarkCostRecovery(b *testing.B) {
 // year (one every 21 minutes on each instrument at a million), each with one usage that starts up to
 // 7 minutes late and ends up to 2 minutes early or 5 late. The bookings and usage are
 // written by SQL in the database, as a year of use would have left them.
-func generateBillingYear(b *testing.B, db *postgres.DB, conn *pgx.Conn, n int) (projects, instruments []string) {
+func generateBillingYear(b testing.TB, db *postgres.DB, conn *pgx.Conn, n int) (projects, instruments []string) {
 	ctx := context.Background()
 	if _, err := db.SetFacility(ctx, scheduling.Facility{Name: "Bench", TimeZone: "UTC", Currency: "EUR"}); err != nil {
 		b.Fatal(err)
@@ -168,8 +167,8 @@ JOIN (SELECT id, row_number() OVER (ORDER BY code) - 1 AS n FROM projects) p ON 
 		b.Fatal(err)
 	}
 	const usages = `
-INSERT INTO usages (booking_id, started_at, ended_at, started_by, ended_by, source)
-SELECT id, lower(during) + make_interval(mins => (hashtext(id::text) & 7)),
+INSERT INTO usages (booking_id, ordinal, started_at, ended_at, started_by, ended_by, source)
+SELECT id, 1, lower(during) + make_interval(mins => (hashtext(id::text) & 7)),
        upper(during) + make_interval(mins => ((hashtext(id::text) >> 3) & 7) - 2), 'bench', 'bench', 'user'
 FROM bookings`
 	if _, err := conn.Exec(ctx, usages); err != nil {
@@ -211,12 +210,13 @@ GROUP BY b.project_id`
 }
 
 // rawYearUtilization is the anchor for utilization: booked and used minutes per
-// instrument over [from, to) in one aggregate.
+// instrument over [from, to) in one aggregate (each the summed elapsed time in whole
+// minutes, rounded down once, as the report rounds).
 func rawYearUtilization(b *testing.B, conn *pgx.Conn, from, to time.Time) map[string][2]int {
 	const q = `
 SELECT b.instrument_id::text,
-       sum(extract(epoch FROM upper(b.during * tstzrange($1, $2)) - lower(b.during * tstzrange($1, $2)))::bigint / 60)::bigint,
-       sum(extract(epoch FROM least(u.ended_at, $2) - greatest(u.started_at, $1))::bigint / 60)::bigint
+       floor(extract(epoch FROM sum(least(upper(b.during), $2) - greatest(lower(b.during), $1))) / 60)::bigint,
+       floor(extract(epoch FROM sum(least(u.ended_at, $2) - greatest(u.started_at, $1))) / 60)::bigint
 FROM bookings b JOIN usages u ON u.booking_id = b.id
 WHERE b.during && tstzrange($1, $2) AND b.status = 'active' AND b.kind <> 'service'
 GROUP BY b.instrument_id`
@@ -237,8 +237,8 @@ GROUP BY b.instrument_id`
 }
 
 // benchMust turns a value and an error into the value, failing the benchmark on error.
-func benchMust[T any](v T, err error) func(*testing.B) T {
-	return func(b *testing.B) T {
+func benchMust[T any](v T, err error) func(testing.TB) T {
+	return func(b testing.TB) T {
 		b.Helper()
 		if err != nil {
 			b.Fatal(err)

@@ -5,7 +5,6 @@ import (
 	"errors"
 	"maps"
 	"reflect"
-	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -169,81 +168,5 @@ func TestStatementLinesMigrateIntoTheLedger(t *testing.T) {
 	var rows int
 	if err := conn.QueryRow(ctx, `SELECT count(*) FROM statement_lines`).Scan(&rows); err != nil || rows != len(before[ids[0]].Lines)+len(before[ids[1]].Lines)-1 {
 		t.Errorf("after the refused upgrade statement_lines holds %d rows (%v)", rows, err)
-	}
-}
-
-// TestUtilizationInputsKeepEveryUsage reads a month with a booking used twice, one
-// still in use, one unused and one on another instrument: every booking reaches its
-// own instrument's inputs once, with all its usages, and the report counts them.
-func TestUtilizationInputsKeepEveryUsage(t *testing.T) {
-	db, _ := openRaw(t)
-	ctx := context.Background()
-	from := time.Date(2031, 3, 1, 0, 0, 0, 0, time.UTC)
-	to := from.AddDate(0, 1, 0)
-	_, pi, in := billingFacility(t, db, from)
-	other := mustCreateInstrument(t, db, "TEM-2")
-	p := mustCreateProject(t, db, "P-1", pi.ID)
-	book := func(instrument string, start time.Time) string {
-		b, err := db.CreateBooking(ctx, scheduling.NewBooking{InstrumentID: instrument, ProjectID: p.ID, UserID: pi.ID,
-			Kind: scheduling.KindIndependent, Start: start, End: start.Add(time.Hour), Actor: pi.ID}, t0,
-			func(scheduling.BookingContext) error { return nil })
-		if err != nil {
-			t.Fatal(err)
-		}
-		return b.ID
-	}
-	day := from.Add(9 * time.Hour)
-	twice, open := book(in.ID, day), book(in.ID, day.Add(2*time.Hour))
-	book(in.ID, day.Add(4*time.Hour))
-	book(other.ID, day)
-	for _, u := range []struct {
-		id      string
-		in, out time.Duration // after day; out 0: still in use
-	}{{twice, 0, 30 * time.Minute}, {twice, 40 * time.Minute, 60 * time.Minute}, {open, 2 * time.Hour, 0}} {
-		if _, err := db.CheckIn(ctx, u.id, day.Add(u.in), pi.ID, scheduling.SourceUser); err != nil {
-			t.Fatal(err)
-		}
-		if u.out > 0 {
-			if _, err := db.CheckOut(ctx, u.id, day.Add(u.out), pi.ID); err != nil {
-				t.Fatal(err)
-			}
-		}
-	}
-	all, err := db.UtilizationInputsAll(ctx, from, to)
-	if err != nil {
-		t.Fatal(err)
-	}
-	one, err := db.UtilizationInputs(ctx, in.ID, from, to)
-	if err != nil {
-		t.Fatal(err)
-	}
-	for name, got := range map[string][]scheduling.UtilizationBooking{"all": all[in.ID].Bookings, "one": one.Bookings} {
-		slices.SortFunc(got, func(a, b scheduling.UtilizationBooking) int { return a.Start.Compare(b.Start) })
-		var usages []int
-		for _, b := range got {
-			usages = append(usages, len(b.Usages))
-			if b.ProjectID != p.ID || b.Kind != scheduling.KindIndependent || b.Status != scheduling.StatusActive {
-				t.Errorf("%s: booking at %s read as %+v", name, b.Start, b)
-			}
-		}
-		if !slices.Equal(usages, []int{2, 1, 0}) {
-			t.Fatalf("%s: usages per booking %v, want [2 1 0]", name, usages)
-		}
-		if u := got[0].Usages[1]; !u.StartedAt.Equal(day.Add(40*time.Minute)) || u.EndedAt == nil || !u.EndedAt.Equal(day.Add(time.Hour)) {
-			t.Errorf("%s: second usage %v–%v", name, u.StartedAt, u.EndedAt)
-		}
-		if u := got[1].Usages[0]; u.EndedAt != nil {
-			t.Errorf("%s: the usage still in progress reads as ended at %v", name, u.EndedAt)
-		}
-		now := day.Add(2*time.Hour + 45*time.Minute)
-		r := scheduling.Utilization(in.ID, from, to, time.UTC, nil, time.Hour, got, nil, now)
-		// [constructed] 3 bookings of 1 h; used 30 + 20 min of the first and 45 min of
-		// the second (in use until now).
-		if r.BookedMinutes != 180 || r.UsedMinutes != 95 {
-			t.Errorf("%s: booked %d, used %d minutes; want 180 and 95", name, r.BookedMinutes, r.UsedMinutes)
-		}
-	}
-	if n := len(all[other.ID].Bookings); n != 1 {
-		t.Errorf("the other instrument has %d bookings, want 1", n)
 	}
 }

@@ -48,15 +48,23 @@ func (db *DB) CheckIn(ctx context.Context, bookingID string, at time.Time, actor
 		if err != nil {
 			return err
 		}
+		// The booking's usages so far: one still open, the last check-out, the last number.
+		// A new usage follows them (usages_no_overlap), numbered next (ordinal).
+		const prior = `SELECT coalesce(bool_or(ended_at IS NULL), false), max(ended_at), coalesce(max(ordinal), 0) FROM usages WHERE booking_id = $1`
 		var open bool
-		if err := tx.QueryRow(ctx, `SELECT EXISTS (SELECT 1 FROM usages WHERE booking_id = $1 AND ended_at IS NULL)`, bookingID).Scan(&open); err != nil {
+		var lastOut *time.Time
+		var n int
+		if err := tx.QueryRow(ctx, prior, bookingID).Scan(&open, &lastOut, &n); err != nil {
 			return err
 		}
 		if open {
 			return beamledger.Conflict("the booking is already checked in; check out first")
 		}
-		const q = `INSERT INTO usages (booking_id, started_at, started_by, source) VALUES ($1, $2, $3, $4) RETURNING ` + usageColumns
-		if out, err = scanUsage(tx.QueryRow(ctx, q, bookingID, at, actor, string(source))); err != nil {
+		if lastOut != nil && at.Before(*lastOut) {
+			return beamledger.InvalidField("at", "must not be before the booking's last check-out at "+lastOut.UTC().Format(time.RFC3339))
+		}
+		const q = `INSERT INTO usages (booking_id, started_at, started_by, source, ordinal) VALUES ($1, $2, $3, $4, $5) RETURNING ` + usageColumns
+		if out, err = scanUsage(tx.QueryRow(ctx, q, bookingID, at, actor, string(source), n+1)); err != nil {
 			return err
 		}
 		// Use keeps an idle-expiring qualification alive.
