@@ -831,6 +831,11 @@ func exerciseUsage(t *testing.T, w *world) {
 	}
 	w.expect(http.StatusConflict, http.MethodPost, bPath+"/check-out", researcher, nil, nil)
 	w.expect(http.StatusForbidden, http.MethodPost, bPath+"/check-out", auditor, nil, nil)
+	// A booking's usages follow one another: a check-in dated before its last
+	// check-out is refused, naming at.
+	if r := w.expect(http.StatusBadRequest, http.MethodPost, bPath+"/check-in", researcher, map[string]string{"at": w.clock.Now().Add(-time.Minute).Format(time.RFC3339)}, nil); !fieldNamed(r, "at") {
+		t.Errorf("check-in before the last check-out not named: %s", r.Body)
+	}
 
 	// [constructed] five minutes of work, all of it inside the booked range.
 	var rep scheduling.UsageReport
