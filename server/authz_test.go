@@ -450,6 +450,9 @@ var routeMatrix = map[string]routeExpectation{
 	"GET /api/v1/reports/utilization": {who: access{wUnauth, wAllow, wAllow, wDeny, wAllow, wDeny}, query: func(w *world) string {
 		return "instrument_id=" + w.instr.ID + "&from=2026-03-01&to=2026-04-01"
 	}},
+	"GET /api/v1/reports/facility-utilization": {who: access{wUnauth, wAllow, wAllow, wDeny, wAllow, wDeny}, query: func(*world) string {
+		return "from=2026-03-01&to=2026-04-01"
+	}},
 }
 
 var (

@@ -168,4 +168,9 @@ func exerciseBilling(t *testing.T, _ *world) {
 	w.expect(http.StatusOK, http.MethodGet, u+"&format=csv", auditor, nil, nil)
 	w.expect(http.StatusBadRequest, http.MethodGet, "/api/v1/reports/utilization?instrument_id="+w.instr.ID+"&from=2026-03-01&to=soon", auditor, nil, nil)
 	w.expect(http.StatusNotFound, http.MethodGet, "/api/v1/reports/utilization?instrument_id=nope&from=2026-03-01&to=2026-04-01", auditor, nil, nil)
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/reports/facility-utilization?fiscal_year=2026", auditor, nil, nil)
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/reports/facility-utilization?from=2026-03-01&to=2026-04-01&format=csv", auditor, nil, nil)
+	if r := w.expect(http.StatusBadRequest, http.MethodGet, "/api/v1/reports/facility-utilization?from=2026-03-01&to=2027-06-01", auditor, nil, nil); !fieldNamed(r, "to") {
+		t.Errorf("a range over 400 days not named: %s", r.Body)
+	}
 }

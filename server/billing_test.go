@@ -7,6 +7,7 @@ import (
 	"encoding/hex"
 	"encoding/json"
 	"net/http"
+	"reflect"
 	"slices"
 	"strconv"
 	"strings"
@@ -228,6 +229,29 @@ func checkReferenceUtilization(t *testing.T, w *world) {
 	// One row for the instrument, three kinds (independent, assisted, unattended), two projects.
 	if err != nil || len(recs) != 7 || !slices.Equal(recs[0], scheduling.UtilizationCSVColumns()) {
 		t.Errorf("utilization CSV: %v %q", err, recs)
+	}
+	// The facility's report holds the same report for the instrument, and the CSV its rows.
+	var all facilityUtilizationAnswer
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/reports/facility-utilization?from=2026-03-01&to=2026-04-01", w.tokens[accounts.RoleManager], nil, &all)
+	i := slices.IndexFunc(all.Instruments, func(r scheduling.UtilizationReport) bool { return r.InstrumentID == w.instr.ID })
+	if i < 0 || !reflect.DeepEqual(all.Instruments[i], rep) || !slices.IsSortedFunc(all.Instruments, func(a, b scheduling.UtilizationReport) int {
+		return strings.Compare(a.InstrumentID, b.InstrumentID)
+	}) {
+		t.Errorf("facility report %+v\nwant among them %+v", all.Instruments, rep)
+	}
+	r = w.expect(http.StatusOK, http.MethodGet, "/api/v1/reports/facility-utilization?from=2026-03-01&to=2026-04-01&format=csv", w.tokens[accounts.RoleAuditor], nil, nil)
+	facility, err := csv.NewReader(bytes.NewReader(r.Body)).ReadAll()
+	if err != nil || !slices.Equal(facility[0], scheduling.UtilizationCSVColumns()) {
+		t.Fatalf("facility CSV: %v %q", err, facility)
+	}
+	var mine [][]string
+	for _, row := range facility[1:] {
+		if row[0] == w.instr.ID {
+			mine = append(mine, row)
+		}
+	}
+	if !reflect.DeepEqual(mine, recs[1:]) {
+		t.Errorf("the instrument's rows in the facility CSV %q, want %q", mine, recs[1:])
 	}
 }
 

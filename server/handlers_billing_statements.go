@@ -2,7 +2,6 @@ package server
 
 import (
 	"bytes"
-	"encoding/csv"
 	"encoding/hex"
 	"fmt"
 	"html/template"
@@ -242,67 +241,6 @@ func (s *Server) handleRecoveryReport(c echo.Context) error {
 		costs[e.InstrumentID] += e.AmountMinor
 	}
 	return c.JSON(http.StatusOK, recoveryAnswer{FiscalYear: year, From: from.UTC(), To: to.UTC(), Lines: scheduling.Recovery(costs, charged), Entries: entries})
-}
-
-// handleUtilizationReport reports an instrument's use from one local date to another
-// (to exclusive), or over the facility's fiscal year fiscal_year, as JSON or, with
-// format=csv, as scheduling.UtilizationCSVColumns.
-func (s *Server) handleUtilizationReport(c echo.Context) error {
-	ctx := c.Request().Context()
-	loc, err := s.facilityLocation(ctx)
-	if err != nil {
-		return err
-	}
-	fe := beamledger.FieldErrors{}
-	day := func(field string) time.Time {
-		t, err := time.ParseInLocation(time.DateOnly, c.QueryParam(field), loc)
-		if err != nil {
-			fe.Add(field, "must be a date as YYYY-MM-DD (local to the facility), or give fiscal_year instead")
-		}
-		return t
-	}
-	var from, to time.Time
-	if c.QueryParam("fiscal_year") != "" {
-		if c.QueryParam("from") != "" || c.QueryParam("to") != "" {
-			return beamledger.InvalidField("fiscal_year", "give either fiscal_year or from and to, not both")
-		}
-		if _, from, to, err = s.fiscalYear(c, loc); err != nil {
-			return err
-		}
-	} else {
-		from, to = day("from"), day("to")
-	}
-	instrumentID := c.QueryParam("instrument_id")
-	if instrumentID == "" {
-		fe.Add("instrument_id", "is required")
-	}
-	if err := fe.Err(); err != nil {
-		return err
-	}
-	if !from.Before(to) || to.Sub(from) > 400*24*time.Hour {
-		return beamledger.InvalidField("to", "must be after from, at most 400 days later")
-	}
-	format := c.QueryParam("format")
-	if format != "" && format != "json" && format != "csv" {
-		return beamledger.InvalidField("format", "must be json or csv")
-	}
-	in, err := s.reports().UtilizationInputs(ctx, instrumentID, from, to, s.now())
-	if err != nil {
-		return err
-	}
-	rep := scheduling.Utilization(instrumentID, from.UTC(), to.UTC(), loc, in.Rules.OpeningHours, in.Sums, in.Quotas)
-	if format != "csv" {
-		return c.JSON(http.StatusOK, rep)
-	}
-	var buf bytes.Buffer
-	w := csv.NewWriter(&buf)
-	w.UseCRLF = true
-	_ = w.Write(scheduling.UtilizationCSVColumns())
-	_ = w.WriteAll(rep.UtilizationRows())
-	if err := w.Error(); err != nil {
-		return err
-	}
-	return c.Blob(http.StatusOK, "text/csv; charset=utf-8", buf.Bytes())
 }
 
 // statementPage is the printable statement: plain HTML with its own print styles, so a

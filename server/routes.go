@@ -111,6 +111,7 @@ func (s *Server) routes() error {
 	add(http.MethodPost, v1+"/cost-entries", users(managers...), s.handleCostEntryCreate)
 	add(http.MethodGet, v1+"/reports/recovery", users(readersAll...), s.handleRecoveryReport)
 	add(http.MethodGet, v1+"/reports/utilization", users(readersAll...), s.handleUtilizationReport)
+	add(http.MethodGet, v1+"/reports/facility-utilization", users(readersAll...), s.handleFacilityUtilization)
 
 	// Acquisitions and what they are recorded against. The records are append-only.
 	recorders := usersOrAgent(accounts.ScopeAcquisitionWrite, bookers...)

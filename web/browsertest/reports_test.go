@@ -1,12 +1,14 @@
 package browsertest
 
 import (
+	"strings"
 	"testing"
 	"time"
 
 	"github.com/chromedp/chromedp"
 
 	"beamledger/accounts"
+	"beamledger/scheduling"
 )
 
 // TestReportsCharts: staff open the reports; every chart is drawn by the vendored
@@ -32,6 +34,12 @@ func TestReportsCharts(t *testing.T) {
 	}
 	if n := eval[int](t, ctx, "weeks", `document.querySelectorAll("#util-table tbody tr").length`); n != 8 {
 		t.Errorf("%d weeks of utilization, want 8", n)
+	}
+	// The month's facility-wide CSV is one link away, and the session opens it.
+	href := eval[string](t, ctx, "csv link", `document.querySelector("#rep-csv").href`)
+	csvText := eval[string](t, ctx, "csv", `fetch(document.querySelector("#rep-csv").href).then((r) => r.ok ? r.text() : "HTTP " + r.status)`)
+	if !strings.HasPrefix(csvText, strings.Join(scheduling.UtilizationCSVColumns(), ",")+"\r\n") || strings.Count(csvText, "\r\n") < 2 {
+		t.Errorf("the facility CSV at %s reads %.200q", href, csvText)
 	}
 	for _, sel := range []string{"#proj-table", "#kind-table", "#rec-table"} {
 		if n := eval[int](t, ctx, sel, `document.querySelectorAll("`+sel+` tbody tr").length`); n == 0 {

@@ -36,6 +36,8 @@
     const code = new Map(ins.body.items.map((i) => [i.id, i.code]));
     const pcode = new Map(projects.body.items.map((p) => [p.id, p.code]));
 
+    $("#rep-csv").href = "/api/v1/reports/facility-utilization?format=csv&from=" + from + "&to=" + to;
+    $("#rep-csv").download = "utilization-" + f.month.value + ".csv";
     const u = await BL.api("/api/v1/reports/utilization?instrument_id=" + f.instrument_id.value + "&from=" + from + "&to=" + to);
     if (!u.ok) { BL.showError(err, u.body); return; }
     const r = u.body;
@@ -53,11 +55,13 @@
     const end = new Date(Date.UTC(y, m, 1));
     const weeks = [];
     for (let i = 8; i > 0; i--) weeks.push([day(new Date(end - i * 7 * 864e5)), day(new Date(end - (i - 1) * 7 * 864e5))]);
+    // One facility-wide report per week holds every instrument's figures.
     const bookable = ins.body.items.filter((i) => i.bookable);
-    const series = await Promise.all(bookable.map(async (i) => {
-      const got = await Promise.all(weeks.map(([a, b]) => BL.api("/api/v1/reports/utilization?instrument_id=" + i.id + "&from=" + a + "&to=" + b)));
-      return { label: i.code, data: got.map((g) => (g.ok ? g.body.booked_permille / 10 : null)) };
-    }));
+    const got = await Promise.all(weeks.map(([a, b]) => BL.api("/api/v1/reports/facility-utilization?from=" + a + "&to=" + b)));
+    const series = bookable.map((i) => ({ label: i.code, data: got.map((g) => {
+      const r = g.ok ? g.body.instruments.find((x) => x.instrument_id === i.id) : undefined;
+      return r ? r.booked_permille / 10 : null;
+    }) }));
     $("#util-table thead").replaceChildren(BL.el("tr", {}, BL.el("th", { scope: "col", text: "Week from" }), ...series.map((s) => BL.el("th", { scope: "col", text: s.label }))));
     rows("#util-table", weeks.map(([a], wi) => [a, ...series.map((s) => (s.data[wi] === null ? "—" : s.data[wi] + " %"))]));
     draw("util-chart", "line", weeks.map(([a]) => a), series.map((s) => Object.assign(s, { tension: 0.2 })), "% of available time booked");
