@@ -233,11 +233,15 @@ func nonEmpty(plans ...chargePlan) []chargePlan {
 // holds, beside each line, the staff rate of the same schedule and class.
 func priceInstrument(in ChargeInput, plan chargePlan, schedules []RateSchedule) (lines []ChargeLine, staffRates []int64, err error) {
 	b := in.Booking
-	var groups []SchedulePiece // one per schedule, from its first to its last piece
-	var ends []time.Duration   // charged time up to the end of each group
+	// One group per schedule, from its first to its last piece, and the charged time up
+	// to the end of each: nearly always one, so they start on the stack.
+	var groupsBuf [2]SchedulePiece
+	var endsBuf [2]time.Duration
+	groups, ends := groupsBuf[:0], endsBuf[:0]
 	var run time.Duration
+	var piecesBuf [2]SchedulePiece
 	for _, span := range fitSpans(plan.spans, time.Duration(plan.minutes)*time.Minute) {
-		pieces, err := SchedulePieces(schedules, b.InstrumentID, span.Start, span.End)
+		pieces, err := appendSchedulePieces(piecesBuf[:0], schedules, b.InstrumentID, span.Start, span.End)
 		if err != nil {
 			return nil, nil, err
 		}
@@ -250,6 +254,7 @@ func priceInstrument(in ChargeInput, plan chargePlan, schedules []RateSchedule) 
 			groups, ends = append(groups, pc), append(ends, run)
 		}
 	}
+	lines, staffRates = make([]ChargeLine, 0, len(groups)), make([]int64, 0, len(groups))
 	done := 0 // whole minutes charged to earlier groups
 	for i, g := range groups {
 		upTo := int(ends[i] / time.Minute) // the total is whole minutes, so the last group ends on it

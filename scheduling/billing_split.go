@@ -24,6 +24,11 @@ type FundingShare struct {
 // and sum to exactly 100 %: a split that covers less would leave part of a charge
 // unpaid, one that covers more would invent money.
 func ValidateShares(shares []FundingShare) error {
+	// Every charge of a statement is split, most often to one account for all of it:
+	// that case is checked without building the field errors.
+	if len(shares) == 1 && shares[0].BasisPoints == WholeBasisPoints && strings.TrimSpace(shares[0].AccountID) != "" {
+		return nil
+	}
 	fe := beamledger.FieldErrors{}
 	if len(shares) == 0 {
 		fe.Add("funding", "at least one funding account is required")

@@ -120,13 +120,25 @@ type SchedulePiece struct {
 // schedule, and ErrInvalid when two of its schedules take effect at the same instant
 // (which one would be in force is then a guess). An empty range has no pieces.
 func SchedulePieces(schedules []RateSchedule, instrumentID string, start, end time.Time) ([]SchedulePiece, error) {
-	var own []RateSchedule
-	for _, s := range schedules {
-		if s.InstrumentID == instrumentID {
-			own = append(own, s)
+	return appendSchedulePieces(nil, schedules, instrumentID, start, end)
+}
+
+// appendSchedulePieces is SchedulePieces appending to dst, so that pricing a booking
+// (nearly always one piece) can keep its pieces on the stack.
+func appendSchedulePieces(dst []SchedulePiece, schedules []RateSchedule, instrumentID string, start, end time.Time) ([]SchedulePiece, error) {
+	own := schedules // as a statement passes them: the instrument's own, in order
+	for i, s := range schedules {
+		if s.InstrumentID != instrumentID || i > 0 && !schedules[i-1].EffectiveFrom.Before(s.EffectiveFrom) {
+			own = nil
+			for _, s := range schedules {
+				if s.InstrumentID == instrumentID {
+					own = append(own, s)
+				}
+			}
+			slices.SortStableFunc(own, func(a, b RateSchedule) int { return a.EffectiveFrom.Compare(b.EffectiveFrom) })
+			break
 		}
 	}
-	slices.SortStableFunc(own, func(a, b RateSchedule) int { return a.EffectiveFrom.Compare(b.EffectiveFrom) })
 	for i := 1; i < len(own); i++ {
 		if own[i].EffectiveFrom.Equal(own[i-1].EffectiveFrom) {
 			return nil, beamledger.Invalid(fmt.Sprintf("rate schedules %q and %q of instrument %s take effect at the same instant",
@@ -142,7 +154,7 @@ func SchedulePieces(schedules []RateSchedule, instrumentID string, start, end ti
 			fmt.Sprintf("no rate schedule of instrument %s is in force at %s", instrumentID, at),
 			map[string]string{"rate_schedules": "instrument " + instrumentID + " needs a schedule effective at or before " + at})
 	}
-	var pieces []SchedulePiece
+	pieces := dst
 	for i, s := range own {
 		until := end // the last schedule stays in force
 		if i+1 < len(own) {

@@ -2,6 +2,7 @@ package scheduling
 
 import (
 	"errors"
+	"reflect"
 	"testing"
 	"time"
 
@@ -53,6 +54,16 @@ func TestSchedulePieces(t *testing.T) {
 	}
 	if p, err := SchedulePieces(all, "tem-1", at(5, 0), at(5, 0)); err != nil || p != nil {
 		t.Errorf("empty range: %+v %v", p, err)
+	}
+	// The instrument's own schedules already in order, as a statement passes them,
+	// give the same pieces; two of them at one instant are still refused.
+	own := []RateSchedule{all[1], all[3], all[0]}
+	if again, err := SchedulePieces(own, "tem-1", at(1, 6), at(3, 6)); err != nil || !reflect.DeepEqual(again, pieces) {
+		t.Errorf("from the instrument's own schedules in order: %+v %v, want %+v", again, err, pieces)
+	}
+	twice := []RateSchedule{all[1], s("a2", "tem-1", at(1, 0)), all[3]}
+	if _, err := SchedulePieces(twice, "tem-1", at(1, 6), at(3, 6)); !errors.Is(err, beamledger.ErrInvalid) {
+		t.Errorf("two schedules at one instant: %v", err)
 	}
 }
 

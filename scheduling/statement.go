@@ -309,20 +309,21 @@ func (in StatementInput) validate() error {
 	}
 	inPeriod := func(t time.Time) bool { return !t.Before(in.PeriodStart) && t.Before(in.PeriodEnd) }
 	for i, c := range in.Charges {
-		at := fmt.Sprintf("charges[%d].", i)
+		// Named only when something is wrong: a month's statement has thousands of charges.
+		at := func() string { return fmt.Sprintf("charges[%d].", i) }
 		if !inPeriod(c.Start) {
-			fe.Add(at+"start", "lies outside the statement's period")
+			fe.Add(at()+"start", "lies outside the statement's period")
 		}
 		for j, l := range c.Lines {
 			if l.Currency != in.Currency {
-				fe.Add(fmt.Sprintf("%slines[%d].currency", at, j), "differs from the statement's currency "+in.Currency)
+				fe.Add(fmt.Sprintf("%slines[%d].currency", at(), j), "differs from the statement's currency "+in.Currency)
 			}
 			if l.AmountMinor < 0 || l.Minutes < 0 {
-				fe.Add(fmt.Sprintf("%slines[%d].amount_minor", at, j), "a computed charge is never negative; credits are adjustments")
+				fe.Add(fmt.Sprintf("%slines[%d].amount_minor", at(), j), "a computed charge is never negative; credits are adjustments")
 			}
 		}
 		if err := ValidateShares(c.Funding); err != nil {
-			fe.Add(at+"funding", beamledger.FieldReason(err))
+			fe.Add(at()+"funding", beamledger.FieldReason(err))
 		}
 	}
 	for i, adj := range in.Adjustments {
@@ -380,6 +381,37 @@ func (s Statement) Record() StatementRecord {
 
 // Lines returns a copy of the statement's lines.
 func (s Statement) Lines() []StatementLine { return s.Record().Lines }
+
+// Summary is the statement's record without its lines (Lines is nil): its totals and
+// status, for what stores or lists statements without copying every line.
+func (s Statement) Summary() StatementRecord {
+	r := s.rec
+	r.Lines = nil
+	if r.IssuedAt != nil {
+		at := *r.IssuedAt
+		r.IssuedAt = &at
+	}
+	r.ComponentTotals = slices.Clone(r.ComponentTotals)
+	r.AccountTotals = slices.Clone(r.AccountTotals)
+	return r
+}
+
+// InstrumentTotals sums, per instrument, the amounts of the lines naming one.
+func (s Statement) InstrumentTotals() map[string]int64 {
+	out := map[string]int64{}
+	for _, l := range s.rec.Lines {
+		if l.InstrumentID != "" {
+			out[l.InstrumentID] += l.AmountMinor
+		}
+	}
+	return out
+}
+
+// AppendCanonicalJSON appends the record's RFC 8785 canonical JSON to dst, as
+// StatementRecord.AppendCanonicalJSON does, without copying the record first.
+func (s Statement) AppendCanonicalJSON(dst []byte) ([]byte, error) {
+	return s.rec.AppendCanonicalJSON(dst)
+}
 
 // MarshalJSON writes the statement as its record.
 func (s Statement) MarshalJSON() ([]byte, error) { return json.Marshal(s.rec) }

@@ -89,6 +89,10 @@ func (r StatementRecord) AppendCanonicalJSON(dst []byte) ([]byte, error) {
 type canonWriter struct {
 	b   []byte
 	err error
+	// The last instant written and its JSON (see time).
+	last     time.Time
+	lastJSON []byte
+	lastOK   bool
 }
 
 func (w *canonWriter) raw(s string) { w.b = append(w.b, s...) }
@@ -186,6 +190,12 @@ func (w *canonWriter) int(v int64) {
 // string needing no escapes. Records hold UTC; another offset is left to the general
 // way, which has its own rules for offsets RFC 3339 cannot write.
 func (w *canonWriter) time(t time.Time) {
+	// A line's booking start and its from are often the same instant, and so are
+	// one line's to and the next line's from: the last one written is kept.
+	if w.lastOK && t == w.last {
+		w.b = append(w.b, w.lastJSON...)
+		return
+	}
 	if _, off := t.Zone(); off != 0 {
 		w.err = errNotCanonical
 		return
@@ -194,9 +204,11 @@ func (w *canonWriter) time(t time.Time) {
 		w.err = errNotCanonical
 		return
 	}
+	start := len(w.b)
 	w.b = append(w.b, '"')
 	w.b = t.AppendFormat(w.b, time.RFC3339Nano)
 	w.b = append(w.b, '"')
+	w.last, w.lastJSON, w.lastOK = t, append(w.lastJSON[:0], w.b[start:]...), true
 }
 
 // str writes s as RFC 8785 §3.2.2.2 does: '"' and '\' escaped, the control characters

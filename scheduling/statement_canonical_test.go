@@ -48,12 +48,18 @@ func randomRecord(r *rand.Rand) StatementRecord {
 		}
 		return r.Int64N(1_000_000)
 	}
+	var prev time.Time // instants repeat, as a line's from repeats its booking's start
 	instant := func() *time.Time {
 		if r.IntN(3) == 0 {
 			return nil
 		}
+		if !prev.IsZero() && r.IntN(3) == 0 {
+			t := prev
+			return &t
+		}
 		t := time.Date(2000+r.IntN(60), time.Month(1+r.IntN(12)), 1+r.IntN(28), r.IntN(24), r.IntN(60), r.IntN(60),
 			[]int{0, 1000, 120_000_000, 123_456_789}[r.IntN(4)], time.UTC)
+		prev = t
 		return &t
 	}
 	allocs := func() []Allocation {

@@ -6,8 +6,10 @@ import (
 	"encoding/json"
 	"errors"
 	"flag"
+	"maps"
 	"os"
 	"path/filepath"
+	"reflect"
 	"slices"
 	"strconv"
 	"testing"
@@ -85,6 +87,34 @@ func TestAssembleStatementReferenceMonth(t *testing.T) {
 	}
 	if want := []string{"b1", "b2", "b3", "b4", "b5", "b5"}; !slices.Equal(order, want) {
 		t.Errorf("line order %v, want %v", order, want)
+	}
+
+	// The summary is the record without lines; the per-instrument totals add up the
+	// lines naming each instrument; the statement's canonical JSON is its record's.
+	sum := s.Summary()
+	want := rec
+	want.Lines = nil
+	if !reflect.DeepEqual(sum, want) {
+		t.Errorf("summary %+v, want %+v", sum, want)
+	}
+	perInstrument := map[string]int64{}
+	for _, l := range rec.Lines {
+		if l.InstrumentID != "" {
+			perInstrument[l.InstrumentID] += l.AmountMinor
+		}
+	}
+	if got := s.InstrumentTotals(); !maps.Equal(got, perInstrument) || len(got) == 0 {
+		t.Errorf("instrument totals %v, want %v", got, perInstrument)
+	}
+	a, errA := s.AppendCanonicalJSON(nil)
+	b, errB := rec.AppendCanonicalJSON(nil)
+	if (errA == nil) != (errB == nil) || !bytes.Equal(a, b) {
+		t.Errorf("the statement's canonical JSON differs from its record's (%v, %v)", errA, errB)
+	}
+	ja, errA := json.Marshal(s)
+	jb, errB := json.Marshal(rec)
+	if errA != nil || errB != nil || !bytes.Equal(ja, jb) {
+		t.Errorf("the statement's JSON differs from its record's (%v, %v)", errA, errB)
 	}
 }
 

@@ -67,7 +67,7 @@ func BenchmarkCostRecovery(b *testing.B) {
 		}
 		out := map[string]int64{}
 		for _, st := range sts {
-			if r := st.Record(); r.TotalMinor != 0 {
+			if r := st.Summary(); r.TotalMinor != 0 {
 				out[r.ProjectID] = r.TotalMinor
 			}
 		}

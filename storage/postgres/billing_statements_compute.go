@@ -9,6 +9,7 @@ import (
 	"errors"
 	"runtime"
 	"slices"
+	"strings"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -183,6 +184,7 @@ WHERE project_id = ANY($1::uuid[]) AND period_start = $2 ORDER BY id FOR UPDATE`
 		i := todo[k]
 		src := srcs[projectIDs[i]]
 		src.StatementID = ids[k]
+		sortBillable(src.Bookings)
 		in, err := scheduling.PriceStatement(src)
 		if err != nil {
 			return false, err
@@ -190,7 +192,7 @@ WHERE project_id = ANY($1::uuid[]) AND period_start = $2 ORDER BY id FOR UPDATE`
 		if drafts[i].st, err = scheduling.AssembleStatement(in); err != nil {
 			return false, err
 		}
-		if enc[k], err = encodeStatement(drafts[i].st.Record(), drafts[i].created, actor, now); err != nil {
+		if enc[k], err = encodeStatement(drafts[i].st, drafts[i].created, actor, now); err != nil {
 			return false, err
 		}
 		enc[k].unchanged = !drafts[i].created && bytes.Equal(found[projectIDs[i]].digest, enc[k].digest[:])
@@ -207,7 +209,8 @@ WHERE project_id = ANY($1::uuid[]) AND period_start = $2 ORDER BY id FOR UPDATE`
 
 // statementSourcesAll gathers what each project's statement for [from, to) is priced
 // from, keyed by project, in a fixed number of queries. StatementID is left for the
-// caller. pgx.ErrNoRows when a project or the facility does not exist.
+// caller, and so is putting the bookings in order (sortBillable). pgx.ErrNoRows when a
+// project or the facility does not exist.
 func statementSourcesAll(ctx context.Context, tx pgx.Tx, projectIDs []string, from, to, now time.Time) (map[string]scheduling.StatementSources, error) {
 	out := make(map[string]scheduling.StatementSources, len(projectIDs))
 	if len(projectIDs) == 0 {
@@ -291,8 +294,8 @@ WHERE project_id = ANY($1::uuid[]) ORDER BY project_id, position`, projectIDs)
 }
 
 // billableBookingsAll reads the projects' bookings starting in [from, to), keyed by
-// project and in booking order (start, then id), each with its usage in order of
-// start, no-show mark, displacement, the minutes of a cancelled booking others booked
+// project in no particular order (sortBillable orders them), each with its usage,
+// no-show mark, displacement, the minutes of a cancelled booking others booked
 // after its cancellation (active bookings of one instrument never overlap, so the sum
 // is their union), and the booking's own split.
 func billableBookingsAll(ctx context.Context, q querier, projectIDs []string, from, to time.Time) (map[string][]scheduling.BillableBooking, error) {
@@ -316,13 +319,14 @@ WHERE b.project_id = ANY($1::uuid[]) AND b.kind <> 'service' AND lower(b.during)
 	if err != nil {
 		return nil, err
 	}
-	type ref struct {
-		project string
-		i       int
-	}
-	out := map[string][]scheduling.BillableBooking{}
-	at := map[[16]byte]ref{} // booking → its place in out
-	ids := names{}           // instruments, users and projects
+	// Bookings are read into fixed blocks (a month is tens of thousands, and growing
+	// per-project slices by doubling copied and cleared them over and over), then
+	// copied once into a slice per project of the right size.
+	type ref struct{ block, i int }
+	var blocks [][]scheduling.BillableBooking
+	count := map[string]int{} // bookings per project
+	at := map[[16]byte]ref{}  // booking → its place in blocks
+	ids := names{}            // instruments, users and projects
 	var (
 		bb                            scheduling.BillableBooking
 		project, id, instrument, user pgtype.UUID
@@ -340,12 +344,16 @@ WHERE b.project_id = ANY($1::uuid[]) AND b.kind <> 'service' AND lower(b.during)
 			b.Kind, b.Status, bb.RebookedMinutes = scheduling.BookingKind(kind), scheduling.BookingStatus(status), int(rebooked)
 			b.Start, b.End = b.Start.UTC(), b.End.UTC()
 			bb.Usages, bb.Funding = nil, nil
-			r = ref{b.ProjectID, len(out[b.ProjectID])}
+			if n := len(blocks); n == 0 || len(blocks[n-1]) == cap(blocks[n-1]) {
+				blocks = append(blocks, make([]scheduling.BillableBooking, 0, arenaBlock))
+			}
+			r = ref{len(blocks) - 1, len(blocks[len(blocks)-1])}
 			at[id.Bytes] = r
-			out[b.ProjectID] = append(out[b.ProjectID], bb)
+			blocks[r.block] = append(blocks[r.block], bb)
+			count[b.ProjectID]++
 		}
 		if started.Valid {
-			last := &out[r.project][r.i]
+			last := &blocks[r.block][r.i]
 			arena.add(&last.Usages, last.Booking.ID, started.Time, ended)
 		}
 		return nil
@@ -366,24 +374,51 @@ ORDER BY f.booking_id, f.position`
 	var share scheduling.FundingShare
 	if _, err := pgx.ForEachRow(rows, []any{&bookingID, &share.AccountID, &share.BasisPoints}, func() error {
 		if r, ok := at[bookingID.Bytes]; ok {
-			f := &out[r.project][r.i].Funding
+			f := &blocks[r.block][r.i].Funding
 			*f = append(*f, share)
 		}
 		return nil
 	}); err != nil {
 		return nil, err
 	}
-	for _, bs := range out {
-		slices.SortFunc(bs, func(x, y scheduling.BillableBooking) int {
-			return cmp.Or(x.Booking.Start.Compare(y.Booking.Start), cmp.Compare(x.Booking.ID, y.Booking.ID))
-		})
-		for _, x := range bs {
-			if len(x.Usages) > 1 {
-				slices.SortFunc(x.Usages, func(u, v scheduling.Usage) int { return u.StartedAt.Compare(v.StartedAt) })
-			}
+	out := make(map[string][]scheduling.BillableBooking, len(count))
+	for p, n := range count {
+		out[p] = make([]scheduling.BillableBooking, 0, n)
+	}
+	for _, block := range blocks {
+		for _, bb := range block {
+			out[bb.Booking.ProjectID] = append(out[bb.Booking.ProjectID], bb)
 		}
 	}
 	return out, nil
+}
+
+// sortBillable puts one project's bookings as billableBookingsAll reads them in
+// booking order (start, then id), each one's usage in order of start. Each statement
+// sorts its own, in parallel with the others.
+func sortBillable(bs []scheduling.BillableBooking) {
+	// Sorted by small keys, then moved once: a billable booking is a few hundred bytes,
+	// and swapping those was most of the sort's time.
+	type key struct {
+		start int64 // Unix microseconds: the database's resolution
+		id    string
+		i     int
+	}
+	keys := make([]key, len(bs))
+	for i, b := range bs {
+		keys[i] = key{b.Booking.Start.UnixMicro(), b.Booking.ID, i}
+	}
+	slices.SortFunc(keys, func(x, y key) int { return cmp.Or(cmp.Compare(x.start, y.start), strings.Compare(x.id, y.id)) })
+	sorted := make([]scheduling.BillableBooking, len(bs))
+	for j, k := range keys {
+		sorted[j] = bs[k.i]
+	}
+	copy(bs, sorted)
+	for _, x := range bs {
+		if len(x.Usages) > 1 {
+			slices.SortFunc(x.Usages, func(u, v scheduling.Usage) int { return u.StartedAt.Compare(v.StartedAt) })
+		}
+	}
 }
 
 // adjustmentsAll reads the projects' adjustments made in [from, to), keyed by project.
@@ -411,9 +446,9 @@ FROM adjustments WHERE project_id = ANY($1::uuid[]) AND at >= $2 AND at < $3 ORD
 	return out, err
 }
 
-// encodedStatement is a draft ready to store: its record, the row's JSON columns and
-// its ledger event (create for a new statement, correct for a recomputed one), whose
-// state is the record with every line; seq is the event's, once stored.
+// encodedStatement is a draft ready to store: its record without lines, the row's
+// JSON columns and its ledger event (create for a new statement, correct for a
+// recomputed one), whose state is the record with every line.
 type encodedStatement struct {
 	rec                                         scheduling.StatementRecord
 	created                                     bool
@@ -423,18 +458,13 @@ type encodedStatement struct {
 	unchanged                                   bool              // a draft recomputed as stored: nothing to write
 }
 
-func encodeStatement(rec scheduling.StatementRecord, created bool, actor string, now time.Time) (encodedStatement, error) {
+func encodeStatement(st scheduling.Statement, created bool, actor string, now time.Time) (encodedStatement, error) {
+	rec := st.Summary()
 	e := encodedStatement{rec: rec, created: created}
-	perInstrument := map[string]int64{}
-	for _, l := range rec.Lines {
-		if l.InstrumentID != "" {
-			perInstrument[l.InstrumentID] += l.AmountMinor
-		}
-	}
 	for _, f := range []struct {
 		dst *string
 		v   any
-	}{{&e.components, rec.ComponentTotals}, {&e.accountTotals, rec.AccountTotals}, {&e.instrumentTotals, perInstrument}} {
+	}{{&e.components, rec.ComponentTotals}, {&e.accountTotals, rec.AccountTotals}, {&e.instrumentTotals, st.InstrumentTotals()}} {
 		b, err := json.Marshal(f.v)
 		if err != nil {
 			return e, err
@@ -446,7 +476,7 @@ func encodeStatement(rec scheduling.StatementRecord, created bool, actor string,
 		action = provenance.ActionCorrect
 	}
 	var err error
-	if e.event, err = provenance.NewLedgerEvent(actor, action, provenance.EntityStatement, rec.ID, now, rec); err != nil {
+	if e.event, err = provenance.NewLedgerEvent(actor, action, provenance.EntityStatement, rec.ID, now, st); err != nil {
 		return e, err
 	}
 	e.digest = sha256.Sum256(e.event.State)
