@@ -32,26 +32,48 @@ func accountClass(a *FundingAccount, project accounts.RateClass) accounts.RateCl
 // remainder to the accounts in order. Accounts missing from accounts are priced at the
 // project's class. Errors are ComputeCharges', such as "rate_schedule_in_force".
 func EstimateShares(b Booking, split []FundingShare, accts []FundingAccount, pr EstimatePricing) (map[string]int64, error) {
-	out := make(map[string]int64, len(split))
-	if b.Kind == KindService || len(split) == 0 {
-		return out, nil
-	}
 	p := pr.Policy
 	p.Basis = BasisBooked
 	b.Status, b.CancelledAt = StatusActive, nil
+	return estimateShares(ChargeInput{Booking: b}, split, accts, pr.ProjectClass, pr.Schedules, p)
+}
+
+// EstimateCancelledShares estimates what a cancelled booking will still post to each
+// funding account of its split: its late-cancellation charge, as ComputeCharges prices
+// it (booked time less rebookedMinutes others booked since, nothing when it was
+// cancelled in time or displaced by service under a policy that does not charge
+// that), split as EstimateShares splits.
+func EstimateCancelledShares(b Booking, rebookedMinutes int, displacedByService bool, split []FundingShare, accts []FundingAccount,
+	pr EstimatePricing) (map[string]int64, error) {
+	if b.Status != StatusCancelled || b.CancelledAt == nil {
+		return nil, beamledger.InvalidField("status", "only a cancelled booking has a cancellation charge")
+	}
+	in := ChargeInput{Booking: b, RebookedMinutes: rebookedMinutes, DisplacedByService: displacedByService}
+	return estimateShares(in, split, accts, pr.ProjectClass, pr.Schedules, pr.Policy)
+}
+
+// estimateShares prices in at each rate class the split's accounts take and returns
+// each account's share.
+func estimateShares(in ChargeInput, split []FundingShare, accts []FundingAccount, project accounts.RateClass,
+	schedules []RateSchedule, p BillingPolicy) (map[string]int64, error) {
+	out := make(map[string]int64, len(split))
+	if in.Booking.Kind == KindService || len(split) == 0 {
+		return out, nil
+	}
 	classOf := func(id string) accounts.RateClass {
 		i := slices.IndexFunc(accts, func(a FundingAccount) bool { return a.ID == id })
 		if i < 0 {
-			return pr.ProjectClass
+			return project
 		}
-		return accountClass(&accts[i], pr.ProjectClass)
+		return accountClass(&accts[i], project)
 	}
 	priced := map[accounts.RateClass][]Allocation{}
 	for _, sh := range split {
 		class := classOf(sh.AccountID)
 		allocs, ok := priced[class]
 		if !ok {
-			lines, err := ComputeCharges(ChargeInput{Booking: b, RateClass: class}, pr.Schedules, p)
+			in.RateClass = class
+			lines, err := ComputeCharges(in, schedules, p)
 			if err != nil {
 				return nil, err
 			}

@@ -4,6 +4,7 @@ import (
 	"errors"
 	"maps"
 	"testing"
+	"time"
 
 	"beamledger"
 	"beamledger/accounts"
@@ -68,5 +69,42 @@ func TestCheckFundingCapsRefusesOnlyAddedCost(t *testing.T) {
 	check.Accounts[0].CapMinor, check.Pricing.Schedules = 0, nil
 	if err := CheckFundingCaps(check); err != nil {
 		t.Errorf("uncapped: %v", err)
+	}
+}
+
+// TestEstimateCancelledSharesCountsLateCancellation: a booking cancelled late still
+// commits its late-cancellation charge to its accounts; one cancelled in time, or
+// displaced by service, commits nothing.
+func TestEstimateCancelledSharesCountsLateCancellation(t *testing.T) {
+	split := []FundingShare{{"grant", 5000}, {"centre", 3000}, {"dept", 2000}}
+	accts := []FundingAccount{{ID: "grant", RateClass: accounts.RateExternalAcademic}, {ID: "centre"}, {ID: "dept"}}
+	pr := EstimatePricing{ProjectClass: accounts.RateInternal, Schedules: []RateSchedule{classSchedule()}, Policy: refPolicy()}
+	cancelled := func(hoursAhead int) Booking {
+		b := booking("b", KindIndependent, berlin(t, 2, 9, 0), berlin(t, 2, 12, 0))
+		at := b.Start.Add(-time.Duration(hoursAhead) * time.Hour)
+		b.Status, b.CancelledAt = StatusCancelled, &at
+		return b
+	}
+	// [constructed] REFERENCE §3's default policy: cancelled 10 h ahead (inside 24 h),
+	// 3 h booked less 1 h 10 min rebooked = 1 h 50 min, rounded up to 15 min = 2 h:
+	// external 434.00 × 50 % = 217.00 to the grant; internal 240.00 × 30 % / 20 % =
+	// 72.00 / 48.00.
+	got, err := EstimateCancelledShares(cancelled(10), 70, false, split, accts, pr)
+	want := map[string]int64{"grant": 21700, "centre": 7200, "dept": 4800}
+	if err != nil || !maps.Equal(got, want) {
+		t.Errorf("late cancellation %v %v, want %v", got, err, want)
+	}
+	for name, tc := range map[string]struct {
+		hoursAhead int
+		displaced  bool
+	}{"cancelled in time": {30, false}, "displaced by service": {10, true}} {
+		got, err := EstimateCancelledShares(cancelled(tc.hoursAhead), 0, tc.displaced, split, accts, pr)
+		if err != nil || got["grant"] != 0 || got["centre"] != 0 || got["dept"] != 0 {
+			t.Errorf("%s: %v %v, want nothing", name, got, err)
+		}
+	}
+	active := booking("a", KindIndependent, berlin(t, 2, 9, 0), berlin(t, 2, 12, 0))
+	if _, err := EstimateCancelledShares(active, 0, false, split, accts, pr); !errors.Is(err, beamledger.ErrInvalid) {
+		t.Errorf("an active booking: %v, want invalid", err)
 	}
 }

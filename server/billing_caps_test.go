@@ -101,3 +101,31 @@ func TestFundingCapRefusesBookings(t *testing.T) {
 	}
 	w.expect(http.StatusOK, http.MethodPut, "/api/v1/bookings/"+d+"/funding", manager, only(openID), nil)
 }
+
+// TestFundingCapCountsLateCancellation: a booking cancelled late still commits its
+// late-cancellation charge to a capped account until a statement is issued, so the
+// room it leaves is only what the cancellation does not charge.
+func TestFundingCapCountsLateCancellation(t *testing.T) {
+	w := newWorld(t)
+	w.moveClock(at(2026, 2, 16, 9, 0))
+	w.capSetup(30000)
+	researcher := w.tokens[accounts.RoleResearcher]
+	independent := func(start, end time.Time) map[string]any {
+		return w.bookingBody(start, end, scheduling.KindIndependent)
+	}
+	// [constructed] at 120.00/h, half to CAP-1 (cap 300.00): 3 h → 180.00; 1 h → 60.00.
+	w.book(accounts.RoleResearcher, independent(at(2026, 3, 2, 9, 0), at(2026, 3, 2, 12, 0)))
+	b := w.book(accounts.RoleResearcher, independent(at(2026, 3, 3, 9, 0), at(2026, 3, 3, 10, 0)))
+	// Cancelled 4 h before its start, inside REFERENCE §3's 24 h window: [constructed]
+	// the booked hour is still charged, 120.00 → 60.00 on CAP-1, so 240.00 stays
+	// committed and a 1.5 h booking (90.00) would pass the cap.
+	w.moveClock(at(2026, 3, 3, 5, 0))
+	researcher = w.tokens[accounts.RoleResearcher]
+	w.expect(http.StatusOK, http.MethodPost, "/api/v1/bookings/"+b+"/cancel", researcher, map[string]string{"reason": "sample broke"}, nil)
+	r := w.expect(http.StatusUnprocessableEntity, http.MethodPost, "/api/v1/bookings", researcher, independent(at(2026, 3, 4, 9, 0), at(2026, 3, 4, 10, 30)), nil)
+	if !contains(r.Body, `"rule":"funding_cap"`) || !contains(r.Body, "24000 charged and committed") {
+		t.Errorf("booking past the cap with a late cancellation committed: %s", r.Body)
+	}
+	// [constructed] 30 min → the 1 h minimum → 60.00: 300.00 is exactly the cap.
+	w.book(accounts.RoleResearcher, independent(at(2026, 3, 4, 9, 0), at(2026, 3, 4, 9, 30)))
+}

@@ -18,7 +18,8 @@ import (
 // accounts first, so two bookings on one account are judged one after the other and
 // cannot both take its last room. What an account has used is what issued statements
 // charged to it plus the estimates of the project's other active bookings not on an
-// issued statement (charged at their booked time under the policy in force).
+// issued statement (charged at their booked time under the policy in force) and the
+// late-cancellation charges of its cancelled ones not yet issued either.
 func checkFundingCaps(ctx context.Context, tx pgx.Tx, b scheduling.Booking, previous *scheduling.Booking) error {
 	accts, err := fundingAccounts(ctx, tx, b.ProjectID)
 	if err != nil {
@@ -113,17 +114,20 @@ GROUP BY 1`
 }
 
 // committedToAccounts adds to used, per account, the estimated shares of the project's
-// active bookings (booking excludeID left out) that no issued statement has charged
-// yet: those starting in a period without an issued statement of the project. A
-// booking that cannot be priced (no rate schedule in force over it) commits nothing.
+// bookings (booking excludeID left out) that no issued statement has charged yet:
+// those starting in a period without an issued statement of the project. An active
+// booking commits its booked time; a cancelled one its late-cancellation charge, if
+// any (less what others rebooked since). A booking that cannot be priced (no rate
+// schedule in force over it) commits nothing.
 func committedToAccounts(ctx context.Context, q querier, projectID, excludeID string, projectSplit []scheduling.FundingShare,
 	accts []scheduling.FundingAccount, pricing func(string) scheduling.EstimatePricing, used map[string]int64) error {
 	const sql = `
-SELECT b.id::text, b.instrument_id::text, b.kind, lower(b.during), upper(b.during),
+SELECT b.id::text, b.instrument_id::text, b.kind, lower(b.during), upper(b.during), b.status, b.cancelled_at,
+       b.displaced_by IS NOT NULL, ` + rebookedMinutes + `,
        (SELECT json_agg(json_build_object('account_id', f.account_id, 'basis_points', f.basis_points) ORDER BY f.position)
         FROM booking_funding f WHERE f.booking_id = b.id)
 FROM bookings b
-WHERE b.project_id = $1 AND b.status = 'active' AND b.kind <> 'service' AND b.id::text <> $2
+WHERE b.project_id = $1 AND b.kind <> 'service' AND b.id::text <> $2
   AND NOT EXISTS (SELECT 1 FROM statements s WHERE s.project_id = b.project_id AND s.status = 'issued'
                   AND lower(b.during) >= s.period_start AND lower(b.during) < s.period_end)`
 	rows, err := q.Query(ctx, sql, projectID, excludeID)
@@ -131,11 +135,14 @@ WHERE b.project_id = $1 AND b.status = 'active' AND b.kind <> 'service' AND b.id
 		return err
 	}
 	var b scheduling.Booking
-	var kind string
+	var kind, status string
 	var start, end time.Time
+	var displaced bool
+	var rebooked int64
 	var own []byte
-	_, err = pgx.ForEachRow(rows, []any{&b.ID, &b.InstrumentID, &kind, &start, &end, &own}, func() error {
+	_, err = pgx.ForEachRow(rows, []any{&b.ID, &b.InstrumentID, &kind, &start, &end, &status, &b.CancelledAt, &displaced, &rebooked, &own}, func() error {
 		b.Kind, b.Start, b.End, b.ProjectID = scheduling.BookingKind(kind), start.UTC(), end.UTC(), projectID
+		b.Status = scheduling.BookingStatus(status)
 		split := projectSplit
 		if len(own) > 0 {
 			split = nil
@@ -143,7 +150,13 @@ WHERE b.project_id = $1 AND b.status = 'active' AND b.kind <> 'service' AND b.id
 				return err
 			}
 		}
-		est, err := scheduling.EstimateShares(b, split, accts, pricing(b.InstrumentID))
+		var est map[string]int64
+		var err error
+		if b.Status == scheduling.StatusCancelled {
+			est, err = scheduling.EstimateCancelledShares(b, int(rebooked), displaced, split, accts, pricing(b.InstrumentID))
+		} else {
+			est, err = scheduling.EstimateShares(b, split, accts, pricing(b.InstrumentID))
+		}
 		if err != nil {
 			return nil // not priceable yet: nothing committed at known rates
 		}

@@ -293,6 +293,16 @@ WHERE project_id = ANY($1::uuid[]) ORDER BY project_id, position`, projectIDs)
 	return out, err
 }
 
+// rebookedMinutes is, for a booking b of the query, the minutes of its range that
+// active bookings made since its cancellation took (0 unless it was cancelled): what
+// a late cancellation is not charged for. Active bookings of one instrument never
+// overlap, so the sum is their union.
+const rebookedMinutes = `CASE WHEN b.status = 'cancelled' THEN coalesce((
+           SELECT sum(extract(epoch FROM upper(b.during * c.during) - lower(b.during * c.during)))::bigint / 60
+           FROM bookings c
+           WHERE c.instrument_id = b.instrument_id AND c.status = 'active' AND c.kind <> 'service' AND c.id <> b.id
+             AND c.during && b.during AND c.created_at >= b.cancelled_at), 0) ELSE 0 END`
+
 // billableBookingsAll reads the projects' bookings starting in [from, to), keyed by
 // project in no particular order (sortBillable orders them), each with its usage,
 // no-show mark, displacement, the minutes of a cancelled booking others booked
@@ -304,12 +314,7 @@ func billableBookingsAll(ctx context.Context, q querier, projectIDs []string, fr
 	// month of rows in the database cost more than sorting each project's in Go).
 	const sql = `
 SELECT b.project_id, b.id, b.instrument_id, b.user_id, b.kind, lower(b.during), upper(b.during), b.status, b.cancelled_at,
-       b.displaced_by IS NOT NULL, n.booking_id IS NOT NULL,
-       CASE WHEN b.status = 'cancelled' THEN coalesce((
-           SELECT sum(extract(epoch FROM upper(b.during * c.during) - lower(b.during * c.during)))::bigint / 60
-           FROM bookings c
-           WHERE c.instrument_id = b.instrument_id AND c.status = 'active' AND c.kind <> 'service' AND c.id <> b.id
-             AND c.during && b.during AND c.created_at >= b.cancelled_at), 0) ELSE 0 END,
+       b.displaced_by IS NOT NULL, n.booking_id IS NOT NULL, ` + rebookedMinutes + `,
        u.started_at, u.ended_at
 FROM bookings b
 LEFT JOIN no_shows n ON n.booking_id = b.id
