@@ -150,6 +150,32 @@ type Instrument struct {
 
 var instrumentCode = regexp.MustCompile(`^[A-Z0-9][A-Z0-9-]{1,31}$`)
 
+// Capabilities are what an instrument can do, as a manager edits them after it was
+// made: its name, kind, location, accelerating voltages, corrector and detectors. Its
+// code, whether it is bookable and its condition limits are set apart.
+type Capabilities struct {
+	Name                  string         `json:"name"`
+	Kind                  InstrumentKind `json:"kind"`
+	Location              string         `json:"location"`
+	AcceleratingVoltagesV []float64      `json:"accelerating_voltages_v"`
+	Corrector             Corrector      `json:"corrector"`
+	Detectors             []Detector     `json:"detectors"`
+}
+
+// WithCapabilities is the instrument with c in place of its capabilities, checked and
+// normalized as Normalize does for a new one.
+func (in Instrument) WithCapabilities(c Capabilities) (Instrument, error) {
+	in.Name, in.Kind, in.Location, in.Corrector = c.Name, c.Kind, c.Location, c.Corrector
+	in.AcceleratingVoltagesV, in.Detectors = slices.Clone(c.AcceleratingVoltagesV), slices.Clone(c.Detectors)
+	if in.AcceleratingVoltagesV == nil {
+		in.AcceleratingVoltagesV = []float64{}
+	}
+	if in.Detectors == nil {
+		in.Detectors = []Detector{}
+	}
+	return in, in.Normalize()
+}
+
 // Normalize canonicalises and checks an instrument before it is created; ID and
 // timestamps are ignored.
 func (in *Instrument) Normalize() error {
@@ -208,6 +234,10 @@ type InstrumentStore interface {
 	// SetInstrumentBookable opens an instrument to bookings or closes it, and returns
 	// the instrument. Bookings already made stay. ErrNotFound when there is none.
 	SetInstrumentBookable(ctx context.Context, id string, bookable bool) (Instrument, error)
+	// SetInstrumentCapabilities stores in's capabilities (see Capabilities) over those
+	// of the instrument with in's id, detectors replaced as a whole, and returns it.
+	// ErrNotFound when there is none.
+	SetInstrumentCapabilities(ctx context.Context, in Instrument) (Instrument, error)
 	// InstrumentByCode returns one instrument by its code. ErrNotFound when none.
 	InstrumentByCode(ctx context.Context, code string) (Instrument, error)
 	// Instruments lists instruments ordered by code.

@@ -168,6 +168,10 @@ var routeMatrix = map[string]routeExpectation{
 	"PUT /api/v1/instruments/:instrument_id/bookable": {who: managerOnly, strict: true, body: func(*world) any {
 		return map[string]any{"bookable": true}
 	}},
+	"PUT /api/v1/instruments/:instrument_id/capabilities": {who: managerOnly, strict: true, body: func(w *world) any {
+		return map[string]any{"name": w.instr.Name, "kind": w.instr.Kind, "location": w.instr.Location,
+			"accelerating_voltages_v": w.instr.AcceleratingVoltagesV, "corrector": w.instr.Corrector, "detectors": w.instr.Detectors}
+	}},
 	"GET /api/v1/instruments/:instrument_id/agent-tokens": {who: access{wUnauth, wAllow, wAllow, wDeny, wDeny, wDeny}},
 	"POST /api/v1/instruments/:instrument_id/agent-tokens": {who: managerOnly, body: func(*world) any {
 		return map[string]any{"name": "second-pc", "scopes": []string{"instrument:read"}}

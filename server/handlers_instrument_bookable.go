@@ -6,6 +6,7 @@ import (
 	"github.com/labstack/echo/v4"
 
 	"beamledger"
+	"beamledger/scheduling"
 )
 
 type bookableInput struct {
@@ -27,4 +28,29 @@ func (s *Server) handleInstrumentBookableSet(c echo.Context) error {
 		return err
 	}
 	return c.JSON(http.StatusOK, in)
+}
+
+// handleInstrumentCapabilitiesSet replaces an instrument's capabilities (name, kind,
+// location, accelerating voltages, corrector, detectors). Acquisitions already
+// recorded keep the conditions they were recorded with; new ones are checked against
+// the new capabilities.
+func (s *Server) handleInstrumentCapabilitiesSet(c echo.Context) error {
+	var req scheduling.Capabilities
+	if err := bind(c, &req); err != nil {
+		return err
+	}
+	ctx := c.Request().Context()
+	cur, err := s.store.Instrument(ctx, c.Param("instrument_id"))
+	if err != nil {
+		return err
+	}
+	next, err := cur.WithCapabilities(req)
+	if err != nil {
+		return err
+	}
+	out, err := s.store.SetInstrumentCapabilities(ctx, next)
+	if err != nil {
+		return err
+	}
+	return c.JSON(http.StatusOK, out)
 }

@@ -2,6 +2,7 @@ package server
 
 import (
 	"net/http"
+	"slices"
 	"testing"
 	"time"
 
@@ -34,6 +35,36 @@ func exerciseInstrumentBookable(t *testing.T, w *world) {
 	if !got.Bookable {
 		t.Errorf("reopened instrument not bookable: %+v", got)
 	}
+}
+
+// exerciseInstrumentCapabilities edits a new instrument's capabilities: the new ones
+// are stored and read back, detectors replaced as a whole; bad values are named; the
+// code cannot be changed this way.
+func exerciseInstrumentCapabilities(t *testing.T, w *world) {
+	manager := w.tokens[accounts.RoleManager]
+	var in scheduling.Instrument
+	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/instruments", manager, map[string]any{"code": "CAP-TEM", "name": "Old TEM", "kind": "tem",
+		"accelerating_voltages_v": []float64{200e3}, "detectors": []map[string]any{{"name": "CCD", "kind": "camera"}}}, &in)
+	path := "/api/v1/instruments/" + in.ID + "/capabilities"
+	body := map[string]any{"name": "Upgraded STEM", "kind": "stem", "location": "Hall 2", "accelerating_voltages_v": []float64{300e3, 80e3, 300e3},
+		"corrector": "probe", "detectors": []map[string]any{{"name": "HAADF", "kind": "annular", "inner_radius_m": 0.004, "outer_radius_m": 0.012}}}
+	var got scheduling.Instrument
+	w.expect(http.StatusOK, http.MethodPut, path, manager, body, &got)
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/instruments/"+in.ID, w.tokens[accounts.RoleResearcher], nil, &got)
+	if got.Code != "CAP-TEM" || got.Name != "Upgraded STEM" || got.Kind != scheduling.KindSTEM || got.Location != "Hall 2" ||
+		!slices.Equal(got.AcceleratingVoltagesV, []float64{80e3, 300e3}) || got.Corrector != scheduling.CorrectorProbe ||
+		len(got.Detectors) != 1 || got.Detectors[0].Name != "HAADF" || got.Bookable != in.Bookable {
+		t.Errorf("instrument after the edit %+v", got)
+	}
+	bad := map[string]any{"name": " ", "kind": "stem", "accelerating_voltages_v": []float64{300}, "detectors": []map[string]any{}}
+	if r := w.expect(http.StatusBadRequest, http.MethodPut, path, manager, bad, nil); !fieldNamed(r, "name") || !contains(r.Body, "accelerating_voltages_v") {
+		t.Errorf("bad capabilities not named: %s", r.Body)
+	}
+	body["code"] = "NEW-CODE"
+	w.expect(http.StatusBadRequest, http.MethodPut, path, manager, body, nil)
+	delete(body, "code")
+	w.expect(http.StatusForbidden, http.MethodPut, path, w.tokens[accounts.RoleStaff], body, nil)
+	w.expect(http.StatusNotFound, http.MethodPut, "/api/v1/instruments/"+uuid.NewString()+"/capabilities", manager, body, nil)
 }
 
 // TestServiceRangeReversed: service time that ends before it starts is refused naming

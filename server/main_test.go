@@ -281,6 +281,7 @@ func TestOpenAPIExamplesExercise(t *testing.T) {
 	exerciseProjects(t, w)
 	exerciseInstruments(t, w)
 	exerciseInstrumentBookable(t, w)
+	exerciseInstrumentCapabilities(t, w)
 	exerciseBookings(t, w)
 	exerciseUsage(t, w)
 	exerciseFeeds(t, w)

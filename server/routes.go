@@ -52,6 +52,7 @@ func (s *Server) routes() error {
 	add(http.MethodGet, v1+"/instruments/:instrument_id", usersOrAgent(accounts.ScopeInstrumentRead, everyone...), s.handleInstrumentGet)
 	add(http.MethodPut, v1+"/instruments/:instrument_id/condition-limits", users(facilityOps...), s.handleConditionLimitsSet)
 	add(http.MethodPut, v1+"/instruments/:instrument_id/bookable", users(managers...), s.handleInstrumentBookableSet)
+	add(http.MethodPut, v1+"/instruments/:instrument_id/capabilities", users(managers...), s.handleInstrumentCapabilitiesSet)
 	add(http.MethodGet, v1+"/instruments/:instrument_id/agent-tokens", users(facilityOps...), s.handleAgentTokenList)
 	add(http.MethodPost, v1+"/instruments/:instrument_id/agent-tokens", users(managers...), s.handleAgentTokenCreate)
 	add(http.MethodDelete, v1+"/instruments/:instrument_id/agent-tokens/:token_id", users(managers...), s.handleAgentTokenRevoke)

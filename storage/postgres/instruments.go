@@ -48,11 +48,8 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10) RETURNING id::text`
 			volts, string(in.Corrector), in.CameraLengthMinM, in.CameraLengthMaxM, string(in.ConditionChecks)).Scan(&id); err != nil {
 			return err
 		}
-		for i, d := range in.Detectors {
-			const dq = `INSERT INTO detectors (instrument_id, name, kind, inner_radius_m, outer_radius_m, position) VALUES ($1, $2, $3, $4, $5, $6)`
-			if _, err := tx.Exec(ctx, dq, id, d.Name, string(d.Kind), d.InnerRadiusM, d.OuterRadiusM, i); err != nil {
-				return err
-			}
+		if err := insertDetectors(ctx, tx, id, in.Detectors); err != nil {
+			return err
 		}
 		var err error
 		out, err = scanInstrument(tx.QueryRow(ctx, instrumentSelect+` WHERE i.id = $1`, id))
@@ -102,6 +99,46 @@ func (db *DB) SetInstrumentBookable(ctx context.Context, id string, bookable boo
 		return scheduling.Instrument{}, mapError(err, "instrument")
 	}
 	return db.Instrument(ctx, id)
+}
+
+// SetInstrumentCapabilities implements scheduling.InstrumentStore.
+func (db *DB) SetInstrumentCapabilities(ctx context.Context, in scheduling.Instrument) (scheduling.Instrument, error) {
+	if !accounts.ValidID(in.ID) {
+		return scheduling.Instrument{}, beamledger.NotFound("instrument")
+	}
+	var out scheduling.Instrument
+	err := pgx.BeginFunc(ctx, db.pool, func(tx pgx.Tx) error {
+		const q = `
+UPDATE instruments SET name = $2, kind = $3, location = $4, accelerating_voltages_v = $5, corrector = $6, updated_at = now()
+WHERE id = $1`
+		tag, err := tx.Exec(ctx, q, in.ID, in.Name, string(in.Kind), in.Location, in.AcceleratingVoltagesV, string(in.Corrector))
+		if err != nil {
+			return err
+		}
+		if tag.RowsAffected() == 0 {
+			return beamledger.NotFound("instrument")
+		}
+		if _, err := tx.Exec(ctx, `DELETE FROM detectors WHERE instrument_id = $1`, in.ID); err != nil {
+			return err
+		}
+		if err := insertDetectors(ctx, tx, in.ID, in.Detectors); err != nil {
+			return err
+		}
+		out, err = scanInstrument(tx.QueryRow(ctx, instrumentSelect+` WHERE i.id = $1`, in.ID))
+		return err
+	})
+	return out, mapError(err, "instrument")
+}
+
+// insertDetectors writes an instrument's detectors in their order.
+func insertDetectors(ctx context.Context, tx pgx.Tx, instrumentID string, ds []scheduling.Detector) error {
+	for i, d := range ds {
+		const q = `INSERT INTO detectors (instrument_id, name, kind, inner_radius_m, outer_radius_m, position) VALUES ($1, $2, $3, $4, $5, $6)`
+		if _, err := tx.Exec(ctx, q, instrumentID, d.Name, string(d.Kind), d.InnerRadiusM, d.OuterRadiusM, i); err != nil {
+			return err
+		}
+	}
+	return nil
 }
 
 // InstrumentByCode implements scheduling.InstrumentStore.
