@@ -180,7 +180,8 @@ func (s *Server) handleStartPage(c echo.Context, me accounts.Principal, pg web.P
 	}
 	for _, a := range as {
 		d.Acquisitions = append(d.Acquisitions, web.StartAcquisition{ID: a.ID, When: a.StartedAt.In(n.loc).Format("Mon 2 Jan 15:04"),
-			Instrument: n.instruments[a.InstrumentID], Project: n.project(ctx, a.ProjectID)})
+			Instrument: n.instruments[a.InstrumentID], Project: n.project(ctx, a.ProjectID),
+			Correctable: me.FacilityWide() || a.UserID == me.UserID})
 	}
 	return s.render(c, http.StatusOK, "start", "layout", d)
 }

@@ -33,6 +33,8 @@ type StartProject struct {
 // StartAcquisition is one recent acquisition in the user's projects.
 type StartAcquisition struct {
 	ID, When, Instrument, Project, Voltage string
+	// Correctable: the viewer may correct it (their own, or anyone's for staff).
+	Correctable bool
 }
 
 // CalendarData is an instrument's day or week, or the facility's day.

@@ -3,6 +3,7 @@ package browsertest
 import (
 	"encoding/json"
 	"net/http"
+	"strings"
 	"testing"
 	"time"
 
@@ -20,9 +21,24 @@ func TestCorrectAcquisition(t *testing.T) {
 	s := newSite(t)
 	ctx := newBrowser(t)
 	s.signIn(t, ctx, accounts.RoleResearcher)
-	run(t, ctx, "open the form", chromedp.Navigate(s.url+"/acquire"), chromedp.WaitVisible(css("#cor-form")))
+	// From the overview, each recent acquisition of their own links to its correction:
+	// the oldest listed opens with it chosen (not merely the form's default), and the
+	// newest is the one corrected below.
+	run(t, ctx, "open the overview", chromedp.Navigate(s.url+"/"), chromedp.WaitVisible(css("#my-acquisitions a.correct")))
+	links := eval[[]string](t, ctx, "correction links", `[...document.querySelectorAll("#my-acquisitions a.correct")].map((a) => a.href)`)
+	if len(links) < 2 {
+		t.Fatalf("%d correction links on the overview, want the demo's several", len(links))
+	}
+	run(t, ctx, "follow the oldest", chromedp.Navigate(links[len(links)-1]), chromedp.WaitVisible(css("#cor-form")))
+	if id := eval[string](t, ctx, "chosen acquisition", `document.querySelector("#cor-acq").value`); !strings.Contains(links[len(links)-1], "correct="+id) {
+		t.Errorf("the link %s opened the form on %s", links[len(links)-1], id)
+	}
+	run(t, ctx, "follow the newest", chromedp.Navigate(links[0]), chromedp.WaitVisible(css("#cor-form")))
 	waitText(t, ctx, "#cor-kept", "Version 1", 10*time.Second)
 	id := eval[string](t, ctx, "chosen acquisition", `document.querySelector("#cor-acq").value`)
+	if !strings.Contains(links[0], "correct="+id) {
+		t.Fatalf("the link %s opened the form on %s", links[0], id)
+	}
 	if v := eval[string](t, ctx, "voltage", `document.querySelector("#cor-accelerating_voltage").value`); v == "" {
 		t.Fatal("the recorded accelerating voltage is not shown")
 	}
