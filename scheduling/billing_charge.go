@@ -335,18 +335,7 @@ func mergeSpans(usages []Usage, now time.Time) []Interval {
 			spans = append(spans, s)
 		}
 	}
-	slices.SortFunc(spans, compareInterval)
-	var out []Interval
-	for _, s := range spans {
-		if n := len(out); n > 0 && !s.Start.After(out[n-1].End) {
-			if s.End.After(out[n-1].End) {
-				out[n-1].End = s.End
-			}
-			continue
-		}
-		out = append(out, s)
-	}
-	return out
+	return mergeIntervals(spans)
 }
 
 // spansLength is the elapsed time of spans that do not overlap.

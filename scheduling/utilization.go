@@ -171,7 +171,7 @@ func Utilization(instrumentID string, from, to time.Time, loc *time.Location, op
 		totals(projects, t.ProjectID).add(t)
 	}
 	r.UtilizationFigures = all.figures()
-	for _, s := range mergeIntervals(sums.Service) {
+	for _, s := range mergeIntervals(slices.Clone(sums.Service)) {
 		r.ServiceMinutes += MinutesInside(opening, s.Start, s.End, loc)
 	}
 	r.AvailableMinutes = max(r.OpeningMinutes-r.ServiceMinutes, 0)
@@ -207,9 +207,8 @@ func totals[K comparable](m map[K]*UtilizationTotals, k K) *UtilizationTotals {
 	return m[k]
 }
 
-// mergeIntervals is the union of intervals, in time order.
+// mergeIntervals is the union of intervals, in time order. It sorts ivs in place.
 func mergeIntervals(ivs []Interval) []Interval {
-	ivs = slices.Clone(ivs)
 	slices.SortFunc(ivs, compareInterval)
 	var out []Interval
 	for _, s := range ivs {

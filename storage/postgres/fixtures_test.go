@@ -126,3 +126,15 @@ func fundedProject(t *testing.T, db *postgres.DB, mgr, pi accounts.User, code st
 	}
 	return p
 }
+
+// mustBook books [start, end) of instrument for project as an independent booking by
+// user, with every rule passed, and returns its id.
+func mustBook(t *testing.T, db *postgres.DB, instrument, project, user string, start, end time.Time) string {
+	t.Helper()
+	b, err := db.CreateBooking(context.Background(), scheduling.NewBooking{InstrumentID: instrument, ProjectID: project, UserID: user,
+		Kind: scheduling.KindIndependent, Start: start, End: end, Actor: user}, t0, func(scheduling.BookingContext) error { return nil })
+	if err != nil {
+		t.Fatal(err)
+	}
+	return b.ID
+}

@@ -32,13 +32,7 @@ func TestUtilizationSumsCountEveryUsage(t *testing.T) {
 	other := mustCreateInstrument(t, db, "TEM-2")
 	p := mustCreateProject(t, db, "P-1", pi.ID)
 	book := func(instrument string, start time.Time) string {
-		b, err := db.CreateBooking(ctx, scheduling.NewBooking{InstrumentID: instrument, ProjectID: p.ID, UserID: pi.ID,
-			Kind: scheduling.KindIndependent, Start: start, End: start.Add(time.Hour), Actor: pi.ID}, t0,
-			func(scheduling.BookingContext) error { return nil })
-		if err != nil {
-			t.Fatal(err)
-		}
-		return b.ID
+		return mustBook(t, db, instrument, p.ID, pi.ID, start, start.Add(time.Hour))
 	}
 	day := from.Add(9 * time.Hour)
 	twice, open := book(in.ID, day), book(in.ID, day.Add(2*time.Hour))
@@ -96,29 +90,24 @@ func TestCheckInFollowsTheLastCheckOut(t *testing.T) {
 	_, pi, in := billingFacility(t, db, from)
 	p := mustCreateProject(t, db, "P-1", pi.ID)
 	start := from.Add(9 * time.Hour)
-	b, err := db.CreateBooking(ctx, scheduling.NewBooking{InstrumentID: in.ID, ProjectID: p.ID, UserID: pi.ID,
-		Kind: scheduling.KindIndependent, Start: start, End: start.Add(2 * time.Hour), Actor: pi.ID}, t0,
-		func(scheduling.BookingContext) error { return nil })
-	if err != nil {
+	b := mustBook(t, db, in.ID, p.ID, pi.ID, start, start.Add(2*time.Hour))
+	if _, err := db.CheckIn(ctx, b, start, pi.ID, scheduling.SourceUser); err != nil {
 		t.Fatal(err)
 	}
-	if _, err := db.CheckIn(ctx, b.ID, start, pi.ID, scheduling.SourceUser); err != nil {
+	if _, err := db.CheckOut(ctx, b, start.Add(time.Hour), pi.ID); err != nil {
 		t.Fatal(err)
 	}
-	if _, err := db.CheckOut(ctx, b.ID, start.Add(time.Hour), pi.ID); err != nil {
-		t.Fatal(err)
-	}
-	_, err = db.CheckIn(ctx, b.ID, start.Add(59*time.Minute), pi.ID, scheduling.SourceAgent)
+	_, err := db.CheckIn(ctx, b, start.Add(59*time.Minute), pi.ID, scheduling.SourceAgent)
 	wantKind(t, err, beamledger.ErrInvalid)
 	if e := domainError(t, err); e.Fields["at"] == "" {
 		t.Fatalf("a check-in before the last check-out: %v, want a field error on at", err)
 	}
 	// Back to back is fine: the second usage starts where the first ended.
-	if _, err := db.CheckIn(ctx, b.ID, start.Add(time.Hour), pi.ID, scheduling.SourceAgent); err != nil {
+	if _, err := db.CheckIn(ctx, b, start.Add(time.Hour), pi.ID, scheduling.SourceAgent); err != nil {
 		t.Fatal(err)
 	}
 	var ordinals []int32
-	rows, err := conn.Query(ctx, `SELECT ordinal FROM usages WHERE booking_id = $1 ORDER BY started_at`, b.ID)
+	rows, err := conn.Query(ctx, `SELECT ordinal FROM usages WHERE booking_id = $1 ORDER BY started_at`, b)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -126,7 +115,7 @@ func TestCheckInFollowsTheLastCheckOut(t *testing.T) {
 		t.Errorf("ordinals %v (%v), want [1 2]", ordinals, err)
 	}
 	_, err = conn.Exec(ctx, `INSERT INTO usages (booking_id, ordinal, started_at, ended_at, started_by, source)
-VALUES ($1, 3, $2, $3, 'x', 'user')`, b.ID, start.Add(30*time.Minute), start.Add(40*time.Minute))
+VALUES ($1, 3, $2, $3, 'x', 'user')`, b, start.Add(30*time.Minute), start.Add(40*time.Minute))
 	if err == nil || !strings.Contains(err.Error(), "usages_no_overlap") {
 		t.Errorf("an overlapping usage written directly: %v, want usages_no_overlap to refuse it", err)
 	}
@@ -143,13 +132,7 @@ func TestUsageOrderMigrates(t *testing.T) {
 	var ids []string
 	for i := range 2 {
 		start := from.Add(time.Duration(9+3*i) * time.Hour)
-		b, err := db.CreateBooking(ctx, scheduling.NewBooking{InstrumentID: in.ID, ProjectID: p.ID, UserID: pi.ID,
-			Kind: scheduling.KindIndependent, Start: start, End: start.Add(2 * time.Hour), Actor: pi.ID}, t0,
-			func(scheduling.BookingContext) error { return nil })
-		if err != nil {
-			t.Fatal(err)
-		}
-		ids = append(ids, b.ID)
+		ids = append(ids, mustBook(t, db, in.ID, p.ID, pi.ID, start, start.Add(2*time.Hour)))
 	}
 	if err := db.MigrateTo(ctx, 12); err != nil {
 		t.Fatal(err)
