@@ -17,20 +17,36 @@ import (
 	"beamledger"
 	"beamledger/accounts"
 	"beamledger/scheduling"
+	"beamledger/storage/postgres"
 )
+
+// usageWorld is a billing facility in March 2031 with one project of the PI's.
+type usageWorld struct {
+	db   *postgres.DB
+	conn *pgx.Conn
+	from time.Time // 1 March 2031, UTC
+	pi   accounts.User
+	in   scheduling.Instrument
+	p    accounts.Project
+}
+
+func newUsageWorld(t *testing.T) usageWorld {
+	u := usageWorld{from: time.Date(2031, 3, 1, 0, 0, 0, 0, time.UTC)}
+	u.db, u.conn = openRaw(t)
+	_, u.pi, u.in = billingFacility(t, u.db, u.from)
+	u.p = mustCreateProject(t, u.db, "P-1", u.pi.ID)
+	return u
+}
 
 // TestUtilizationSumsCountEveryUsage reads a month with a booking used twice, one
 // still in use, one unused and one on another instrument, through the store's own
 // check-in and check-out: every usage counts once, on its own instrument, for the
 // facility-wide read and for one instrument's alike.
 func TestUtilizationSumsCountEveryUsage(t *testing.T) {
-	db, _ := openRaw(t)
-	ctx := context.Background()
-	from := time.Date(2031, 3, 1, 0, 0, 0, 0, time.UTC)
+	u := newUsageWorld(t)
+	db, ctx, from, pi, in, p := u.db, context.Background(), u.from, u.pi, u.in, u.p
 	to := from.AddDate(0, 1, 0)
-	_, pi, in := billingFacility(t, db, from)
 	other := mustCreateInstrument(t, db, "TEM-2")
-	p := mustCreateProject(t, db, "P-1", pi.ID)
 	book := func(instrument string, start time.Time) string {
 		return mustBook(t, db, instrument, p.ID, pi.ID, start, start.Add(time.Hour))
 	}
@@ -84,11 +100,8 @@ func TestUtilizationSumsCountEveryUsage(t *testing.T) {
 // check-in dated before the booking's last check-out is refused, naming "at", and the
 // database refuses overlapping usages written behind the store's back.
 func TestCheckInFollowsTheLastCheckOut(t *testing.T) {
-	db, conn := openRaw(t)
-	ctx := context.Background()
-	from := time.Date(2031, 3, 1, 0, 0, 0, 0, time.UTC)
-	_, pi, in := billingFacility(t, db, from)
-	p := mustCreateProject(t, db, "P-1", pi.ID)
+	u := newUsageWorld(t)
+	db, conn, ctx, from, pi, in, p := u.db, u.conn, context.Background(), u.from, u.pi, u.in, u.p
 	start := from.Add(9 * time.Hour)
 	b := mustBook(t, db, in.ID, p.ID, pi.ID, start, start.Add(2*time.Hour))
 	if _, err := db.CheckIn(ctx, b, start, pi.ID, scheduling.SourceUser); err != nil {
@@ -124,11 +137,8 @@ VALUES ($1, 3, $2, $3, 'x', 'user')`, b, start.Add(30*time.Minute), start.Add(40
 // TestUsageOrderMigrates: migration 0013 numbers each booking's usages in check-in
 // order, and refuses, naming the booking, when two of a booking's usages overlap.
 func TestUsageOrderMigrates(t *testing.T) {
-	db, conn := openRaw(t)
-	ctx := context.Background()
-	from := time.Date(2031, 3, 1, 0, 0, 0, 0, time.UTC)
-	_, pi, in := billingFacility(t, db, from)
-	p := mustCreateProject(t, db, "P-1", pi.ID)
+	u := newUsageWorld(t)
+	db, conn, ctx, from, pi, in, p := u.db, u.conn, context.Background(), u.from, u.pi, u.in, u.p
 	var ids []string
 	for i := range 2 {
 		start := from.Add(time.Duration(9+3*i) * time.Hour)
