@@ -36,6 +36,10 @@ const (
 	// EntityQualification's events are grants (a grant that supersedes another also
 	// records the revocation it implies) and revocations.
 	EntityQualification = "qualification"
+	// EntityInstrument's events are changes to an instrument after it was made: its
+	// capabilities, whether it is bookable, its condition limits. Each holds the
+	// instrument as it then stands.
+	EntityInstrument = "instrument"
 	// Cost recovery. A rate schedule, adjustment or cost entry is created once and
 	// never edited; a billing policy (the facility's, or an instrument's override under
 	// the instrument's id) and a funding account are created, then corrected; a

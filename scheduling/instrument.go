@@ -229,15 +229,16 @@ type InstrumentStore interface {
 	// Instrument returns one instrument. ErrNotFound when there is none.
 	Instrument(ctx context.Context, id string) (Instrument, error)
 	// SetConditionLimits replaces an instrument's condition limits and returns the
-	// instrument. ErrNotFound when there is none.
-	SetConditionLimits(ctx context.Context, id string, l ConditionLimits) (Instrument, error)
+	// instrument. ErrNotFound when there is none. Like the two below, it records the
+	// change in the ledger under actor at now.
+	SetConditionLimits(ctx context.Context, id string, l ConditionLimits, actor string, now time.Time) (Instrument, error)
 	// SetInstrumentBookable opens an instrument to bookings or closes it, and returns
 	// the instrument. Bookings already made stay. ErrNotFound when there is none.
-	SetInstrumentBookable(ctx context.Context, id string, bookable bool) (Instrument, error)
+	SetInstrumentBookable(ctx context.Context, id string, bookable bool, actor string, now time.Time) (Instrument, error)
 	// SetInstrumentCapabilities stores in's capabilities (see Capabilities) over those
 	// of the instrument with in's id, detectors replaced as a whole, and returns it.
 	// ErrNotFound when there is none.
-	SetInstrumentCapabilities(ctx context.Context, in Instrument) (Instrument, error)
+	SetInstrumentCapabilities(ctx context.Context, in Instrument, actor string, now time.Time) (Instrument, error)
 	// InstrumentByCode returns one instrument by its code. ErrNotFound when none.
 	InstrumentByCode(ctx context.Context, code string) (Instrument, error)
 	// Instruments lists instruments ordered by code.

@@ -23,7 +23,8 @@ func (s *Server) handleInstrumentBookableSet(c echo.Context) error {
 	if req.Bookable == nil {
 		return beamledger.InvalidField("bookable", "is required: true or false")
 	}
-	in, err := s.store.SetInstrumentBookable(c.Request().Context(), c.Param("instrument_id"), *req.Bookable)
+	ctx := c.Request().Context()
+	in, err := s.store.SetInstrumentBookable(ctx, c.Param("instrument_id"), *req.Bookable, principal(ctx).UserID, s.now())
 	if err != nil {
 		return err
 	}
@@ -48,7 +49,7 @@ func (s *Server) handleInstrumentCapabilitiesSet(c echo.Context) error {
 	if err != nil {
 		return err
 	}
-	out, err := s.store.SetInstrumentCapabilities(ctx, next)
+	out, err := s.store.SetInstrumentCapabilities(ctx, next, principal(ctx).UserID, s.now())
 	if err != nil {
 		return err
 	}

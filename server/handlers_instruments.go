@@ -156,7 +156,8 @@ func (s *Server) handleConditionLimitsSet(c echo.Context) error {
 	if err := l.Normalize(); err != nil {
 		return err
 	}
-	in, err := s.store.SetConditionLimits(c.Request().Context(), c.Param("instrument_id"), l)
+	ctx := c.Request().Context()
+	in, err := s.store.SetConditionLimits(ctx, c.Param("instrument_id"), l, principal(ctx).UserID, s.now())
 	if err != nil {
 		return err
 	}

@@ -1,6 +1,7 @@
 package server
 
 import (
+	"context"
 	"net/http"
 	"slices"
 	"testing"
@@ -9,6 +10,7 @@ import (
 	"github.com/google/uuid"
 
 	"beamledger/accounts"
+	"beamledger/provenance"
 	"beamledger/scheduling"
 )
 
@@ -18,6 +20,10 @@ func exerciseInstrumentBookable(t *testing.T, w *world) {
 	manager := w.tokens[accounts.RoleManager]
 	in := w.instr
 	path := "/api/v1/instruments/" + in.ID + "/bookable"
+	before, err := w.db.EventsFor(context.Background(), provenance.EntityInstrument, in.ID)
+	if err != nil {
+		t.Fatal(err)
+	}
 	var got scheduling.Instrument
 	w.expect(http.StatusOK, http.MethodPut, path, manager, map[string]any{"bookable": false}, &got)
 	if got.Bookable {
@@ -34,6 +40,11 @@ func exerciseInstrumentBookable(t *testing.T, w *world) {
 	w.expect(http.StatusOK, http.MethodPut, path, manager, map[string]any{"bookable": true}, &got)
 	if !got.Bookable {
 		t.Errorf("reopened instrument not bookable: %+v", got)
+	}
+	// Closing and reopening are two ledger events; the refused attempts none.
+	after, err := w.db.EventsFor(context.Background(), provenance.EntityInstrument, in.ID)
+	if err != nil || len(after) != len(before)+2 || !contains(after[len(after)-1].State, `"bookable":true`) {
+		t.Errorf("ledger events of the instrument: %d before, %d after (%v)", len(before), len(after), err)
 	}
 }
 
@@ -55,6 +66,12 @@ func exerciseInstrumentCapabilities(t *testing.T, w *world) {
 		!slices.Equal(got.AcceleratingVoltagesV, []float64{80e3, 300e3}) || got.Corrector != scheduling.CorrectorProbe ||
 		len(got.Detectors) != 1 || got.Detectors[0].Name != "HAADF" || got.Bookable != in.Bookable {
 		t.Errorf("instrument after the edit %+v", got)
+	}
+	// The change is in the ledger, by the manager, holding the instrument as it stands.
+	evs, err := w.db.EventsFor(context.Background(), provenance.EntityInstrument, in.ID)
+	if err != nil || len(evs) != 1 || evs[0].Action != provenance.ActionCorrect || evs[0].Actor != w.users[accounts.RoleManager].ID ||
+		!contains(evs[0].State, `"name":"Upgraded STEM"`) || !contains(evs[0].State, `"HAADF"`) {
+		t.Errorf("ledger events of the edited instrument: %v %+v", err, evs)
 	}
 	bad := map[string]any{"name": " ", "kind": "stem", "accelerating_voltages_v": []float64{300}, "detectors": []map[string]any{}}
 	if r := w.expect(http.StatusBadRequest, http.MethodPut, path, manager, bad, nil); !fieldNamed(r, "name") || !contains(r.Body, "accelerating_voltages_v") {

@@ -2,11 +2,14 @@ package postgres
 
 import (
 	"context"
+	"time"
 
 	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgconn"
 
 	"beamledger"
 	"beamledger/accounts"
+	"beamledger/provenance"
 	"beamledger/scheduling"
 )
 
@@ -68,64 +71,59 @@ func (db *DB) Instrument(ctx context.Context, id string) (scheduling.Instrument,
 }
 
 // SetConditionLimits implements scheduling.InstrumentStore.
-func (db *DB) SetConditionLimits(ctx context.Context, id string, l scheduling.ConditionLimits) (scheduling.Instrument, error) {
-	if !accounts.ValidID(id) {
-		return scheduling.Instrument{}, beamledger.NotFound("instrument")
-	}
-	const q = `
+func (db *DB) SetConditionLimits(ctx context.Context, id string, l scheduling.ConditionLimits, actor string, now time.Time) (scheduling.Instrument, error) {
+	return db.changeInstrument(ctx, id, actor, now, func(tx pgx.Tx) (pgconn.CommandTag, error) {
+		const q = `
 UPDATE instruments SET camera_length_min_m = $2, camera_length_max_m = $3, condition_checks = $4, updated_at = now()
 WHERE id = $1`
-	tag, err := db.pool.Exec(ctx, q, id, l.CameraLengthMinM, l.CameraLengthMaxM, string(l.ConditionChecks))
-	if err == nil && tag.RowsAffected() == 0 {
-		return scheduling.Instrument{}, beamledger.NotFound("instrument")
-	}
-	if err != nil {
-		return scheduling.Instrument{}, mapError(err, "instrument")
-	}
-	return db.Instrument(ctx, id)
+		return tx.Exec(ctx, q, id, l.CameraLengthMinM, l.CameraLengthMaxM, string(l.ConditionChecks))
+	})
 }
 
 // SetInstrumentBookable implements scheduling.InstrumentStore.
-func (db *DB) SetInstrumentBookable(ctx context.Context, id string, bookable bool) (scheduling.Instrument, error) {
-	if !accounts.ValidID(id) {
-		return scheduling.Instrument{}, beamledger.NotFound("instrument")
-	}
-	const q = `UPDATE instruments SET bookable = $2, updated_at = now() WHERE id = $1`
-	tag, err := db.pool.Exec(ctx, q, id, bookable)
-	if err == nil && tag.RowsAffected() == 0 {
-		return scheduling.Instrument{}, beamledger.NotFound("instrument")
-	}
-	if err != nil {
-		return scheduling.Instrument{}, mapError(err, "instrument")
-	}
-	return db.Instrument(ctx, id)
+func (db *DB) SetInstrumentBookable(ctx context.Context, id string, bookable bool, actor string, now time.Time) (scheduling.Instrument, error) {
+	return db.changeInstrument(ctx, id, actor, now, func(tx pgx.Tx) (pgconn.CommandTag, error) {
+		return tx.Exec(ctx, `UPDATE instruments SET bookable = $2, updated_at = now() WHERE id = $1`, id, bookable)
+	})
 }
 
 // SetInstrumentCapabilities implements scheduling.InstrumentStore.
-func (db *DB) SetInstrumentCapabilities(ctx context.Context, in scheduling.Instrument) (scheduling.Instrument, error) {
-	if !accounts.ValidID(in.ID) {
-		return scheduling.Instrument{}, beamledger.NotFound("instrument")
-	}
-	var out scheduling.Instrument
-	err := pgx.BeginFunc(ctx, db.pool, func(tx pgx.Tx) error {
+func (db *DB) SetInstrumentCapabilities(ctx context.Context, in scheduling.Instrument, actor string, now time.Time) (scheduling.Instrument, error) {
+	return db.changeInstrument(ctx, in.ID, actor, now, func(tx pgx.Tx) (pgconn.CommandTag, error) {
 		const q = `
 UPDATE instruments SET name = $2, kind = $3, location = $4, accelerating_voltages_v = $5, corrector = $6, updated_at = now()
 WHERE id = $1`
 		tag, err := tx.Exec(ctx, q, in.ID, in.Name, string(in.Kind), in.Location, in.AcceleratingVoltagesV, string(in.Corrector))
+		if err != nil || tag.RowsAffected() == 0 {
+			return tag, err
+		}
+		if _, err := tx.Exec(ctx, `DELETE FROM detectors WHERE instrument_id = $1`, in.ID); err != nil {
+			return tag, err
+		}
+		return tag, insertDetectors(ctx, tx, in.ID, in.Detectors)
+	})
+}
+
+// changeInstrument runs update (which reports the rows it changed) in a transaction
+// with a ledger event holding the instrument as it then stands, and returns it.
+// ErrNotFound when update changed nothing.
+func (db *DB) changeInstrument(ctx context.Context, id, actor string, now time.Time, update func(pgx.Tx) (pgconn.CommandTag, error)) (scheduling.Instrument, error) {
+	if !accounts.ValidID(id) {
+		return scheduling.Instrument{}, beamledger.NotFound("instrument")
+	}
+	var out scheduling.Instrument
+	err := pgx.BeginFunc(ctx, db.pool, func(tx pgx.Tx) error {
+		tag, err := update(tx)
 		if err != nil {
 			return err
 		}
 		if tag.RowsAffected() == 0 {
 			return beamledger.NotFound("instrument")
 		}
-		if _, err := tx.Exec(ctx, `DELETE FROM detectors WHERE instrument_id = $1`, in.ID); err != nil {
+		if out, err = scanInstrument(tx.QueryRow(ctx, instrumentSelect+` WHERE i.id = $1`, id)); err != nil {
 			return err
 		}
-		if err := insertDetectors(ctx, tx, in.ID, in.Detectors); err != nil {
-			return err
-		}
-		out, err = scanInstrument(tx.QueryRow(ctx, instrumentSelect+` WHERE i.id = $1`, in.ID))
-		return err
+		return appendChange(ctx, tx, actor, provenance.ActionCorrect, provenance.EntityInstrument, id, now, out)
 	})
 	return out, mapError(err, "instrument")
 }
