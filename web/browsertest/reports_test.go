@@ -41,6 +41,11 @@ func TestReportsCharts(t *testing.T) {
 	if !strings.HasPrefix(csvText, strings.Join(scheduling.UtilizationCSVColumns(), ",")+"\r\n") || strings.Count(csvText, "\r\n") < 2 {
 		t.Errorf("the facility CSV at %s reads %.200q", href, csvText)
 	}
+	// The month's table has a row for every instrument.
+	if n, want := eval[int](t, ctx, "month rows", `document.querySelectorAll("#month-table tbody tr").length`),
+		eval[int](t, ctx, "instruments", `fetch("/api/v1/instruments").then((r) => r.json()).then((b) => b.items.length)`); n == 0 || n != want {
+		t.Errorf("%d rows in the month's table, want one per instrument (%d)", n, want)
+	}
 	for _, sel := range []string{"#proj-table", "#kind-table", "#rec-table"} {
 		if n := eval[int](t, ctx, sel, `document.querySelectorAll("`+sel+` tbody tr").length`); n == 0 {
 			t.Errorf("%s is empty", sel)

@@ -38,6 +38,11 @@
 
     $("#rep-csv").href = "/api/v1/reports/facility-utilization?format=csv&from=" + from + "&to=" + to;
     $("#rep-csv").download = "utilization-" + f.month.value + ".csv";
+    const month = await BL.api("/api/v1/reports/facility-utilization?from=" + from + "&to=" + to);
+    if (!month.ok) { BL.showError(err, month.body); return; }
+    rows("#month-table", month.body.instruments.map((r) => [code.get(r.instrument_id) || "instrument", hours(r.available_minutes), hours(r.booked_minutes),
+      hours(r.used_minutes), hours(r.no_show_minutes), hours(r.cancelled_late_minutes), (r.uptime_permille / 10) + " %"])
+      .sort((a, b) => a[0].localeCompare(b[0])));
     const u = await BL.api("/api/v1/reports/utilization?instrument_id=" + f.instrument_id.value + "&from=" + from + "&to=" + to);
     if (!u.ok) { BL.showError(err, u.body); return; }
     const r = u.body;
