@@ -18,10 +18,10 @@ func TestLoadBilling(t *testing.T) {
 	db := pgtest.Open(t)
 	ctx := context.Background()
 	hasher := accounts.NewPasswordHasher(accounts.DefaultPasswordParams(), 1)
-	if _, err := demo.Load(ctx, db, hasher, []byte("demo test secret")); err != nil {
+	now := time.Date(2026, 12, 9, 11, 0, 0, 0, time.UTC)
+	if _, err := demo.Load(ctx, db, hasher, []byte("demo test secret"), now); err != nil {
 		t.Fatal(err)
 	}
-	now := time.Date(2026, 12, 9, 11, 0, 0, 0, time.UTC)
 	if err := demo.LoadWeek(ctx, db, db, now); err != nil {
 		t.Fatal(err)
 	}

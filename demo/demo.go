@@ -12,6 +12,7 @@ import (
 	"encoding/base64"
 	"errors"
 	"fmt"
+	"time"
 
 	"beamledger"
 	"beamledger/accounts"
@@ -100,8 +101,9 @@ var projects = []project{
 // Load creates whatever of the demo facility is missing and returns the accounts with
 // their passwords. Passwords derive from secret (kept per checkout), so they are not
 // written in the code and stay the same from run to run; a demo account whose
-// password was changed is set back to the printed one.
-func Load(ctx context.Context, st Stores, hasher *accounts.PasswordHasher, secret []byte) ([]Account, error) {
+// password was changed is set back to the printed one. The instruments it makes are
+// recorded in the ledger at now, by the demo manager.
+func Load(ctx context.Context, st Stores, hasher *accounts.PasswordHasher, secret []byte, now time.Time) ([]Account, error) {
 	if _, err := st.Facility(ctx); errors.Is(err, beamledger.ErrNotFound) {
 		if _, err := st.SetFacility(ctx, Facility); err != nil {
 			return nil, fmt.Errorf("demo facility: %w", err)
@@ -125,7 +127,7 @@ func Load(ctx context.Context, st Stores, hasher *accounts.PasswordHasher, secre
 			if err := in.Normalize(); err != nil {
 				return nil, fmt.Errorf("demo instrument %s: %w", in.Code, err)
 			}
-			if _, err := st.CreateInstrument(ctx, in); err != nil {
+			if _, err := st.CreateInstrument(ctx, in, ids["manager@demo.example"], now); err != nil {
 				return nil, fmt.Errorf("demo instrument %s: %w", in.Code, err)
 			}
 		} else if err != nil {

@@ -36,7 +36,7 @@ const (
 	// EntityQualification's events are grants (a grant that supersedes another also
 	// records the revocation it implies) and revocations.
 	EntityQualification = "qualification"
-	// EntityInstrument's events are changes to an instrument after it was made: its
+	// EntityInstrument's events are an instrument's creation and its changes: its
 	// capabilities, whether it is bookable, its condition limits. Each holds the
 	// instrument as it then stands.
 	EntityInstrument = "instrument"

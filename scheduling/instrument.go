@@ -223,9 +223,9 @@ func (in *Instrument) Normalize() error {
 
 // InstrumentStore persists instruments.
 type InstrumentStore interface {
-	// CreateInstrument stores an instrument with its detectors. ErrConflict when the
-	// code is taken.
-	CreateInstrument(ctx context.Context, in Instrument) (Instrument, error)
+	// CreateInstrument stores an instrument with its detectors, and its creation in
+	// the ledger under actor at now. ErrConflict when the code is taken.
+	CreateInstrument(ctx context.Context, in Instrument, actor string, now time.Time) (Instrument, error)
 	// Instrument returns one instrument. ErrNotFound when there is none.
 	Instrument(ctx context.Context, id string) (Instrument, error)
 	// SetConditionLimits replaces an instrument's condition limits and returns the

@@ -52,7 +52,7 @@ func newAcqFixture(w *world) acqFixture {
 		Detectors: []scheduling.Detector{
 			{Name: "HAADF", Kind: scheduling.DetectorAnnular, InnerRadiusM: f64(6e-3), OuterRadiusM: f64(16e-3)},
 			{Name: "ABF", Kind: scheduling.DetectorAnnular, InnerRadiusM: f64(1e-3), OuterRadiusM: f64(2e-3)},
-		}})
+		}}, "setup", time.Now())
 	if err != nil {
 		w.t.Fatal(err)
 	}
@@ -279,7 +279,7 @@ func TestAcquisitionRefusals(t *testing.T) {
 		t.Errorf("camera length outside the range, as a warning: %v", warned.Warnings)
 	}
 	lenient, err := w.db.CreateInstrument(context.Background(), scheduling.Instrument{Code: "TEM-L", Name: "Lenient TEM", Kind: scheduling.KindTEM,
-		Corrector: scheduling.CorrectorNone, Bookable: true, AcceleratingVoltagesV: []float64{200e3}, ConditionChecks: scheduling.ConditionChecksWarning})
+		Corrector: scheduling.CorrectorNone, Bookable: true, AcceleratingVoltagesV: []float64{200e3}, ConditionChecks: scheduling.ConditionChecksWarning}, "setup", time.Now())
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -988,7 +988,7 @@ func TestAgentTokenReach(t *testing.T) {
 		}
 	}
 
-	second, err := w.db.CreateInstrument(context.Background(), scheduling.Instrument{Code: "SEM-2", Name: "Another SEM", Kind: scheduling.KindSEM, Bookable: true, Corrector: scheduling.CorrectorNone})
+	second, err := w.db.CreateInstrument(context.Background(), scheduling.Instrument{Code: "SEM-2", Name: "Another SEM", Kind: scheduling.KindSEM, Bookable: true, Corrector: scheduling.CorrectorNone}, "setup", time.Now())
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -1099,7 +1099,7 @@ func TestBookingVisibility(t *testing.T) {
 		t.Fatalf("service booking: %d %s", r.StatusCode, r.Body)
 	}
 	// Service time on a second instrument, which the agent of the first must not see.
-	second, err := w.db.CreateInstrument(ctx, scheduling.Instrument{Code: "SEM-2", Name: "Another SEM", Kind: scheduling.KindSEM, Bookable: true, Corrector: scheduling.CorrectorNone})
+	second, err := w.db.CreateInstrument(ctx, scheduling.Instrument{Code: "SEM-2", Name: "Another SEM", Kind: scheduling.KindSEM, Bookable: true, Corrector: scheduling.CorrectorNone}, "setup", time.Now())
 	if err != nil {
 		t.Fatal(err)
 	}

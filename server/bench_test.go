@@ -40,7 +40,7 @@ func benchWorld(b *testing.B) (*world, []string) {
 	}
 	ids := []string{w.instr.ID}
 	for i := 1; i < 8; i++ {
-		in, err := w.db.CreateInstrument(ctx, scheduling.Instrument{Code: fmt.Sprintf("BENCH-%d", i), Name: "bench", Kind: scheduling.KindTEM, Bookable: true, Corrector: scheduling.CorrectorNone})
+		in, err := w.db.CreateInstrument(ctx, scheduling.Instrument{Code: fmt.Sprintf("BENCH-%d", i), Name: "bench", Kind: scheduling.KindTEM, Bookable: true, Corrector: scheduling.CorrectorNone}, "setup", time.Now())
 		if err != nil {
 			b.Fatal(err)
 		}

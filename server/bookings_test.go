@@ -115,7 +115,7 @@ func TestBookingRulesAndRights(t *testing.T) {
 		t.Fatalf("assisted: %d %s", r.StatusCode, r.Body)
 	}
 	// The staff member cannot assist elsewhere at the same time: a second instrument.
-	in2, err := w.db.CreateInstrument(context.Background(), scheduling.Instrument{Code: "TEM-T", Name: "Test TEM", Kind: scheduling.KindTEM, Bookable: true, Corrector: scheduling.CorrectorNone})
+	in2, err := w.db.CreateInstrument(context.Background(), scheduling.Instrument{Code: "TEM-T", Name: "Test TEM", Kind: scheduling.KindTEM, Bookable: true, Corrector: scheduling.CorrectorNone}, "setup", time.Now())
 	if err != nil {
 		t.Fatal(err)
 	}

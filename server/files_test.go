@@ -88,7 +88,7 @@ func testAcquisition(w *world) string {
 	w.t.Helper()
 	// An instrument of its own, so that the booking overlaps nothing another test made.
 	in, err := w.db.CreateInstrument(context.Background(), scheduling.Instrument{Code: "ACQ-" + strings.ToUpper(uuid.NewString()[:8]),
-		Name: "Files STEM", Kind: scheduling.KindSTEM, Bookable: true, Corrector: scheduling.CorrectorNone, AcceleratingVoltagesV: []float64{300e3}})
+		Name: "Files STEM", Kind: scheduling.KindSTEM, Bookable: true, Corrector: scheduling.CorrectorNone, AcceleratingVoltagesV: []float64{300e3}}, "setup", time.Now())
 	if err != nil {
 		w.t.Fatal(err)
 	}

@@ -94,7 +94,8 @@ func (s *Server) handleInstrumentCreate(c echo.Context) error {
 	if err := in.Normalize(); err != nil {
 		return err
 	}
-	out, err := s.store.CreateInstrument(c.Request().Context(), in)
+	ctx := c.Request().Context()
+	out, err := s.store.CreateInstrument(ctx, in, principal(ctx).UserID, s.now())
 	if err != nil {
 		return err
 	}

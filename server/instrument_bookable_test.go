@@ -67,10 +67,13 @@ func exerciseInstrumentCapabilities(t *testing.T, w *world) {
 		len(got.Detectors) != 1 || got.Detectors[0].Name != "HAADF" || got.Bookable != in.Bookable {
 		t.Errorf("instrument after the edit %+v", got)
 	}
-	// The change is in the ledger, by the manager, holding the instrument as it stands.
+	// Its creation and the change are in the ledger, by the manager, each holding the
+	// instrument as it then stood.
 	evs, err := w.db.EventsFor(context.Background(), provenance.EntityInstrument, in.ID)
-	if err != nil || len(evs) != 1 || evs[0].Action != provenance.ActionCorrect || evs[0].Actor != w.users[accounts.RoleManager].ID ||
-		!contains(evs[0].State, `"name":"Upgraded STEM"`) || !contains(evs[0].State, `"HAADF"`) {
+	managerID := w.users[accounts.RoleManager].ID
+	if err != nil || len(evs) != 2 || evs[0].Action != provenance.ActionCreate || !contains(evs[0].State, `"name":"Old TEM"`) ||
+		evs[1].Action != provenance.ActionCorrect || evs[0].Actor != managerID || evs[1].Actor != managerID ||
+		!contains(evs[1].State, `"name":"Upgraded STEM"`) || !contains(evs[1].State, `"HAADF"`) {
 		t.Errorf("ledger events of the edited instrument: %v %+v", err, evs)
 	}
 	bad := map[string]any{"name": " ", "kind": "stem", "accelerating_voltages_v": []float64{300}, "detectors": []map[string]any{}}

@@ -19,19 +19,21 @@ import (
 func TestLedgerOverHTTP(t *testing.T) {
 	w := newWorld(t)
 	researcher, auditor, manager := w.tokens[accounts.RoleResearcher], w.tokens[accounts.RoleAuditor], w.tokens[accounts.RoleManager]
+	var setup ledgerHeadAnswer // the world's instruments' creation
+	w.expect(http.StatusOK, http.MethodGet, "/api/v1/ledger", "", nil, &setup)
 	var sp provenance.Specimen
 	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/specimens", researcher, map[string]any{"project_id": w.own.ID, "code": "L-1"}, &sp)
 	var head ledgerHeadAnswer
 	w.expect(http.StatusOK, http.MethodGet, "/api/v1/ledger", "", nil, &head)
-	if head.Size != 0 || head.Unsealed != 1 || head.OldestUnsealed == nil {
-		t.Errorf("before sealing: %+v; want the specimen's event waiting", head)
+	if head.Size != 0 || head.Unsealed != setup.Unsealed+1 || head.OldestUnsealed == nil {
+		t.Errorf("before sealing: %+v; want the specimen's event waiting after %d", head, setup.Unsealed)
 	}
 	var first provenance.Checkpoint
 	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/ledger/checkpoints", manager, nil, &first)
 	acq := testAcquisition(w)
 	var second provenance.Checkpoint
 	w.expect(http.StatusCreated, http.MethodPost, "/api/v1/ledger/checkpoints", manager, nil, &second)
-	if first.Size != 1 || second.Size <= first.Size {
+	if first.Size != int64(setup.Unsealed)+1 || second.Size <= first.Size {
 		t.Fatalf("checkpoints of sizes %d then %d", first.Size, second.Size)
 	}
 

@@ -811,7 +811,7 @@ func exerciseUsage(t *testing.T, w *world) {
 	w.expect(http.StatusOK, http.MethodPost, "/api/v1/bookings/"+c.ID+"/cancel", researcher, map[string]string{"reason": "Specimen not ready"}, nil)
 	w.expect(http.StatusConflict, http.MethodPost, "/api/v1/bookings/"+c.ID+"/check-in", researcher, nil, nil)
 	// The agent of one instrument does not reach another instrument's bookings.
-	second, err := w.db.CreateInstrument(context.Background(), scheduling.Instrument{Code: "SEM-9", Name: "Usage SEM", Kind: scheduling.KindSEM, Bookable: true, Corrector: scheduling.CorrectorNone})
+	second, err := w.db.CreateInstrument(context.Background(), scheduling.Instrument{Code: "SEM-9", Name: "Usage SEM", Kind: scheduling.KindSEM, Bookable: true, Corrector: scheduling.CorrectorNone}, "setup", time.Now())
 	if err != nil {
 		t.Fatal(err)
 	}

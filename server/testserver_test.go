@@ -115,7 +115,7 @@ func newWorldOn(t testing.TB, db *postgres.DB) *world {
 	w.foreign = w.createProject("FOREIGN-1", w.other.ID)
 	in := scheduling.Instrument{Code: "STEM-T", Name: "Test STEM", Kind: scheduling.KindSTEM, Bookable: true,
 		AcceleratingVoltagesV: []float64{300e3}, Corrector: scheduling.CorrectorProbe}
-	if w.instr, err = db.CreateInstrument(ctx, in); err != nil {
+	if w.instr, err = db.CreateInstrument(ctx, in, "setup", time.Now()); err != nil {
 		t.Fatal(err)
 	}
 	secret, hash, err := accounts.NewOpaqueToken(accounts.AgentTokenPrefix)

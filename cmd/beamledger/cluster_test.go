@@ -93,7 +93,7 @@ func newCluster(t testing.TB, extraEnv ...string) *cluster {
 	}
 	for i := range 2 {
 		in, err := db.CreateInstrument(ctx, scheduling.Instrument{Code: fmt.Sprintf("CL-%d", i), Name: "Cluster TEM", Kind: scheduling.KindTEM,
-			Bookable: true, Corrector: scheduling.CorrectorNone})
+			Bookable: true, Corrector: scheduling.CorrectorNone}, "setup", time.Now())
 		if err != nil {
 			t.Fatal(err)
 		}

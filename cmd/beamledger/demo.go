@@ -65,7 +65,7 @@ func cmdDemo(ctx context.Context, args []string, stdout, stderr io.Writer) (err 
 		return err
 	}
 	hasher := accounts.NewPasswordHasher(accounts.DefaultPasswordParams(), cfg.HashConcurrency)
-	accts, err := demo.Load(ctx, db, hasher, secret)
+	accts, err := demo.Load(ctx, db, hasher, secret, time.Now())
 	if err != nil {
 		return fmt.Errorf("load demo facility: %w", err)
 	}

@@ -135,7 +135,7 @@ func generateBillingYear(b testing.TB, db *postgres.DB, conn *pgx.Conn, n int) (
 	}
 	pi := benchMust(db.CreateUser(ctx, accounts.NewUser{Email: "bench-pi@example.org", DisplayName: "PI", Role: accounts.RoleResearcher}, "h"))(b)
 	for i := range 40 {
-		in := benchMust(db.CreateInstrument(ctx, scheduling.Instrument{Code: "BENCH-" + strconv.Itoa(i), Name: "Bench " + strconv.Itoa(i), Kind: scheduling.KindSTEM, Bookable: true, AcceleratingVoltagesV: []float64{300e3}, Corrector: scheduling.CorrectorProbe}))(b)
+		in := benchMust(db.CreateInstrument(ctx, scheduling.Instrument{Code: "BENCH-" + strconv.Itoa(i), Name: "Bench " + strconv.Itoa(i), Kind: scheduling.KindSTEM, Bookable: true, AcceleratingVoltagesV: []float64{300e3}, Corrector: scheduling.CorrectorProbe}, "setup", time.Now()))(b)
 		instruments = append(instruments, in.ID)
 		if _, err := db.CreateRateSchedule(ctx, scheduling.RateSchedule{InstrumentID: in.ID, EffectiveFrom: benchYear.AddDate(0, 0, -1), Currency: "EUR",
 			Classes: []scheduling.ClassRates{{RateClass: accounts.RateInternal, IndependentHourlyMinor: int64(9000 + 250*i)}}}, pi.ID, benchYear); err != nil {

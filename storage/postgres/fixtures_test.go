@@ -61,7 +61,7 @@ func mustCreateInstrument(t *testing.T, db *postgres.DB, code string) scheduling
 	in, err := db.CreateInstrument(context.Background(), scheduling.Instrument{
 		Code: code, Name: "Instrument " + code, Kind: scheduling.KindSTEM, Bookable: true,
 		AcceleratingVoltagesV: []float64{80e3, 300e3}, Corrector: scheduling.CorrectorProbe,
-	})
+	}, "setup", time.Now())
 	if err != nil {
 		t.Fatalf("CreateInstrument(%s): %v", code, err)
 	}

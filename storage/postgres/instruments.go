@@ -32,7 +32,7 @@ func scanInstrument(row pgx.Row) (scheduling.Instrument, error) {
 }
 
 // CreateInstrument implements scheduling.InstrumentStore.
-func (db *DB) CreateInstrument(ctx context.Context, in scheduling.Instrument) (scheduling.Instrument, error) {
+func (db *DB) CreateInstrument(ctx context.Context, in scheduling.Instrument, actor string, now time.Time) (scheduling.Instrument, error) {
 	var out scheduling.Instrument
 	if in.ConditionChecks == "" {
 		in.ConditionChecks = scheduling.ConditionChecksError
@@ -55,8 +55,10 @@ VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9, $10) RETURNING id::text`
 			return err
 		}
 		var err error
-		out, err = scanInstrument(tx.QueryRow(ctx, instrumentSelect+` WHERE i.id = $1`, id))
-		return err
+		if out, err = scanInstrument(tx.QueryRow(ctx, instrumentSelect+` WHERE i.id = $1`, id)); err != nil {
+			return err
+		}
+		return appendChange(ctx, tx, actor, provenance.ActionCreate, provenance.EntityInstrument, id, now, out)
 	})
 	return out, mapError(err, "instrument")
 }

@@ -7,6 +7,7 @@ import (
 	"slices"
 	"strings"
 	"testing"
+	"time"
 
 	"beamledger"
 	"beamledger/accounts"
@@ -31,7 +32,7 @@ func TestCreateInstrumentRoundTrip(t *testing.T) {
 		Corrector: scheduling.CorrectorProbeAndImage, Detectors: detectors,
 		CameraLengthMinM: ptr(0.02), CameraLengthMaxM: ptr(2.5), ConditionChecks: scheduling.ConditionChecksWarning,
 	}
-	got, err := db.CreateInstrument(ctx, want)
+	got, err := db.CreateInstrument(ctx, want, "setup", time.Now())
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -70,7 +71,7 @@ func TestCreateInstrumentWithoutVoltagesOrDetectors(t *testing.T) {
 	db := pgtest.Open(t)
 	got, err := db.CreateInstrument(context.Background(), scheduling.Instrument{
 		Code: "PLASMA-1", Name: "Plasma cleaner", Kind: scheduling.KindOther, Bookable: true, Corrector: scheduling.CorrectorNone,
-	})
+	}, "setup", time.Now())
 	if err != nil {
 		t.Fatalf("CreateInstrument with nil voltages: %v", err)
 	}
@@ -88,7 +89,7 @@ func TestInstrumentRefusals(t *testing.T) {
 		return scheduling.Instrument{Code: code, Name: "N", Kind: scheduling.KindSTEM, Corrector: scheduling.CorrectorNone, Detectors: ds}
 	}
 
-	_, err := db.CreateInstrument(ctx, base("ARM-300"))
+	_, err := db.CreateInstrument(ctx, base("ARM-300"), "setup", time.Now())
 	wantKind(t, err, beamledger.ErrConflict)
 	if !strings.Contains(err.Error(), "code is taken") {
 		t.Errorf("message %q does not say the code is taken", err)
@@ -102,7 +103,7 @@ func TestInstrumentRefusals(t *testing.T) {
 		"zero outer":         {Name: "ADF", Kind: scheduling.DetectorAnnular, OuterRadiusM: ptr(0.0)},
 		"unknown kind":       {Name: "ADF", Kind: "ring"},
 	} {
-		_, err := db.CreateInstrument(ctx, base("NEW-1", scheduling.Detector{Name: "BF", Kind: scheduling.DetectorAnnular}, d))
+		_, err := db.CreateInstrument(ctx, base("NEW-1", scheduling.Detector{Name: "BF", Kind: scheduling.DetectorAnnular}, d), "setup", time.Now())
 		if !errors.Is(err, beamledger.ErrInvalid) {
 			t.Errorf("%s: error = %v, want ErrInvalid", name, err)
 		}

@@ -120,7 +120,7 @@ func TestLedgerEventsForEveryChange(t *testing.T) {
 		!strings.Contains(string(acqEvs[1].State), `"version":2`) {
 		t.Fatalf("acquisition events = %+v, %v; want create then correct at version 2", acqEvs, err)
 	}
-	const total = 9 // specimen, two tunings, calibration, acquisition twice, two files, derivation
+	const total = 10 // instrument, specimen, two tunings, calibration, acquisition twice, two files, derivation
 	if n := countEvents(t, conn); n != total {
 		t.Fatalf("%d events, want %d (one per change)", n, total)
 	}
@@ -395,21 +395,23 @@ func checkContiguous(t *testing.T, db *postgres.DB, n int64) {
 func TestLedgerProofArguments(t *testing.T) {
 	db, _ := openRaw(t)
 	ctx := context.Background()
-	newAcqWorld(t, db, nil)
-	if _, err := db.SignCheckpoint(ctx, newLedgerSigner(t), t0); err != nil {
+	newAcqWorld(t, db, nil) // the instrument's and the specimen's events
+	cp, err := db.SignCheckpoint(ctx, newLedgerSigner(t), t0)
+	if err != nil {
 		t.Fatal(err)
 	}
-	for _, c := range [][2]int64{{-1, 1}, {1, 1}, {0, 2}} {
+	n := cp.Size
+	for _, c := range [][2]int64{{-1, n}, {n, n}, {0, n + 1}} {
 		if _, err := db.InclusionProof(ctx, c[0], c[1]); !errors.Is(err, beamledger.ErrInvalid) {
 			t.Errorf("InclusionProof(%d, %d) = %v, want invalid", c[0], c[1], err)
 		}
 	}
-	for _, c := range [][2]int64{{0, 1}, {2, 1}, {1, 2}} {
+	for _, c := range [][2]int64{{0, n}, {n + 1, n}, {n, n + 1}} {
 		if _, err := db.ConsistencyProof(ctx, c[0], c[1]); !errors.Is(err, beamledger.ErrInvalid) {
 			t.Errorf("ConsistencyProof(%d, %d) = %v, want invalid", c[0], c[1], err)
 		}
 	}
-	if p, err := db.InclusionProof(ctx, 0, 1); err != nil || p.Check() != nil {
-		t.Errorf("InclusionProof(0, 1) = %v", err)
+	if p, err := db.InclusionProof(ctx, 0, n); err != nil || p.Check() != nil {
+		t.Errorf("InclusionProof(0, %d) = %v", n, err)
 	}
 }

@@ -97,7 +97,7 @@ func seedTraceFiles(b *testing.B, db *postgres.DB, conn *pgx.Conn, n int) {
 		b.Fatal(err)
 	}
 	inst, err := db.CreateInstrument(ctx, scheduling.Instrument{Code: "STEM-B", Name: "Bench STEM", Kind: scheduling.KindSTEM, Bookable: true,
-		AcceleratingVoltagesV: []float64{300e3}, Corrector: scheduling.CorrectorProbe})
+		AcceleratingVoltagesV: []float64{300e3}, Corrector: scheduling.CorrectorProbe}, "setup", time.Now())
 	if err != nil {
 		b.Fatal(err)
 	}

@@ -59,11 +59,11 @@ func newSite(t *testing.T) *site {
 	_, cfg.LedgerKey, _ = ed25519.GenerateKey(nil)
 	cfg.ObjectStore, cfg.ObjectDir = "disk", t.TempDir()
 	hasher := accounts.NewPasswordHasher(accounts.DefaultPasswordParams(), cfg.HashConcurrency)
-	accts, err := demo.Load(ctx, db, hasher, []byte("browser test secret"))
+	now := time.Now()
+	accts, err := demo.Load(ctx, db, hasher, []byte("browser test secret"), now)
 	if err != nil {
 		t.Fatalf("demo facility: %v", err)
 	}
-	now := time.Now()
 	if err := demo.LoadWeek(ctx, db, db, now); err != nil {
 		t.Fatalf("demo week: %v", err)
 	}
