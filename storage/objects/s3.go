@@ -16,7 +16,7 @@ import (
 
 const (
 	// DefaultPartSize is the part size of Put's multipart uploads when
-	// S3Config.PartSize is zero. Put holds one part in memory at a time.
+	// S3Config.PartSize is zero. Put holds at most two parts in memory.
 	DefaultPartSize = 16 << 20
 	// s3MinPartSize is S3's least size of every part but the last.
 	s3MinPartSize = 5 << 20
@@ -51,7 +51,7 @@ type S3Config struct {
 	// that RetainUntil is never silently dropped where it was asked for.
 	ObjectLock bool
 	// PartSize is the part size of Put's multipart uploads (5 MiB to 5 GiB,
-	// default DefaultPartSize). A Put holds one part in memory, and an object
+	// default DefaultPartSize). A Put holds two parts in memory, and an object
 	// of unknown size can be at most 10 000 parts long: 156.25 GiB at the
 	// default. Larger objects need their size passed to Put, a larger
 	// PartSize, or the multipart methods.
@@ -66,7 +66,8 @@ type S3Config struct {
 //
 // Put streams: a size that fits in one part goes up as one PUT read straight
 // from the reader; anything larger (and every unknown size) as a multipart
-// upload through one buffer of one part, so a Put holds at most PartSize
+// upload through two buffers of one part each: the next part is read from the
+// source while the one before is sent, so a Put holds at most twice PartSize
 // bytes of the object in memory whatever its size. A failed or cancelled
 // multipart Put is aborted by minio-go, with a context of its own.
 //
@@ -221,12 +222,17 @@ func (s *S3) Put(ctx context.Context, key string, r io.Reader, size int64, opts 
 	} else {
 		r = ctxReader(ctx, r)
 	}
+	ps := s.partSizeFor(size)
 	po := minio.PutObjectOptions{
 		ContentType: opts.ContentType,
-		PartSize:    s.partSizeFor(size),
-		// One part in flight: with the source read into one buffer anyway,
-		// more threads would only add buffers.
-		NumThreads: 1,
+		PartSize:    ps,
+		NumThreads:  1,
+	}
+	if size < 0 || uint64(size) > ps {
+		// Two part buffers: the next part is read from the source while the one
+		// before is sent, so a slow source (a request body being hashed) and the
+		// upload overlap instead of taking turns.
+		po.NumThreads, po.ConcurrentStreamParts = 2, true
 	}
 	po.Mode, po.RetainUntilDate = s.retention(opts)
 	if _, err := s.client.PutObject(ctx, s.bucket, key, r, size, po); err != nil {

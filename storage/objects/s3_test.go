@@ -209,10 +209,11 @@ func TestPartSizeFor(t *testing.T) {
 	}
 }
 
-// TestS3PutMemory bounds the heap a Put of unknown size needs: about one
-// part, however long the stream. With the collector made eager, the peak
-// heap follows what is live; a Put that buffered the whole object (or a part
-// per thread) would show 40 MiB (or several parts) here.
+// TestS3PutMemory bounds the heap a Put of unknown size needs: about two
+// parts (one being read, one being sent), however long the stream. With the
+// collector made eager, the peak heap follows what is live; a Put that
+// buffered the whole object (or a part per default thread) would show 40 MiB
+// (or four parts and more) here.
 func TestS3PutMemory(t *testing.T) {
 	st := newTestS3(t, harnessS3Config(t))
 	const size = 8 * testPartSize
@@ -241,8 +242,8 @@ func TestS3PutMemory(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if grown := peak - base.HeapAlloc; grown > 2*testPartSize {
-		t.Errorf("Put of %d MiB of unknown size grew the heap by %d MiB; want about one %d MiB part",
+	if grown := peak - base.HeapAlloc; grown > 3*testPartSize {
+		t.Errorf("Put of %d MiB of unknown size grew the heap by %d MiB; want about two %d MiB parts",
 			size>>20, grown>>20, testPartSize>>20)
 	} else {
 		t.Logf("heap grew by at most %.1f MiB", float64(grown)/(1<<20))
