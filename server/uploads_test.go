@@ -11,6 +11,7 @@ import (
 	"net/http"
 	"strconv"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 
@@ -671,5 +672,112 @@ func exerciseUploads(t *testing.T, w *world) {
 	}
 	if r := w.tus(http.MethodDelete, path, researcher, nil, nil); r.StatusCode != http.StatusNotFound {
 		t.Errorf("DELETE again: %d", r.StatusCode)
+	}
+}
+
+// partGate is the store under test with two part uploads held back: part hold
+// waits (up to a few seconds) until part hold+1 has begun, and fail, once its next
+// has begun too, fails once. It notes which held parts saw their next begin.
+type partGate struct {
+	objects.Store
+	hold, fail int
+	mu         sync.Mutex
+	begun      map[int]chan struct{}
+	overlapped map[int]bool
+	failed     bool
+}
+
+func (g *partGate) begin(n int) chan struct{} {
+	g.mu.Lock()
+	defer g.mu.Unlock()
+	if g.begun[n] == nil {
+		g.begun[n] = make(chan struct{})
+	}
+	return g.begun[n]
+}
+
+func (g *partGate) PutPart(ctx context.Context, key, uploadID string, n int, r io.Reader, size int64) (objects.Part, error) {
+	ch := g.begin(n)
+	g.mu.Lock()
+	select {
+	case <-ch:
+	default:
+		close(ch)
+	}
+	g.mu.Unlock()
+	if n == g.hold || n == g.fail {
+		select {
+		case <-g.begin(n + 1):
+			g.mu.Lock()
+			g.overlapped[n] = true
+			g.mu.Unlock()
+		case <-time.After(3 * time.Second):
+		}
+	}
+	g.mu.Lock()
+	fail := n == g.fail && !g.failed
+	g.failed = g.failed || fail
+	g.mu.Unlock()
+	if fail {
+		return objects.Part{}, errors.New("part refused by the test")
+	}
+	return g.Store.PutPart(ctx, key, uploadID, n, r, size)
+}
+
+// TestUploadPartsInFlight: one PATCH sends the next whole part while the one before
+// is still going up, yet records progress strictly in order. Part 1 finishes only
+// after part 2 has begun, and part 4 fails after part 5 has begun: the upload stays
+// at the end of part 3 (part 5's bytes, stored but after a failure, are not
+// counted), and a PATCH from there completes the file with the right digest and
+// nothing left over.
+func TestUploadPartsInFlight(t *testing.T) {
+	for _, sc := range uploadStores {
+		t.Run(sc.name, func(t *testing.T) {
+			t.Parallel()
+			gate := &partGate{Store: sc.open(t), hold: 1, fail: 4, begun: map[int]chan struct{}{}, overlapped: map[int]bool{}}
+			w := tusWorld(t, func(*testing.T) objects.Store { return gate })
+			const part = 5 << 20 // one segment a part
+			w.srv.uploads = uploadGeometry{segment: part}
+			agent := w.agent
+			data := patternBytes(5*part + 777)
+			sum := sha256Hex(data)
+			path, created := w.createUpload(agent, len(data), "filename", "stack.raw", "acquisition_id", testAcquisitionOn(w, w.instr.ID), "sha256", sum)
+
+			req, err := http.NewRequest(http.MethodPatch, w.http.URL+path, bytes.NewReader(data))
+			if err != nil {
+				t.Fatal(err)
+			}
+			req.Header.Set("Tus-Resumable", tusVersion)
+			req.Header.Set("Content-Type", tusOffsetStream)
+			req.Header.Set("Upload-Offset", "0")
+			req.Header.Set("Authorization", "Bearer "+agent)
+			if res, err := w.http.Client().Do(req); err == nil {
+				res.Body.Close()
+				if res.StatusCode < 500 {
+					t.Fatalf("the PATCH whose part 4 failed was answered %d", res.StatusCode)
+				}
+			}
+			if got := w.resumeOffset(path, agent, 0); got != 3*part {
+				t.Fatalf("offset after part 4 failed: %d, want %d (three parts)", got, 3*part)
+			}
+			if !gate.overlapped[1] || !gate.overlapped[4] {
+				t.Errorf("parts 1 and 4 should each have been in flight with the part after them: %v", gate.overlapped)
+			}
+
+			r := w.patch(path, agent, 3*part, data[3*part:])
+			if r.StatusCode != http.StatusNoContent || r.Header.Get("Data-File-Id") != created.Header.Get("Data-File-Id") {
+				t.Fatalf("resumed PATCH: %d %v %s", r.StatusCode, r.Header, r.Body)
+			}
+			got := w.get("/api/v1/files/"+r.Header.Get("Data-File-Id")+"/content", w.tokens[accounts.RoleStaff], nil)
+			if sha256Hex(got.Body) != sum || len(got.Body) != len(data) {
+				t.Errorf("content read back: %d bytes, another digest", len(got.Body))
+			}
+			if keys := listKeys(t, gate.Store, ""); len(keys) != 1 {
+				t.Errorf("objects left: %v", keys)
+			}
+			if ps := pendingMultiparts(t, gate.Store); len(ps) != 0 {
+				t.Errorf("multipart uploads left: %v", ps)
+			}
+		})
 	}
 }

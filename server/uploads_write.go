@@ -26,33 +26,52 @@ import (
 // connection loses nothing that arrived. After each store write the progress is
 // recorded in one UPDATE; the recorded offset never counts bytes not stored.
 //
-// Receiving and storing overlap: while one full buffer is stored and recorded,
-// the next fills from the body and is hashed, so a PATCH holds at most two
-// segments in memory. The stores run one at a time and in order, each recording
-// the hash state taken when its bytes were hashed, so progress is recorded in
-// order and the recorded state always matches the recorded offset.
+// Receiving and storing overlap: while full buffers are stored and recorded, the
+// next fills from the body and is hashed. A buffer that is a whole part by itself
+// (the usual case, where parts are one segment long) is sent while the one before
+// is still being sent, up to maxStores at once; any other waits for every store
+// before it, since it builds on what they recorded. A PATCH so holds at most
+// maxStores+1 segments in memory. Progress is recorded strictly in order: each
+// store, once its bytes are in the object store, waits for the one before to be
+// recorded, and records nothing if that one failed. Each records the hash state
+// taken when its bytes were hashed, so the recorded state always matches the
+// recorded offset.
 type uploadWriter struct {
 	s     *Server
 	token string
 	seg   int64
-	// length, partBytes and verifyOnly are the upload's geometry, which the
-	// receiving side reads while a store may be updating u.
-	length, partBytes int64
-	verifyOnly        bool
+	// The upload's identity and geometry, which never change and which the
+	// receiving side and stores in flight read while another store may be
+	// updating u.
+	id, objectKey, multipartID string
+	length, partBytes          int64
+	verifyOnly                 bool
 
-	// Storing side: touched only by the store running, or after it is waited for.
+	// Storing side: touched by the stores, one at a time and in order, when
+	// they record (or fail), or by anyone once every store is waited for.
 	u provenance.Upload // as recorded
 	// err is why storing failed; the upload stays at its recorded offset.
 	err error
 
-	// Receiving side: the hash, the buffer filling from the body, and the store
+	// Receiving side: the hash, the buffer filling from the body, and the stores
 	// in flight. h is the SHA-256 state after the bytes received so far: once
 	// receive returns with no store failure, those are u.OffsetBytes bytes.
 	h       hash.Hash
 	fill    batch
-	storing chan bool // the running store's outcome; nil when none runs
-	held    []byte    // the buffer the running store holds
-	spare   []byte    // a buffer no store holds, for the next bytes
+	running []*storeRun // oldest first
+	failed  bool        // a store that ended reported failure
+	spare   [][]byte    // buffers no store holds, for the next bytes
+}
+
+// maxStores is how many whole parts one PATCH sends at once: two keep the S3
+// server busy while the next part's request begins, with a third buffer filling.
+const maxStores = 2
+
+// storeRun is one buffer's store in flight.
+type storeRun struct {
+	done chan struct{} // closed when it has recorded or failed
+	ok   bool          // set before done is closed
+	buf  []byte        // the buffer it holds
 }
 
 // batch is received bytes on their way to the store.
@@ -77,6 +96,7 @@ func (s *Server) newUploadWriter(ctx context.Context, u provenance.Upload, token
 		return nil, fmt.Errorf("upload %s: restoring the hash state: %w", u.ID, err)
 	}
 	w := &uploadWriter{s: s, u: u, token: token, h: h, seg: s.segmentBytes(),
+		id: u.ID, objectKey: u.ObjectKey, multipartID: u.MultipartID,
 		length: u.LengthBytes, partBytes: u.PartSizeBytes, verifyOnly: u.VerifyOnly(), fill: batch{start: u.OffsetBytes}}
 	var tail []byte
 	if n := len(u.Segments); n > 0 && u.Segments[n-1].SizeBytes < w.seg {
@@ -106,7 +126,7 @@ func (s *Server) newUploadWriter(ctx context.Context, u provenance.Upload, token
 
 // limit is how far the buffer starting at start fills before it is stored: a
 // segment, the end of the part, or the end of the file. The part's end comes from
-// the part size, not the recorded parts, which lag while the buffer before is
+// the part size, not the recorded parts, which lag while the buffers before are
 // being stored; parts are all of the part size, so the two agree.
 func (w *uploadWriter) limit(start int64) int64 {
 	end := w.length
@@ -116,6 +136,28 @@ func (w *uploadWriter) limit(start int64) int64 {
 	return min(w.seg, end-start)
 }
 
+// endsPart reports whether a buffer ending at end completes a part: at a
+// multiple of the part size, or at the end of the file.
+func (w *uploadWriter) endsPart(end int64) bool {
+	return end == w.length || (w.partBytes > 0 && end%w.partBytes == 0)
+}
+
+// partStart is where the part holding the byte before end begins.
+func (w *uploadWriter) partStart(end int64) int64 {
+	if w.partBytes <= 0 || end <= 0 {
+		return 0
+	}
+	return (end - 1) / w.partBytes * w.partBytes
+}
+
+// wholePart reports whether b is a whole part by itself: it needs nothing stored
+// before it, so it can be sent while the stores before it run.
+func (w *uploadWriter) wholePart(b batch) bool {
+	end := b.start + int64(len(b.buf))
+	return !w.verifyOnly && w.partBytes > 0 && b.reread == nil && len(b.buf) > 0 &&
+		b.start%w.partBytes == 0 && w.endsPart(end)
+}
+
 // errPastLength is a body longer than the upload has room for.
 var errPastLength = &beamledger.Error{Kind: beamledger.ErrTooLarge, Message: "the body runs past Upload-Length"}
 
@@ -123,23 +165,22 @@ var errPastLength = &beamledger.Error{Kind: beamledger.ErrTooLarge, Message: "th
 // ended (nil for a clean end). A store failure stops it and sits in w.err. It
 // returns only once no store runs, so w.u and w.h are settled.
 func (w *uploadWriter) receive(ctx context.Context, body io.Reader) error {
-	defer w.wait()
+	defer w.waitAll()
 	for {
 		limit := w.limit(w.fill.start)
 		if limit == 0 {
 			break
 		}
 		bodyErr := w.read(body, limit)
-		// Hashing here, while the store before runs, keeps it off the stores'
+		// Hashing here, while the stores before run, keeps it off the stores'
 		// critical path.
 		hashErr := w.hashFill()
-		// The store before must be done (and have worked) before this buffer's
-		// turn: progress is recorded in order.
-		if !w.wait() {
+		alone := bodyErr == nil && hashErr == nil && w.wholePart(w.fill)
+		if !w.waitFor(alone) {
 			return nil
 		}
 		if hashErr != nil {
-			w.err = hashErr
+			w.err = hashErr // every store is done: alone is false
 			return nil
 		}
 		if bodyErr != nil {
@@ -153,7 +194,7 @@ func (w *uploadWriter) receive(ctx context.Context, body io.Reader) error {
 		}
 		w.store(ctx)
 	}
-	if !w.wait() {
+	if !w.waitAll() {
 		return nil
 	}
 	var one [1]byte
@@ -191,72 +232,146 @@ func (w *uploadWriter) hashFill() error {
 	return err
 }
 
-// store hands the full buffer to a store running in the background and takes the
-// spare buffer for the next bytes. No store may be running.
+// store hands the full buffer to a store running in the background and takes a
+// spare buffer for the next bytes. Only a whole part may start while other stores
+// run, and then fewer than maxStores.
 func (w *uploadWriter) store(ctx context.Context) {
 	full := w.fill
-	next := w.spare
-	if next == nil {
+	var next []byte
+	if n := len(w.spare); n > 0 {
+		next, w.spare = w.spare[n-1], w.spare[:n-1]
+	} else {
 		next = make([]byte, 0, cap(full.buf))
 	}
 	w.fill = batch{buf: next[:0], start: full.start + int64(len(full.buf))}
-	w.held, w.spare = full.buf, nil
-	w.storing = make(chan bool, 1)
+	var prev *storeRun
+	if n := len(w.running); n > 0 {
+		prev = w.running[n-1]
+	}
+	r := &storeRun{done: make(chan struct{}), buf: full.buf}
+	w.running = append(w.running, r)
 	go func() {
-		ok := false
-		// A panic here would escape the request's recovery and end the process:
-		// turn it into the store error it stands for.
-		defer func() {
-			if r := recover(); r != nil {
-				w.err = fmt.Errorf("storing an upload part panicked: %v", r)
-				ok = false
+		defer close(r.done)
+		wrote, err := w.write(ctx, full)
+		if prev != nil {
+			// Record in order: after the store before, and only if it worked.
+			<-prev.done
+			if !prev.ok {
+				return
 			}
-			w.storing <- ok
-		}()
-		ok = w.flush(ctx, full)
+		}
+		if err != nil {
+			w.err = err
+			return
+		}
+		r.ok = w.record(ctx, full, wrote)
 	}()
 }
 
-// wait waits for the running store, if any, frees its buffer and reports whether
-// storing has worked so far.
-func (w *uploadWriter) wait() bool {
-	if w.storing != nil {
-		<-w.storing
-		w.storing, w.spare, w.held = nil, w.held, nil
+// waitFor waits for the stores in flight to leave room for the next buffer's: one
+// place when it is a whole part (alone), all of them otherwise. It frees their
+// buffers and reports whether storing has worked so far.
+func (w *uploadWriter) waitFor(alone bool) bool {
+	keep := 0
+	if alone {
+		keep = maxStores - 1
 	}
-	return w.err == nil
+	for len(w.running) > keep {
+		r := w.running[0]
+		<-r.done
+		w.running = w.running[1:]
+		w.spare = append(w.spare, r.buf[:0])
+		w.failed = w.failed || !r.ok
+	}
+	return !w.failed
 }
 
-// flush stores b as a part or a segment and records the progress. It reports
-// whether both worked.
+// waitAll waits for every store in flight and reports whether storing has worked.
+func (w *uploadWriter) waitAll() bool { return w.waitFor(false) && w.err == nil }
+
+// flush stores b and records the progress, in the request's goroutine, with no
+// store in flight. It reports whether both worked.
 func (w *uploadWriter) flush(ctx context.Context, b batch) bool {
+	wrote, err := w.write(ctx, b)
+	if err != nil {
+		w.err = err
+		return false
+	}
+	return w.record(ctx, b, wrote)
+}
+
+// written is what a store write put in the object store: a part, a segment, or
+// nothing (an upload that only verifies bytes already stored).
+type written struct {
+	part    *objects.Part
+	segment *provenance.UploadSegment
+}
+
+// write puts b's bytes in the object store: as a part when b ends one (streaming
+// the part's earlier bytes back from its segments), else as a segment. A panic
+// becomes the error it stands for: it would otherwise escape the request's
+// recovery when b is stored in the background, and end the process. Only a whole
+// part (wholePart) is written while stores before it run; anything else reads
+// w.u, which is settled then.
+func (w *uploadWriter) write(ctx context.Context, b batch) (wr written, err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			err = fmt.Errorf("storing an upload part panicked: %v", r)
+		}
+	}()
+	end := b.start + int64(len(b.buf))
+	switch {
+	case w.verifyOnly:
+		return written{}, nil
+	case w.endsPart(end):
+		start := w.partStart(end)
+		var segs []provenance.UploadSegment
+		if b.start > start {
+			segs = w.u.Segments
+		}
+		sr := &segmentReader{ctx: ctx, objects: w.s.objects, uploadID: w.id, segs: segs}
+		defer sr.Close()
+		part, err := w.s.objects.PutPart(ctx, w.objectKey, w.multipartID, int(start/max(w.partBytes, 1))+1,
+			io.MultiReader(sr, bytes.NewReader(b.buf)), end-start)
+		if err != nil {
+			return written{}, err
+		}
+		return written{part: &part}, nil
+	default:
+		key := provenance.UploadSegmentKey(w.id, b.start)
+		if _, err := w.s.objects.Put(ctx, key, bytes.NewReader(b.buf), int64(len(b.buf)), objects.PutOptions{}); err != nil {
+			return written{}, err
+		}
+		return written{segment: &provenance.UploadSegment{OffsetBytes: b.start, SizeBytes: int64(len(b.buf))}}, nil
+	}
+}
+
+// record records the progress b's write made, after every store before it has
+// recorded. It reports whether that worked.
+func (w *uploadWriter) record(ctx context.Context, b batch, wr written) (ok bool) {
+	defer func() {
+		if r := recover(); r != nil {
+			w.err = fmt.Errorf("recording an upload's progress panicked: %v", r)
+			ok = false
+		}
+	}()
 	u := w.u
 	end := b.start + int64(len(b.buf))
 	p := provenance.UploadProgress{OffsetBytes: end, Parts: u.Parts, Segments: u.Segments}
 	var drop []provenance.UploadSegment
 	switch {
-	case u.VerifyOnly():
-	case end == u.PartEnd():
-		segs := &segmentReader{ctx: ctx, objects: w.s.objects, uploadID: u.ID, segs: u.Segments}
-		part, err := w.s.objects.PutPart(ctx, u.ObjectKey, u.MultipartID, len(u.Parts)+1,
-			io.MultiReader(segs, bytes.NewReader(b.buf)), end-u.PartStart())
-		segs.Close()
-		if err != nil {
-			w.err = err
+	case wr.part != nil:
+		if wr.part.Number != len(u.Parts)+1 {
+			w.err = fmt.Errorf("upload %s: part %d stored after %d recorded parts", u.ID, wr.part.Number, len(u.Parts))
 			return false
 		}
-		p.Parts = append(slices.Clip(u.Parts), provenance.UploadPart{Number: part.Number, ETag: part.ETag, SizeBytes: part.Size})
+		p.Parts = append(slices.Clip(u.Parts), provenance.UploadPart{Number: wr.part.Number, ETag: wr.part.ETag, SizeBytes: wr.part.Size})
 		p.Segments, drop = nil, u.Segments
 		if b.reread != nil {
 			drop = append(slices.Clip(drop), *b.reread)
 		}
-	default:
-		key := provenance.UploadSegmentKey(u.ID, b.start)
-		if _, err := w.s.objects.Put(ctx, key, bytes.NewReader(b.buf), int64(len(b.buf)), objects.PutOptions{}); err != nil {
-			w.err = err
-			return false
-		}
-		p.Segments = append(slices.Clip(u.Segments), provenance.UploadSegment{OffsetBytes: b.start, SizeBytes: int64(len(b.buf))})
+	case wr.segment != nil:
+		p.Segments = append(slices.Clip(u.Segments), *wr.segment)
 	}
 	p.HashState = b.hashState
 	now := w.s.now()
