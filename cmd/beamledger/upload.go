@@ -17,6 +17,7 @@ import (
 	"strconv"
 	"strings"
 	"sync"
+	"syscall"
 	"time"
 )
 
@@ -173,7 +174,7 @@ func uploadOne(ctx context.Context, o uploadOptions, state *uploadState, path st
 	go func() { hashed <- hashFile(hashCtx, f, st.Size(), counted) }()
 	abs, _ := filepath.Abs(path)
 	key := strings.Join([]string{o.server, abs, strconv.FormatInt(st.Size(), 10), strconv.FormatInt(st.ModTime().UnixNano(), 10)}, "|")
-	c := &tusClient{o: o, file: f, size: st.Size(), bar: bar, hashed: hashed}
+	c := &tusClient{o: o, file: f, info: st, size: st.Size(), bar: bar, hashed: hashed}
 	if !o.hashWhileSending {
 		if _, err := c.digest(ctx); err != nil {
 			bar.done(err)
@@ -246,6 +247,7 @@ var errUploadGone = errors.New("the server discarded the upload")
 type tusClient struct {
 	o    uploadOptions
 	file *os.File
+	info os.FileInfo // of file, to know it again when reopened
 	size int64
 	bar  *progress
 	// hashed delivers the file's digest once; sum holds it after.
@@ -285,6 +287,9 @@ func (c *tusClient) request(ctx context.Context, method, target string, body io.
 	}
 	req, err := http.NewRequestWithContext(ctx, method, u, body)
 	if err != nil {
+		if c, ok := body.(io.Closer); ok {
+			c.Close() // no transport took it
+		}
 		return nil, err
 	}
 	if size >= 0 {
@@ -355,7 +360,7 @@ func (c *tusClient) send(ctx context.Context, loc string, offset int64) (string,
 	for {
 		id, next, err := c.patch(ctx, loc, offset)
 		switch {
-		case errors.Is(err, errHashing):
+		case errors.Is(err, errHashing), errors.Is(err, errReading):
 			return "", err
 		case err == nil && id != "":
 			return id, nil
@@ -384,8 +389,62 @@ func (c *tusClient) send(ctx context.Context, loc string, offset int64) (string,
 	}
 }
 
+// fileSection is a request body of a file's bytes from its current offset up to end.
+// It is a syscall.Conn too: net/http sends a body of announced length through a
+// limit of that length, and a TCP connection sends a limited syscall.Conn with
+// sendfile(2), so the kernel moves the bytes from the page cache to the socket
+// without copying them through this process. Read, the way otherwise, stops at end
+// by the file's offset, which is also where sendfile leaves it.
+type fileSection struct {
+	f   *os.File
+	end int64
+}
+
+func (s *fileSection) Read(p []byte) (int, error) {
+	pos, err := s.f.Seek(0, io.SeekCurrent)
+	if err != nil {
+		return 0, err
+	}
+	if pos >= s.end {
+		return 0, io.EOF
+	}
+	if int64(len(p)) > s.end-pos {
+		p = p[:s.end-pos]
+	}
+	return s.f.Read(p)
+}
+
+func (s *fileSection) Close() error { return s.f.Close() }
+
+func (s *fileSection) SyscallConn() (syscall.RawConn, error) { return s.f.SyscallConn() }
+
+// reopen opens the file being sent once more, positioned at offset, for one
+// request to own. It refuses a file that is no longer the one being sent (replaced
+// under its name).
+func (c *tusClient) reopen(offset int64) (*os.File, error) {
+	f, err := os.Open(c.file.Name())
+	if err != nil {
+		return nil, err
+	}
+	st, err := f.Stat()
+	if err == nil && !os.SameFile(st, c.info) {
+		err = fmt.Errorf("%s was replaced while it was being sent", c.file.Name())
+	}
+	if err == nil {
+		_, err = f.Seek(offset, io.SeekStart)
+	}
+	if err != nil {
+		f.Close()
+		return nil, fmt.Errorf("%w: %v", errReading, err)
+	}
+	return f, nil
+}
+
 // errHashing is a file that could not be read for its digest.
 var errHashing = errors.New("the file could not be hashed")
+
+// errReading is a file that could not be opened again to send the rest of it.
+var errReading = errors.New("the file could not be read")
 
 // patch sends the next request's bytes from offset, up to chunkBytes (0: no
 // limit). A digest declared at creation goes again, as Repr-Digest, on the request
@@ -418,7 +477,19 @@ func (c *tusClient) patch(ctx context.Context, loc string, offset int64) (id str
 	c.bar.set(offset)
 	var body io.Reader = http.NoBody
 	if n > 0 {
-		body = io.TeeReader(io.NewSectionReader(c.file, offset, n), c.bar.counter("uploading"))
+		f, err := c.reopen(offset)
+		if err != nil {
+			return "", 0, err
+		}
+		// The request's own file at the offset, which the transport closes once it is
+		// done with it (after a failure, that can be after Do has returned: no other
+		// request shares its offset). The bar follows the file's offset meanwhile.
+		body = &fileSection{f: f, end: offset + n}
+		stop := c.bar.follow("uploading", func() (int64, bool) {
+			off, err := f.Seek(0, io.SeekCurrent)
+			return off, err == nil
+		})
+		defer stop()
 	}
 	res, err := c.request(ctx, http.MethodPatch, loc, sizedBody{body, n}, header)
 	if err != nil {

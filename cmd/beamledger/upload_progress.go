@@ -35,6 +35,35 @@ func (p *progress) counter(phase string) io.Writer {
 	return progressWriter{p}
 }
 
+// follow counts the named phase's bytes by asking pos for the count (the file
+// offset reached) five times a second, for bytes the kernel moves without passing
+// them through this process. Nothing else may touch the bar until the returned stop
+// has been called, which waits for the last count.
+func (p *progress) follow(phase string, pos func() (int64, bool)) (stop func()) {
+	p.counter(phase)
+	quit, finished := make(chan struct{}), make(chan struct{})
+	go func() {
+		defer close(finished)
+		t := time.NewTicker(200 * time.Millisecond)
+		defer t.Stop()
+		for {
+			select {
+			case <-quit:
+				return
+			case <-t.C:
+				if n, ok := pos(); ok {
+					p.doneN = n
+					p.draw(false)
+				}
+			}
+		}
+	}()
+	return func() {
+		close(quit)
+		<-finished
+	}
+}
+
 // set moves the count to n (the offset a resumed upload goes on from).
 func (p *progress) set(n int64) {
 	p.doneN = n
