@@ -414,11 +414,23 @@ func sortBillable(bs []scheduling.BillableBooking) {
 		keys[i] = key{b.Booking.Start.UnixMicro(), b.Booking.ID, i}
 	}
 	slices.SortFunc(keys, func(x, y key) int { return cmp.Or(cmp.Compare(x.start, y.start), strings.Compare(x.id, y.id)) })
-	sorted := make([]scheduling.BillableBooking, len(bs))
-	for j, k := range keys {
-		sorted[j] = bs[k.i]
+	// Place j takes bs[keys[j].i]: applied in place cycle by cycle, each booking
+	// moved once through one spare, rather than through a sorted copy of them all.
+	for j := range keys {
+		if keys[j].i < 0 || keys[j].i == j {
+			continue
+		}
+		spare := bs[j]
+		at := j
+		for keys[at].i != j {
+			from := keys[at].i
+			bs[at] = bs[from]
+			keys[at].i = -1
+			at = from
+		}
+		bs[at] = spare
+		keys[at].i = -1
 	}
-	copy(bs, sorted)
 	for _, x := range bs {
 		if len(x.Usages) > 1 {
 			slices.SortFunc(x.Usages, func(u, v scheduling.Usage) int { return u.StartedAt.Compare(v.StartedAt) })
