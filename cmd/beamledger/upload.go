@@ -17,6 +17,7 @@ import (
 	"strconv"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"syscall"
 	"time"
 )
@@ -103,30 +104,105 @@ func cmdUpload(ctx context.Context, args []string, stdout, stderr io.Writer) err
 }
 
 // runUploads uploads every file under paths, going on after a failed file, and
-// fails if any did.
+// fails if any did. The files are opened (and, unless hashing while sending, hashed)
+// by prepareFiles one turn ahead of their sending.
 func runUploads(ctx context.Context, o uploadOptions, paths []string, stdout, stderr io.Writer) error {
 	files, err := filesUnder(paths)
 	if err != nil {
 		return err
 	}
+	ctx, stop := context.WithCancel(ctx)
+	defer stop()
+	next := prepareFiles(ctx, files, !o.hashWhileSending)
+	defer func() {
+		stop()
+		for p := range next { // what was prepared but not sent
+			p.close()
+		}
+	}()
 	state := &uploadState{path: o.statePath}
 	failed := 0
-	for _, path := range files {
+	for p := range next {
 		if err := ctx.Err(); err != nil {
+			p.close()
 			return err
 		}
-		sum, id, err := uploadOne(ctx, o, state, path, stderr)
+		sum, id, err := uploadOne(ctx, o, state, p, stderr)
+		p.close()
 		if err != nil {
 			failed++
-			fmt.Fprintf(stderr, "beamledger upload: %s: %v\n", path, err)
+			fmt.Fprintf(stderr, "beamledger upload: %s: %v\n", p.path, err)
 			continue
 		}
-		fmt.Fprintf(stdout, "%s  %s  %s\n", sum, id, path)
+		fmt.Fprintf(stdout, "%s  %s  %s\n", sum, id, p.path)
+	}
+	if err := ctx.Err(); err != nil {
+		return err
 	}
 	if failed > 0 {
 		return fmt.Errorf("%d of %d files failed", failed, len(files))
 	}
 	return nil
+}
+
+// preparedFile is a file opened for its turn, with its digest on the way.
+type preparedFile struct {
+	path string
+	f    *os.File
+	st   os.FileInfo
+	err  error // why it could not be opened
+	// hashed delivers the digest once, when hashed ahead (nil otherwise); read
+	// counts the bytes hashed so far.
+	hashed chan hashResult
+	read   atomic.Int64
+}
+
+func (p *preparedFile) close() {
+	if p.f != nil {
+		p.f.Close()
+	}
+}
+
+// prepareFiles opens the files in order and, with hash set, hashes each as soon as
+// the one before is hashed: the first is hashed while nothing else happens, every
+// other while the one before it is sent, so a folder costs one file's hashing more
+// than its sending rather than every file's. It stays one file ahead of the sending
+// (the channel holds one), and stops when ctx ends; the caller closes what it takes.
+func prepareFiles(ctx context.Context, files []string, hash bool) <-chan *preparedFile {
+	out := make(chan *preparedFile, 1)
+	go func() {
+		defer close(out)
+		for _, path := range files {
+			p := &preparedFile{path: path}
+			if p.f, p.err = os.Open(path); p.err == nil {
+				if p.st, p.err = p.f.Stat(); p.err != nil {
+					p.f.Close()
+					p.f = nil
+				}
+			}
+			if hash && p.err == nil {
+				p.hashed = make(chan hashResult, 1)
+			}
+			select {
+			case out <- p:
+			case <-ctx.Done():
+				p.close()
+				return
+			}
+			if p.hashed != nil {
+				p.hashed <- hashFile(ctx, p.f, p.st.Size(), countingWriter{&p.read})
+			}
+		}
+	}()
+	return out
+}
+
+// countingWriter counts what is written to it.
+type countingWriter struct{ n *atomic.Int64 }
+
+func (w countingWriter) Write(b []byte) (int, error) {
+	w.n.Add(int64(len(b)))
+	return len(b), nil
 }
 
 // filesUnder lists the regular files named or under the folders named, in order.
@@ -149,34 +225,34 @@ func filesUnder(paths []string) ([]string, error) {
 	return out, nil
 }
 
-// uploadOne creates (or finds again) and sends one file. The file is hashed while
-// it is sent, by a second reader running ahead: all but the last few MiB go first,
-// and the last request declares the digest (Repr-Digest, RFC 9530), which the
-// server checks before it records the file.
-func uploadOne(ctx context.Context, o uploadOptions, state *uploadState, path string, stderr io.Writer) (sum, id string, err error) {
-	f, err := os.Open(path)
-	if err != nil {
-		return "", "", err
+// uploadOne creates (or finds again) and sends one prepared file. By default its
+// digest, hashed ahead, is declared at creation, and the bar shows the hashing while
+// it is waited for. With -hash-while-sending a second reader hashes the file beside
+// the sending: all but the last few MiB go first, and the last request declares the
+// digest (Repr-Digest, RFC 9530), which the server checks before it records the file.
+func uploadOne(ctx context.Context, o uploadOptions, state *uploadState, p *preparedFile, stderr io.Writer) (sum, id string, err error) {
+	if p.err != nil {
+		return "", "", p.err
 	}
-	defer f.Close()
-	st, err := f.Stat()
-	if err != nil {
-		return "", "", err
-	}
+	path, f, st := p.path, p.f, p.st
 	bar := newProgress(stderr, filepath.Base(path), st.Size(), o)
-	hashed := make(chan hashResult, 1)
-	hashCtx, stopHashing := context.WithCancel(ctx)
-	defer stopHashing()
-	var counted io.Writer // hashing shows progress when nothing else does
-	if !o.hashWhileSending {
-		counted = bar.counter("hashing")
+	hashed := p.hashed
+	if hashed == nil {
+		// Hashed beside the sending, by a reader that stops when the file is done with.
+		hashCtx, stopHashing := context.WithCancel(ctx)
+		defer stopHashing()
+		ch := make(chan hashResult, 1)
+		go func() { ch <- hashFile(hashCtx, f, st.Size(), nil) }()
+		hashed = ch
 	}
-	go func() { hashed <- hashFile(hashCtx, f, st.Size(), counted) }()
 	abs, _ := filepath.Abs(path)
 	key := strings.Join([]string{o.server, abs, strconv.FormatInt(st.Size(), 10), strconv.FormatInt(st.ModTime().UnixNano(), 10)}, "|")
 	c := &tusClient{o: o, file: f, info: st, size: st.Size(), bar: bar, hashed: hashed}
 	if !o.hashWhileSending {
-		if _, err := c.digest(ctx); err != nil {
+		stop := bar.follow("hashing", func() (int64, bool) { return p.read.Load(), true })
+		_, err := c.digest(ctx)
+		stop()
+		if err != nil {
 			bar.done(err)
 			return "", "", err
 		}

@@ -41,6 +41,10 @@ func (p *progress) counter(phase string) io.Writer {
 // has been called, which waits for the last count.
 func (p *progress) follow(phase string, pos func() (int64, bool)) (stop func()) {
 	p.counter(phase)
+	if n, ok := pos(); ok {
+		// What was done before the bar followed it is not this phase's rate.
+		p.doneN, p.startN = n, n
+	}
 	quit, finished := make(chan struct{}), make(chan struct{})
 	go func() {
 		defer close(finished)

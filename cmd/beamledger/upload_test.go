@@ -532,3 +532,79 @@ func TestFileSectionBody(t *testing.T) {
 		}
 	}
 }
+
+// TestPrepareFilesHashesAhead: the next file is opened and hashed while the one
+// before is still held (being sent), one file ahead and no further; a file that
+// cannot be opened is handed over with its error in its turn; a cancelled context
+// ends the preparing.
+func TestPrepareFilesHashesAhead(t *testing.T) {
+	dir := t.TempDir()
+	var files []string
+	var want []string
+	for i, n := range []int{3 << 20, 1, 0, 5<<20 + 3} {
+		path := filepath.Join(dir, fmt.Sprintf("f%d.raw", i))
+		data := testPattern(n)
+		if i == 1 {
+			data = []byte("x")
+		}
+		if err := os.WriteFile(path, data, 0o600); err != nil {
+			t.Fatal(err)
+		}
+		files, want = append(files, path), append(want, hexSum(data))
+	}
+	files = slices.Insert(files, 2, filepath.Join(dir, "missing.raw"))
+	want = slices.Insert(want, 2, "")
+
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	next := prepareFiles(ctx, files, true)
+	var held []*preparedFile // every file taken stays open: none has been "sent"
+	for i := range files {
+		p, ok := <-next
+		if !ok {
+			t.Fatalf("the files ended after %d of %d", i, len(files))
+		}
+		held = append(held, p)
+		if p.path != files[i] {
+			t.Fatalf("turn %d: %s, want %s", i, p.path, files[i])
+		}
+		if want[i] == "" {
+			if p.err == nil || p.hashed != nil {
+				t.Errorf("the missing file came without its error")
+			}
+			continue
+		}
+		select {
+		case r := <-p.hashed:
+			if r.err != nil || r.sum != want[i] {
+				t.Errorf("%s: hashed %q, %v; want %s", p.path, r.sum, r.err, want[i])
+			}
+			if p.read.Load() != p.st.Size() {
+				t.Errorf("%s: %d of %d bytes counted as hashed", p.path, p.read.Load(), p.st.Size())
+			}
+		case <-time.After(10 * time.Second):
+			t.Fatalf("%s was not hashed while the files before it were held", p.path)
+		}
+	}
+	if _, ok := <-next; ok {
+		t.Errorf("a file past the list")
+	}
+	for _, p := range held {
+		p.close()
+	}
+
+	// Cancelled after the first file: the channel closes without the rest.
+	ctx2, cancel2 := context.WithCancel(context.Background())
+	next = prepareFiles(ctx2, files, true)
+	first := <-next
+	cancel2()
+	n := 0
+	for p := range next {
+		p.close()
+		n++
+	}
+	first.close()
+	if n > 1 {
+		t.Errorf("%d files prepared after the cancel; at most the one already waiting", n)
+	}
+}
