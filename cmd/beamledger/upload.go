@@ -41,7 +41,8 @@ type uploadOptions struct {
 
 // cmdUpload sends files (or folders' files) to the server as resumable uploads,
 // the way an instrument computer hands over what it recorded: each file is hashed
-// first and its digest declared when the upload is created, so the server writes
+// first (a folder's next file while the one before is sent) and its digest
+// declared when the upload is created, so the server writes
 // the bytes straight to their content address (and, for bytes it holds already,
 // only checks them) and checks the digest before recording the file. With
 // -hash-while-sending the file is read once, hashed as it goes, and its digest
