@@ -8,6 +8,7 @@ import (
 	"encoding/base64"
 	"encoding/hex"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
 	"log/slog"
@@ -606,5 +607,47 @@ func TestPrepareFilesHashesAhead(t *testing.T) {
 	first.close()
 	if n > 1 {
 		t.Errorf("%d files prepared after the cancel; at most the one already waiting", n)
+	}
+}
+
+// TestReopenRefusesReplacedFile: each request reopens the file being sent; a file
+// put in its place under the same name (a new inode) is refused, not sent.
+func TestReopenRefusesReplacedFile(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "scan.raw")
+	if err := os.WriteFile(path, testPattern(1000), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	f, err := os.Open(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	st, err := f.Stat()
+	if err != nil {
+		t.Fatal(err)
+	}
+	c := &tusClient{file: f, info: st, size: st.Size()}
+	g, err := c.reopen(400)
+	if err != nil {
+		t.Fatalf("reopening the same file: %v", err)
+	}
+	rest, _ := io.ReadAll(g)
+	g.Close()
+	if !bytes.Equal(rest, testPattern(1000)[400:]) {
+		t.Errorf("reopened at 400: %d bytes, not the file's rest", len(rest))
+	}
+	other := filepath.Join(dir, "other.raw")
+	if err := os.WriteFile(other, testPattern(1000), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	if err := os.Rename(other, path); err != nil {
+		t.Fatal(err)
+	}
+	if g, err := c.reopen(0); !errors.Is(err, errReading) {
+		if g != nil {
+			g.Close()
+		}
+		t.Errorf("a replaced file reopened: %v", err)
 	}
 }
