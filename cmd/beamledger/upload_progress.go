@@ -27,23 +27,18 @@ func newProgress(w io.Writer, name string, total int64, o uploadOptions) *progre
 	return &progress{w: w, name: name, total: total, terminal: o.terminal, every: o.progressEvery}
 }
 
-// counter returns a writer that counts bytes of the named phase.
-func (p *progress) counter(phase string) io.Writer {
+// follow counts the named phase's bytes by asking pos for the count (the file
+// offset reached) five times a second: bytes the kernel moves without passing them
+// through this process, or that another goroutine hashes. A new phase starts its
+// rate from where pos stands; following the same phase again (the next request of
+// an upload) goes on with its rate. Nothing else may touch the bar until the
+// returned stop has been called, which waits for the last count.
+func (p *progress) follow(phase string, pos func() (int64, bool)) (stop func()) {
 	if p.phase != phase {
 		p.phase, p.doneN, p.startN, p.started = phase, 0, 0, time.Now()
-	}
-	return progressWriter{p}
-}
-
-// follow counts the named phase's bytes by asking pos for the count (the file
-// offset reached) five times a second, for bytes the kernel moves without passing
-// them through this process. Nothing else may touch the bar until the returned stop
-// has been called, which waits for the last count.
-func (p *progress) follow(phase string, pos func() (int64, bool)) (stop func()) {
-	p.counter(phase)
-	if n, ok := pos(); ok {
-		// What was done before the bar followed it is not this phase's rate.
-		p.doneN, p.startN = n, n
+		if n, ok := pos(); ok {
+			p.doneN, p.startN = n, n
+		}
 	}
 	quit, finished := make(chan struct{}), make(chan struct{})
 	go func() {
@@ -74,14 +69,6 @@ func (p *progress) set(n int64) {
 	if p.startN > n || p.startN == 0 {
 		p.startN, p.started = n, time.Now()
 	}
-}
-
-type progressWriter struct{ p *progress }
-
-func (w progressWriter) Write(b []byte) (int, error) {
-	w.p.doneN += int64(len(b))
-	w.p.draw(false)
-	return len(b), nil
 }
 
 // draw writes the line when it is time to.

@@ -651,3 +651,29 @@ func TestReopenRefusesReplacedFile(t *testing.T) {
 		t.Errorf("a replaced file reopened: %v", err)
 	}
 }
+
+// TestProgressFollowKeepsPhaseRate: an upload sent in several requests follows the
+// same phase once per request, and its rate runs from where the phase began, not
+// from the last request; a new phase starts its rate afresh from where it stands.
+func TestProgressFollowKeepsPhaseRate(t *testing.T) {
+	p := newProgress(io.Discard, "scan.raw", 100<<20, uploadOptions{progressEvery: time.Hour})
+	at := int64(10 << 20)
+	pos := func() (int64, bool) { return at, true }
+	p.follow("hashing", pos)()
+	if p.phase != "hashing" || p.startN != 10<<20 || p.doneN != 10<<20 {
+		t.Fatalf("new phase: phase %q, start %d, done %d", p.phase, p.startN, p.doneN)
+	}
+	// A resumed upload: its first request goes on from 4 MiB.
+	at = 4 << 20
+	p.set(at)
+	p.follow("uploading", pos)()
+	began := p.started
+	for _, off := range []int64{8 << 20, 12 << 20} {
+		p.set(off)
+		at = off
+		p.follow("uploading", pos)()
+		if p.started != began || p.startN != 4<<20 {
+			t.Errorf("request at %d: the phase's rate starts at %d from %v, want 4 MiB from %v", off, p.startN, p.started, began)
+		}
+	}
+}
