@@ -466,34 +466,44 @@ func (c *tusClient) send(ctx context.Context, loc string, offset int64) (string,
 	}
 }
 
-// fileSection is a request body of a file's bytes from its current offset up to end.
-// It is a syscall.Conn too: net/http sends a body of announced length through a
-// limit of that length, and a TCP connection sends a limited syscall.Conn with
-// sendfile(2), so the kernel moves the bytes from the page cache to the socket
-// without copying them through this process. Read, the way otherwise, stops at end
-// by the file's offset, which is also where sendfile leaves it.
+// fileSection is a request body of a file's bytes from pos up to end, pos being the
+// file's offset. It is a syscall.Conn too: net/http sends a body of announced length
+// through a limit of that length, and a TCP connection sends a limited syscall.Conn
+// with sendfile(2), so the kernel moves the bytes from the page cache to the socket
+// without copying them through this process. Read, the way otherwise (a TLS
+// connection), stops at end; it counts what it reads, and asks the file for its
+// offset again only after the descriptor was lent out, since sendfile moves it.
 type fileSection struct {
-	f   *os.File
-	end int64
+	f        *os.File
+	pos, end int64
+	lent     bool
 }
 
 func (s *fileSection) Read(p []byte) (int, error) {
-	pos, err := s.f.Seek(0, io.SeekCurrent)
-	if err != nil {
-		return 0, err
+	if s.lent {
+		pos, err := s.f.Seek(0, io.SeekCurrent)
+		if err != nil {
+			return 0, err
+		}
+		s.pos, s.lent = pos, false
 	}
-	if pos >= s.end {
+	if s.pos >= s.end {
 		return 0, io.EOF
 	}
-	if int64(len(p)) > s.end-pos {
-		p = p[:s.end-pos]
+	if int64(len(p)) > s.end-s.pos {
+		p = p[:s.end-s.pos]
 	}
-	return s.f.Read(p)
+	n, err := s.f.Read(p)
+	s.pos += int64(n)
+	return n, err
 }
 
 func (s *fileSection) Close() error { return s.f.Close() }
 
-func (s *fileSection) SyscallConn() (syscall.RawConn, error) { return s.f.SyscallConn() }
+func (s *fileSection) SyscallConn() (syscall.RawConn, error) {
+	s.lent = true
+	return s.f.SyscallConn()
+}
 
 // reopen opens the file being sent once more, positioned at offset, for one
 // request to own. It refuses a file that is no longer the one being sent (replaced
@@ -561,7 +571,7 @@ func (c *tusClient) patch(ctx context.Context, loc string, offset int64) (id str
 		// The request's own file at the offset, which the transport closes once it is
 		// done with it (after a failure, that can be after Do has returned: no other
 		// request shares its offset). The bar follows the file's offset meanwhile.
-		body = &fileSection{f: f, end: offset + n}
+		body = &fileSection{f: f, pos: offset, end: offset + n}
 		stop := c.bar.follow("uploading", func() (int64, bool) {
 			off, err := f.Seek(0, io.SeekCurrent)
 			return off, err == nil

@@ -488,8 +488,9 @@ type roundTripFunc func(*http.Request) (*http.Response, error)
 func (f roundTripFunc) RoundTrip(r *http.Request) (*http.Response, error) { return f(r) }
 
 // TestFileSectionBody: a request body of a file section carries exactly the
-// section's bytes, both over a TCP connection (where net/http hands it to sendfile)
-// and read the ordinary way; the transport's check that the body is no longer than
+// section's bytes, over a plain TCP connection (where net/http hands it to sendfile
+// after reading its first bytes), over TLS (read the ordinary way), and read
+// directly; the transport's check that the body is no longer than
 // announced reads on past the section and must find its end.
 func TestFileSectionBody(t *testing.T) {
 	data := testPattern(3<<20 + 11)
@@ -506,14 +507,18 @@ func TestFileSectionBody(t *testing.T) {
 		if _, err := f.Seek(offset, io.SeekStart); err != nil {
 			t.Fatal(err)
 		}
-		return &fileSection{f: f, end: end}
+		return &fileSection{f: f, pos: offset, end: end}
 	}
 	var got []byte
-	srv := httptest.NewServer(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
-		got, _ = io.ReadAll(r.Body)
-	}))
-	defer srv.Close()
-	for _, c := range []struct{ offset, end int64 }{{0, 1 << 20}, {1<<20 + 7, 3 << 20}, {3 << 20, int64(len(data))}} {
+	handler := http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) { got, _ = io.ReadAll(r.Body) })
+	plain, tls := httptest.NewServer(handler), httptest.NewTLSServer(handler) // sendfile; Read only
+	defer plain.Close()
+	defer tls.Close()
+	for i, c := range []struct{ offset, end int64 }{{0, 1 << 20}, {1<<20 + 7, 3 << 20}, {3 << 20, int64(len(data))}, {5, 2<<20 + 1}} {
+		srv := plain
+		if i%2 == 1 {
+			srv = tls
+		}
 		req, err := http.NewRequest(http.MethodPut, srv.URL, section(c.offset, c.end))
 		if err != nil {
 			t.Fatal(err)
