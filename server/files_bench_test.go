@@ -19,7 +19,7 @@ import (
 	"beamledger/storage/objects/objectstest"
 )
 
-// The data-file benchmarks run only under `make bench-files`, beside the anchors in
+// The data-file benchmarks run under `make bench SUITES=files`, beside the anchors in
 // storage/objects (BenchmarkRawPutObject), against the harness's S3 server:
 //
 //	go run ./deploy/testenv -- go test -run '^$' -bench 'RawPutObject|FileUpload|UploadCommand|Scrub' -benchtime 1x ./storage/objects/ ./server/ ./cmd/beamledger/

@@ -14,10 +14,11 @@ import (
 )
 
 // BenchmarkUploadCommand sends a 2 GiB file with `beamledger upload` (hashing it
-// while sending, in one PATCH for all but the last 8 MiB and one with the digest)
-// to a server in this process over the harness's S3 server. Run it with the other data-file benchmarks
-// (`make bench-files`) and compare its MB/s with BenchmarkRawPutObject; the time
-// includes the command's own reading and hashing of the file.
+// first, since its digest names the object, then sending it with the digest
+// declared) to a server in this process over the harness's S3 server. Run it
+// with the other data-file benchmarks (`make bench SUITES=files`) and compare
+// its MB/s with BenchmarkRawPutObject; the time includes the command's own
+// reading and hashing of the file.
 func BenchmarkUploadCommand(b *testing.B) {
 	s3 := objectstest.Config(b)
 	objectstest.Open(b, s3) // the bucket, emptied afterwards

@@ -14,6 +14,9 @@ import (
 // unavailableMessage is what a caller is told when the store is down.
 const unavailableMessage = "the object store could not be reached; try again later"
 
+// changedMessage is what a caller is told when bytes changed on their way to the store.
+const changedMessage = "the object store received bytes that differ from those sent and kept none of them; try again"
+
 // mapS3Error turns minio-go errors into domain errors, by S3 error code and
 // HTTP status, never by message text. what names the thing for a not-found
 // message ("object sha256/ab/…", "upload …"). Errors it does not know pass
@@ -42,6 +45,11 @@ func mapS3Error(err error, what string) error {
 		// A missing bucket is the store's configuration, not the
 		// caller's object: a 500, not a 404.
 		return err
+	}
+	if resp.Code == "BadDigest" {
+		// The server received other bytes than were sent, and kept none
+		// of them: the way there, not the caller, is at fault.
+		return &s3Error{beamledger.Unavailable(changedMessage), err}
 	}
 	if reason, ok := invalidCodes[resp.Code]; ok {
 		return &s3Error{beamledger.InvalidField(reason[0], reason[1]), err}

@@ -2,9 +2,12 @@ package objects
 
 import (
 	"context"
+	"encoding/base64"
 	"errors"
 	"fmt"
+	"hash/crc32"
 	"io"
+	"net/http"
 	"strings"
 
 	"github.com/minio/minio-go/v7"
@@ -26,7 +29,8 @@ func (s *S3) CreateMultipart(ctx context.Context, key string) (string, error) {
 	return id, nil
 }
 
-// PutPart uploads one part, streaming it from r.
+// PutPart uploads one part, streaming it from r, unsigned, with a trailing
+// CRC32C the server checks (see S3).
 func (s *S3) PutPart(ctx context.Context, key, uploadID string, n int, r io.Reader, size int64) (Part, error) {
 	if err := checkKey("key", key); err != nil {
 		return Part{}, err
@@ -40,7 +44,8 @@ func (s *S3) PutPart(ctx context.Context, key, uploadID string, n int, r io.Read
 	if uploadID == "" {
 		return Part{}, beamledger.NotFound("upload")
 	}
-	p, err := s.core.PutObjectPart(ctx, s.bucket, key, uploadID, n, newSizedReader(r, size), size, minio.PutObjectPartOptions{})
+	body, po := checksummed(newSizedReader(r, size), size)
+	p, err := s.core.PutObjectPart(ctx, s.bucket, key, uploadID, n, body, size, po)
 	if err != nil {
 		return Part{}, mapS3Error(err, "upload "+uploadID)
 	}
@@ -129,3 +134,32 @@ func (s *S3) ListMultipart(ctx context.Context, prefix string) ([]PendingUpload,
 		keyMarker, idMarker = res.NextKeyMarker, res.NextUploadIDMarker
 	}
 }
+
+// checksummed readies a part's body: unsigned, its CRC32C computed as it is
+// sent and given to the server in the request's trailer, which minio-go writes
+// after the body. The trailer holds a value of the same length from the start,
+// since the request's length is worked out before it is sent. An empty part
+// has nothing to check.
+func checksummed(r io.Reader, size int64) (io.Reader, minio.PutObjectPartOptions) {
+	po := minio.PutObjectPartOptions{DisableContentSha256: true}
+	if size == 0 {
+		return r, po
+	}
+	sum := crc32.New(castagnoli)
+	po.Trailer = http.Header{}
+	set := func() { po.Trailer.Set(crc32cTrailer, base64.StdEncoding.EncodeToString(sum.Sum(nil))) }
+	set()
+	return readerFunc(func(p []byte) (int, error) {
+		n, err := r.Read(p)
+		sum.Write(p[:n])
+		if err == io.EOF {
+			set()
+		}
+		return n, err
+	}), po
+}
+
+// crc32cTrailer is the S3 field for a CRC32C (Castagnoli) of the body.
+const crc32cTrailer = "X-Amz-Checksum-Crc32c"
+
+var castagnoli = crc32.MakeTable(crc32.Castagnoli)

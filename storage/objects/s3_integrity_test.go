@@ -1,0 +1,165 @@
+package objects
+
+import (
+	"bytes"
+	"io"
+	"net"
+	"sync"
+	"sync/atomic"
+	"testing"
+
+	"beamledger"
+)
+
+// TestS3RefusesBytesChangedOnTheWay puts a proxy between the store and the
+// harness's S3 server that, when told to, changes every 0xFF byte it passes
+// towards the server into 0xFE (request heads are ASCII, so only bodies are
+// touched). The store sends payloads unsigned, so the CRC32C it sends with
+// every write is all that stands between such a change and a stored object:
+// each way of writing must be refused with ErrUnavailable and leave nothing
+// behind, while the same writes without 0xFF bytes pass through the same proxy
+// intact.
+func TestS3RefusesBytesChangedOnTheWay(t *testing.T) {
+	cfg := harnessS3Config(t)
+	p := startFlipProxy(t, cfg.Endpoint)
+	cfg.Endpoint = p.addr
+	st := newTestS3(t, cfg)
+	ctx := t.Context()
+
+	clean := func(n int, seed uint64) []byte {
+		return bytes.ReplaceAll(randomBytes(n, seed), []byte{0xFF}, []byte{0x00})
+	}
+	marked := func(n int, seed uint64, at int) []byte {
+		b := clean(n, seed)
+		b[at] = 0xFF
+		return b
+	}
+	small, large := 1000, 2*testPartSize+12345
+
+	p.flip.Store(true)
+	t.Run("clean bytes pass", func(t *testing.T) {
+		for _, n := range []int{small, large} {
+			data := clean(n, uint64(n))
+			key := "clean/" + sha256Hex(data)
+			put(t, st, key, data)
+			if got := read(t, st, key, 0, -1); !bytes.Equal(got, data) {
+				t.Errorf("%d bytes through the proxy came back different", n)
+			}
+		}
+		data := clean(testPartSize, 7)
+		id, err := st.CreateMultipart(ctx, "clean/parts")
+		if err != nil {
+			t.Fatal(err)
+		}
+		part, err := st.PutPart(ctx, "clean/parts", id, 1, onlyReader{bytes.NewReader(data)}, int64(len(data)))
+		if err != nil {
+			t.Fatalf("PutPart: %v", err)
+		}
+		if _, err := st.CompleteMultipart(ctx, "clean/parts", id, []Part{part}, PutOptions{}); err != nil {
+			t.Fatalf("CompleteMultipart: %v", err)
+		}
+		if got := read(t, st, "clean/parts", 0, -1); !bytes.Equal(got, data) {
+			t.Error("a part through the proxy came back different")
+		}
+	})
+	if p.flipped.Load() != 0 {
+		t.Fatalf("the proxy changed %d bytes of clean data", p.flipped.Load())
+	}
+
+	t.Run("a single PUT", func(t *testing.T) {
+		data := marked(small, 1, small/2)
+		_, err := st.Put(ctx, "changed/single", onlyReader{bytes.NewReader(data)}, int64(len(data)), PutOptions{})
+		wantKind(t, err, beamledger.ErrUnavailable, "Put of changed bytes")
+		_, err = st.Stat(ctx, "changed/single")
+		wantKind(t, err, beamledger.ErrNotFound, "Stat after a refused Put")
+	})
+	t.Run("a multipart Put", func(t *testing.T) {
+		// The change is in the second of three parts.
+		data := marked(large, 2, testPartSize+100)
+		_, err := st.Put(ctx, "changed/multipart", onlyReader{bytes.NewReader(data)}, int64(len(data)), PutOptions{})
+		wantKind(t, err, beamledger.ErrUnavailable, "Put of changed bytes")
+		_, err = st.Stat(ctx, "changed/multipart")
+		wantKind(t, err, beamledger.ErrNotFound, "Stat after a refused Put")
+		if ids := pending(t, st, "changed/multipart"); len(ids) != 0 {
+			t.Errorf("the refused Put left uploads %v", ids)
+		}
+	})
+	t.Run("a part", func(t *testing.T) {
+		data := marked(testPartSize, 3, testPartSize-1)
+		id, err := st.CreateMultipart(ctx, "changed/part")
+		if err != nil {
+			t.Fatal(err)
+		}
+		_, err = st.PutPart(ctx, "changed/part", id, 1, onlyReader{bytes.NewReader(data)}, int64(len(data)))
+		wantKind(t, err, beamledger.ErrUnavailable, "PutPart of changed bytes")
+		if err := st.AbortMultipart(ctx, "changed/part", id); err != nil {
+			t.Fatal(err)
+		}
+	})
+	if p.flipped.Load() == 0 {
+		t.Fatal("the proxy changed no byte: the refusals above prove nothing")
+	}
+}
+
+// flipProxy relays TCP connections to one address, changing 0xFF bytes sent
+// towards it into 0xFE while flip is set.
+type flipProxy struct {
+	addr    string
+	flip    atomic.Bool
+	flipped atomic.Int64
+}
+
+func startFlipProxy(t *testing.T, target string) *flipProxy {
+	t.Helper()
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := &flipProxy{addr: ln.Addr().String()}
+	var wg sync.WaitGroup
+	var mu sync.Mutex
+	var conns []net.Conn
+	t.Cleanup(func() {
+		ln.Close()
+		mu.Lock()
+		for _, c := range conns {
+			c.Close()
+		}
+		mu.Unlock()
+		wg.Wait()
+	})
+	wg.Go(func() {
+		for {
+			c, err := ln.Accept()
+			if err != nil {
+				return
+			}
+			s, err := net.Dial("tcp", target)
+			if err != nil {
+				c.Close()
+				continue
+			}
+			mu.Lock()
+			conns = append(conns, c, s)
+			mu.Unlock()
+			wg.Go(func() { _, _ = io.Copy(c, s); c.Close() })
+			wg.Go(func() { _, _ = io.Copy(s, p.reader(c)); s.Close() })
+		}
+	})
+	return p
+}
+
+func (p *flipProxy) reader(r io.Reader) io.Reader {
+	return readerFunc(func(b []byte) (int, error) {
+		n, err := r.Read(b)
+		if p.flip.Load() {
+			for i, c := range b[:n] {
+				if c == 0xFF {
+					b[i] = 0xFE
+					p.flipped.Add(1)
+				}
+			}
+		}
+		return n, err
+	})
+}
