@@ -174,6 +174,12 @@ func prepareFiles(ctx context.Context, files []string, hash bool) <-chan *prepar
 	go func() {
 		defer close(out)
 		for _, path := range files {
+			// Checked first: a select with both cases ready picks either, so
+			// once cancelled it would otherwise go on handing files over as
+			// fast as they are taken.
+			if ctx.Err() != nil {
+				return
+			}
 			p := &preparedFile{path: path}
 			if p.f, p.err = os.Open(path); p.err == nil {
 				if p.st, p.err = p.f.Stat(); p.err != nil {
