@@ -329,10 +329,16 @@ func (w *uploadWriter) write(ctx context.Context, b batch) (wr written, err erro
 		if b.start > start {
 			segs = w.u.Segments
 		}
-		sr := &segmentReader{ctx: ctx, objects: w.s.objects, uploadID: w.id, segs: segs}
-		defer sr.Close()
-		part, err := w.s.objects.PutPart(ctx, w.objectKey, w.multipartID, int(start/max(w.partBytes, 1))+1,
-			io.MultiReader(sr, bytes.NewReader(b.buf)), end-start)
+		// A part held whole goes as a bytes.Reader, which the store may read
+		// twice: S3 then sends the part's CRC32C ahead of it, sparing the S3
+		// server the chunked framing a trailer needs.
+		var body io.Reader = bytes.NewReader(b.buf)
+		if len(segs) > 0 {
+			sr := &segmentReader{ctx: ctx, objects: w.s.objects, uploadID: w.id, segs: segs}
+			defer sr.Close()
+			body = io.MultiReader(sr, body)
+		}
+		part, err := w.s.objects.PutPart(ctx, w.objectKey, w.multipartID, int(start/max(w.partBytes, 1))+1, body, end-start)
 		if err != nil {
 			return written{}, err
 		}

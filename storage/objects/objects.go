@@ -105,7 +105,9 @@ type Store interface {
 	// CreateMultipart begins a multipart upload to key.
 	CreateMultipart(ctx context.Context, key string) (uploadID string, err error)
 	// PutPart stores part number n (1 to 10 000) of size bytes from r, replacing an
-	// earlier part n. An unknown upload is ErrNotFound.
+	// earlier part n. An unknown upload is ErrNotFound. An r that can seek may be
+	// read through first (to check-sum the part before sending it) and is left
+	// past the part.
 	PutPart(ctx context.Context, key, uploadID string, n int, r io.Reader, size int64) (Part, error)
 	// CompleteMultipart joins the parts, in order, into the object. parts must be in
 	// increasing order of number, with the ETags PutPart returned, and every part but

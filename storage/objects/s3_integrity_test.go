@@ -2,11 +2,15 @@ package objects
 
 import (
 	"bytes"
+	"fmt"
 	"io"
 	"net"
+	"strings"
 	"sync"
 	"sync/atomic"
 	"testing"
+
+	"github.com/minio/minio-go/v7"
 
 	"beamledger"
 )
@@ -61,6 +65,30 @@ func TestS3RefusesBytesChangedOnTheWay(t *testing.T) {
 		if got := read(t, st, "clean/parts", 0, -1); !bytes.Equal(got, data) {
 			t.Error("a part through the proxy came back different")
 		}
+		// The upload declared CRC32C, so the object carries the parts' sums
+		// combined (S3's composite form: the sum of the sums, "-" and the count).
+		oi, err := st.client.StatObject(ctx, st.bucket, "clean/parts", minio.StatObjectOptions{Checksum: true})
+		if err != nil || !strings.HasSuffix(oi.ChecksumCRC32C, "-1") {
+			t.Errorf("the multipart object's CRC32C is %q (%v), want a composite of one part", oi.ChecksumCRC32C, err)
+		}
+	})
+	t.Run("an upload begun without CRC32C", func(t *testing.T) {
+		// As an earlier version began them, and one may still be open.
+		id, err := st.core.NewMultipartUpload(ctx, st.bucket, "clean/older", minio.PutObjectOptions{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		data := clean(testPartSize, 8)
+		part, err := st.PutPart(ctx, "clean/older", id, 1, bytes.NewReader(data), int64(len(data)))
+		if err != nil {
+			t.Fatalf("PutPart: %v", err)
+		}
+		if _, err := st.CompleteMultipart(ctx, "clean/older", id, []Part{part}, PutOptions{}); err != nil {
+			t.Fatalf("CompleteMultipart: %v", err)
+		}
+		if got := read(t, st, "clean/older", 0, -1); !bytes.Equal(got, data) {
+			t.Error("the older upload's object came back different")
+		}
 	})
 	if p.flipped.Load() != 0 {
 		t.Fatalf("the proxy changed %d bytes of clean data", p.flipped.Load())
@@ -85,15 +113,19 @@ func TestS3RefusesBytesChangedOnTheWay(t *testing.T) {
 		}
 	})
 	t.Run("a part", func(t *testing.T) {
+		// A part that can seek has its sum sent ahead as a header; any other,
+		// in a trailer after it.
 		data := marked(testPartSize, 3, testPartSize-1)
-		id, err := st.CreateMultipart(ctx, "changed/part")
-		if err != nil {
-			t.Fatal(err)
-		}
-		_, err = st.PutPart(ctx, "changed/part", id, 1, onlyReader{bytes.NewReader(data)}, int64(len(data)))
-		wantKind(t, err, beamledger.ErrUnavailable, "PutPart of changed bytes")
-		if err := st.AbortMultipart(ctx, "changed/part", id); err != nil {
-			t.Fatal(err)
+		for _, body := range []io.Reader{onlyReader{bytes.NewReader(data)}, bytes.NewReader(data)} {
+			id, err := st.CreateMultipart(ctx, "changed/part")
+			if err != nil {
+				t.Fatal(err)
+			}
+			_, err = st.PutPart(ctx, "changed/part", id, 1, body, int64(len(data)))
+			wantKind(t, err, beamledger.ErrUnavailable, fmt.Sprintf("PutPart of changed bytes from a %T", body))
+			if err := st.AbortMultipart(ctx, "changed/part", id); err != nil {
+				t.Fatal(err)
+			}
 		}
 	})
 	if p.flipped.Load() == 0 {

@@ -15,14 +15,18 @@ import (
 	"beamledger"
 )
 
-// CreateMultipart begins an upload. S3 takes an object's content type and
-// retention when an upload begins, but the interface takes them at
-// completion: see CompleteMultipart.
+// CreateMultipart begins an upload, declaring that its parts come with
+// CRC32Cs: without that, versitygw works out a CRC64NVME of every part as well,
+// which on two cores made the parts of a 2 GiB upload take 6.0–6.2 s instead of
+// 4.6–4.9 s. S3 takes an object's content type and retention when an upload
+// begins, but the interface takes them at completion: see CompleteMultipart.
 func (s *S3) CreateMultipart(ctx context.Context, key string) (string, error) {
 	if err := checkKey("key", key); err != nil {
 		return "", err
 	}
-	id, err := s.core.NewMultipartUpload(ctx, s.bucket, key, minio.PutObjectOptions{})
+	id, err := s.core.NewMultipartUpload(ctx, s.bucket, key, minio.PutObjectOptions{
+		UserMetadata: map[string]string{"X-Amz-Checksum-Algorithm": string(crc32cAlgorithm)},
+	})
 	if err != nil {
 		return "", mapS3Error(err, "object "+key)
 	}
@@ -44,7 +48,10 @@ func (s *S3) PutPart(ctx context.Context, key, uploadID string, n int, r io.Read
 	if uploadID == "" {
 		return Part{}, beamledger.NotFound("upload")
 	}
-	body, po := checksummed(newSizedReader(r, size), size)
+	body, po, err := checksummed(r, size)
+	if err != nil {
+		return Part{}, err
+	}
 	p, err := s.core.PutObjectPart(ctx, s.bucket, key, uploadID, n, body, size, po)
 	if err != nil {
 		return Part{}, mapS3Error(err, "upload "+uploadID)
@@ -66,9 +73,13 @@ func (s *S3) CompleteMultipart(ctx context.Context, key, uploadID string, parts 
 	if uploadID == "" {
 		return Info{}, beamledger.NotFound("upload")
 	}
+	sums, err := s.partChecksums(ctx, key, uploadID)
+	if err != nil {
+		return Info{}, mapS3Error(err, "upload "+uploadID)
+	}
 	complete := make([]minio.CompletePart, len(parts))
 	for i, p := range parts {
-		complete[i] = minio.CompletePart{PartNumber: p.Number, ETag: p.ETag}
+		complete[i] = minio.CompletePart{PartNumber: p.Number, ETag: p.ETag, ChecksumCRC32C: sums[p.Number]}
 	}
 	up, err := s.core.CompleteMultipartUpload(ctx, s.bucket, key, uploadID, complete, minio.PutObjectOptions{})
 	if minio.ToErrorResponse(err).Code == "InvalidPart" && !s.uploadExists(ctx, key, uploadID) {
@@ -93,6 +104,29 @@ func (s *S3) CompleteMultipart(ctx context.Context, key, uploadID string, parts 
 
 // uploadExists reports whether the upload is still pending; an error other
 // than NoSuchUpload counts as "exists", leaving the original error to speak.
+// partChecksums gives the CRC32C the server took for each part of an upload
+// that declared CRC32C when it began, which the completion must repeat; an
+// upload begun without (by an earlier version) has none to give.
+func (s *S3) partChecksums(ctx context.Context, key, uploadID string) (map[int]string, error) {
+	sums := map[int]string{}
+	for marker := 0; ; {
+		res, err := s.core.ListObjectParts(ctx, s.bucket, key, uploadID, marker, 1000)
+		if err != nil {
+			return nil, err
+		}
+		if !strings.EqualFold(res.ChecksumAlgorithm, string(crc32cAlgorithm)) {
+			return nil, nil
+		}
+		for _, p := range res.ObjectParts {
+			sums[p.PartNumber] = p.ChecksumCRC32C
+		}
+		if !res.IsTruncated || res.NextPartNumberMarker <= marker {
+			return sums, nil
+		}
+		marker = res.NextPartNumberMarker
+	}
+}
+
 func (s *S3) uploadExists(ctx context.Context, key, uploadID string) bool {
 	_, err := s.core.ListObjectParts(ctx, s.bucket, key, uploadID, 0, 1)
 	return minio.ToErrorResponse(err).Code != "NoSuchUpload"
@@ -135,17 +169,36 @@ func (s *S3) ListMultipart(ctx context.Context, prefix string) ([]PendingUpload,
 	}
 }
 
-// checksummed readies a part's body: unsigned, its CRC32C computed as it is
-// sent and given to the server in the request's trailer, which minio-go writes
-// after the body. The trailer holds a value of the same length from the start,
-// since the request's length is worked out before it is sent. An empty part
-// has nothing to check.
-func checksummed(r io.Reader, size int64) (io.Reader, minio.PutObjectPartOptions) {
+// checksummed readies a part's body, unsigned, with the CRC32C of its bytes.
+// A body that can seek is read through for the sum first, which is then sent
+// as a header; any other has its sum computed as it is sent and given to the
+// server in the request's trailer, which minio-go writes after the body in
+// chunked framing (each 64 KiB with a line of its own, which the S3 server
+// has to take apart again). The trailer holds a value of the same length from
+// the start, since the request's length is worked out before it is sent. An
+// empty part has nothing to check.
+func checksummed(r io.Reader, size int64) (io.Reader, minio.PutObjectPartOptions, error) {
 	po := minio.PutObjectPartOptions{DisableContentSha256: true}
 	if size == 0 {
-		return r, po
+		return newSizedReader(r, size), po, nil
 	}
 	sum := crc32.New(castagnoli)
+	if rs, ok := r.(io.ReadSeeker); ok {
+		start, err := rs.Seek(0, io.SeekCurrent)
+		if err == nil {
+			_, err = io.Copy(sum, newSizedReader(rs, size))
+		}
+		if err == nil {
+			_, err = rs.Seek(start, io.SeekStart)
+		}
+		if err != nil {
+			return nil, po, err
+		}
+		po.CustomHeader = http.Header{}
+		po.CustomHeader.Set(crc32cTrailer, base64.StdEncoding.EncodeToString(sum.Sum(nil)))
+		return newSizedReader(rs, size), po, nil
+	}
+	r = newSizedReader(r, size)
 	po.Trailer = http.Header{}
 	set := func() { po.Trailer.Set(crc32cTrailer, base64.StdEncoding.EncodeToString(sum.Sum(nil))) }
 	set()
@@ -156,10 +209,14 @@ func checksummed(r io.Reader, size int64) (io.Reader, minio.PutObjectPartOptions
 			set()
 		}
 		return n, err
-	}), po
+	}), po, nil
 }
 
-// crc32cTrailer is the S3 field for a CRC32C (Castagnoli) of the body.
-const crc32cTrailer = "X-Amz-Checksum-Crc32c"
+// crc32cTrailer is the S3 field for a CRC32C (Castagnoli) of the body, and
+// crc32cAlgorithm the name S3 gives the algorithm.
+const (
+	crc32cTrailer   = "X-Amz-Checksum-Crc32c"
+	crc32cAlgorithm = "CRC32C"
+)
 
 var castagnoli = crc32.MakeTable(crc32.Castagnoli)
