@@ -117,6 +117,9 @@ type S3Config struct {
 	SecretKey string
 	UseTLS    bool
 	PathStyle bool
+	// SignPayload signs payloads instead of sending them with a CRC32C, for
+	// S3 servers that take no checksums (objects.S3Config.SignPayload).
+	SignPayload bool
 	// CreateBucket creates the bucket on first use when it is missing; ObjectLock
 	// creates it with object locking, which retention needs.
 	CreateBucket bool

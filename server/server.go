@@ -245,7 +245,7 @@ func openObjects(cfg Config) (objects.Store, error) {
 		defer cancel()
 		return objects.NewS3(ctx, objects.S3Config{Endpoint: cfg.S3.Endpoint, Region: cfg.S3.Region, Bucket: cfg.S3.Bucket,
 			AccessKey: cfg.S3.AccessKey, SecretKey: cfg.S3.SecretKey, UseTLS: cfg.S3.UseTLS, PathStyle: cfg.S3.PathStyle,
-			CreateBucket: cfg.S3.CreateBucket, ObjectLock: cfg.S3.ObjectLock})
+			SignPayload: cfg.S3.SignPayload, CreateBucket: cfg.S3.CreateBucket, ObjectLock: cfg.S3.ObjectLock})
 	}
 	return objects.NewDisk(cfg.ObjectDir)
 }

@@ -134,6 +134,8 @@ func objectFlags(e *envFlags, cfg *server.Config) {
 	e.str(&cfg.S3.Bucket, "s3-bucket", "BEAMLEDGER_S3_BUCKET", "S3 bucket")
 	e.boolean(&cfg.S3.UseTLS, "s3-tls", "BEAMLEDGER_S3_TLS", "use TLS to reach S3")
 	e.boolean(&cfg.S3.PathStyle, "s3-path-style", "BEAMLEDGER_S3_PATH_STYLE", "path-style S3 addressing")
+	e.boolean(&cfg.S3.SignPayload, "s3-sign-payload", "BEAMLEDGER_S3_SIGN_PAYLOAD",
+		"sign S3 payloads instead of sending a CRC32C with them (for S3 servers without checksums)")
 }
 
 // readSecrets fills the secret settings, which come only from the environment or files.

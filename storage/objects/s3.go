@@ -56,6 +56,11 @@ type S3Config struct {
 	// default. Larger objects need their size passed to Put, a larger
 	// PartSize, or the multipart methods.
 	PartSize uint64
+	// SignPayload signs every payload (AWS signature version 4, chunk by
+	// chunk) instead of sending it unsigned with a CRC32C: for S3 servers
+	// that take neither trailing checksums nor CRC32C. It hashes every byte
+	// with SHA-256 once more on each side. See S3.
+	SignPayload bool
 	// MaxAttempts is how often a request is tried before its error is
 	// returned; 0 means minio-go's default of 10, with back-off between tries
 	// of up to a second.
@@ -84,7 +89,10 @@ type S3Config struct {
 // TLS the request is still signed, but a party on the network could replace
 // a body with one of its own and a matching CRC32C; the SHA-256 callers keep
 // for the content (S3 has none for multipart objects) is what scrubbing
-// checks. Use TLS on any network that is not trusted.
+// checks. Use TLS on any network that is not trusted. With
+// S3Config.SignPayload the payloads are signed instead (minio-go's default),
+// for servers that take no checksums; a changed byte then fails the
+// signature, reported the same way.
 type S3 struct {
 	client   *minio.Client
 	core     minio.Core
@@ -93,6 +101,8 @@ type S3 struct {
 	// locking records whether the bucket has object locking, found out by
 	// NewS3: RetainUntil is applied only then.
 	locking bool
+	// sign is S3Config.SignPayload.
+	sign bool
 }
 
 var _ Store = (*S3)(nil)
@@ -119,12 +129,12 @@ func NewS3(ctx context.Context, cfg S3Config) (*S3, error) {
 		MaxRetries:   cfg.MaxAttempts,
 		// Trailing headers carry a single PUT's CRC32C, computed while the
 		// body is sent, and let a multipart upload declare its checksum.
-		TrailingHeaders: true,
+		TrailingHeaders: !cfg.SignPayload,
 	})
 	if err != nil {
 		return nil, fmt.Errorf("objects: S3 endpoint %q: %w", cfg.Endpoint, err)
 	}
-	s := &S3{client: client, core: minio.Core{Client: client}, bucket: cfg.Bucket, partSize: cfg.PartSize}
+	s := &S3{client: client, core: minio.Core{Client: client}, bucket: cfg.Bucket, partSize: cfg.PartSize, sign: cfg.SignPayload}
 	if err := s.prepareBucket(ctx, cfg); err != nil {
 		return nil, err
 	}
@@ -240,9 +250,10 @@ func (s *S3) Put(ctx context.Context, key string, r io.Reader, size int64, opts 
 		ContentType: opts.ContentType,
 		PartSize:    ps,
 		NumThreads:  1,
+	}
+	if !s.sign {
 		// Unsigned payload with CRC32C per part (see S3).
-		DisableContentSha256: true,
-		Checksum:             minio.ChecksumCRC32C,
+		po.DisableContentSha256, po.Checksum = true, minio.ChecksumCRC32C
 	}
 	if size < 0 || uint64(size) > ps {
 		// Two part buffers: the next part is read from the source while the one
@@ -252,7 +263,7 @@ func (s *S3) Put(ctx context.Context, key string, r io.Reader, size int64, opts 
 	}
 	po.Mode, po.RetainUntilDate = s.retention(opts)
 	if _, err := s.client.PutObject(ctx, s.bucket, key, r, size, po); err != nil {
-		return Info{}, mapS3Error(err, "object "+key)
+		return Info{}, mapWriteError(err, "object "+key)
 	}
 	return s.stat(ctx, key)
 }

@@ -47,8 +47,9 @@ func mapS3Error(err error, what string) error {
 		return err
 	}
 	if resp.Code == "BadDigest" {
-		// The server received other bytes than were sent, and kept none
-		// of them: the way there, not the caller, is at fault.
+		// The server received other bytes than were sent (their CRC32C does
+		// not match), and kept none of them: the way there, not the caller,
+		// is at fault.
 		return &s3Error{beamledger.Unavailable(changedMessage), err}
 	}
 	if reason, ok := invalidCodes[resp.Code]; ok {
@@ -61,6 +62,18 @@ func mapS3Error(err error, what string) error {
 		return &s3Error{beamledger.Unavailable(unavailableMessage), err}
 	}
 	return err
+}
+
+// mapWriteError is mapS3Error for a request that sent a payload: a signature
+// the server does not match then most likely means the payload changed on the
+// way (with S3Config.SignPayload its chunks are signed), answered as BadDigest
+// is. Wrong credentials fail the signature too, but they fail NewS3's first
+// request already; the S3 error stays wrapped for the log either way.
+func mapWriteError(err error, what string) error {
+	if minio.ToErrorResponse(err).Code == "SignatureDoesNotMatch" {
+		return &s3Error{beamledger.Unavailable(changedMessage), err}
+	}
+	return mapS3Error(err, what)
 }
 
 // invalidCodes words the S3 errors that blame the request, as a field and a

@@ -18,15 +18,23 @@ import (
 // TestS3RefusesBytesChangedOnTheWay puts a proxy between the store and the
 // harness's S3 server that, when told to, changes every 0xFF byte it passes
 // towards the server into 0xFE (request heads are ASCII, so only bodies are
-// touched). The store sends payloads unsigned, so the CRC32C it sends with
-// every write is all that stands between such a change and a stored object:
-// each way of writing must be refused with ErrUnavailable and leave nothing
-// behind, while the same writes without 0xFF bytes pass through the same proxy
-// intact.
+// touched). By default the store sends payloads unsigned, so the CRC32C it
+// sends with every write is all that stands between such a change and a
+// stored object; with SignPayload, the payload's signature is. Either way each
+// way of writing must be refused with ErrUnavailable and leave nothing behind,
+// while the same writes without 0xFF bytes pass through the same proxy intact.
 func TestS3RefusesBytesChangedOnTheWay(t *testing.T) {
+	for _, sign := range []bool{false, true} {
+		t.Run(map[bool]string{false: "unsigned with CRC32C", true: "signed"}[sign], func(t *testing.T) {
+			testChangedBytes(t, sign)
+		})
+	}
+}
+
+func testChangedBytes(t *testing.T, sign bool) {
 	cfg := harnessS3Config(t)
 	p := startFlipProxy(t, cfg.Endpoint)
-	cfg.Endpoint = p.addr
+	cfg.Endpoint, cfg.SignPayload = p.addr, sign
 	st := newTestS3(t, cfg)
 	ctx := t.Context()
 
@@ -65,11 +73,12 @@ func TestS3RefusesBytesChangedOnTheWay(t *testing.T) {
 		if got := read(t, st, "clean/parts", 0, -1); !bytes.Equal(got, data) {
 			t.Error("a part through the proxy came back different")
 		}
-		// The upload declared CRC32C, so the object carries the parts' sums
-		// combined (S3's composite form: the sum of the sums, "-" and the count).
+		// Unsigned, the upload declared CRC32C, so the object carries the parts'
+		// sums combined (S3's composite form: the sum of the sums, "-" and the
+		// count); signed, it declared none.
 		oi, err := st.client.StatObject(ctx, st.bucket, "clean/parts", minio.StatObjectOptions{Checksum: true})
-		if err != nil || !strings.HasSuffix(oi.ChecksumCRC32C, "-1") {
-			t.Errorf("the multipart object's CRC32C is %q (%v), want a composite of one part", oi.ChecksumCRC32C, err)
+		if composite := strings.HasSuffix(oi.ChecksumCRC32C, "-1"); err != nil || composite == sign {
+			t.Errorf("the multipart object's CRC32C is %q (%v); signed %v", oi.ChecksumCRC32C, err, sign)
 		}
 	})
 	t.Run("an upload begun without CRC32C", func(t *testing.T) {

@@ -24,9 +24,11 @@ func (s *S3) CreateMultipart(ctx context.Context, key string) (string, error) {
 	if err := checkKey("key", key); err != nil {
 		return "", err
 	}
-	id, err := s.core.NewMultipartUpload(ctx, s.bucket, key, minio.PutObjectOptions{
-		UserMetadata: map[string]string{"X-Amz-Checksum-Algorithm": string(crc32cAlgorithm)},
-	})
+	var po minio.PutObjectOptions
+	if !s.sign {
+		po.UserMetadata = map[string]string{"X-Amz-Checksum-Algorithm": string(crc32cAlgorithm)}
+	}
+	id, err := s.core.NewMultipartUpload(ctx, s.bucket, key, po)
 	if err != nil {
 		return "", mapS3Error(err, "object "+key)
 	}
@@ -48,13 +50,17 @@ func (s *S3) PutPart(ctx context.Context, key, uploadID string, n int, r io.Read
 	if uploadID == "" {
 		return Part{}, beamledger.NotFound("upload")
 	}
-	body, po, err := checksummed(r, size)
-	if err != nil {
-		return Part{}, err
+	var body io.Reader = newSizedReader(r, size)
+	var po minio.PutObjectPartOptions // signed, with SignPayload
+	if !s.sign {
+		var err error
+		if body, po, err = checksummed(r, size); err != nil {
+			return Part{}, err
+		}
 	}
 	p, err := s.core.PutObjectPart(ctx, s.bucket, key, uploadID, n, body, size, po)
 	if err != nil {
-		return Part{}, mapS3Error(err, "upload "+uploadID)
+		return Part{}, mapWriteError(err, "upload "+uploadID)
 	}
 	return Part{Number: p.PartNumber, ETag: strings.Trim(p.ETag, `"`), Size: size}, nil
 }
