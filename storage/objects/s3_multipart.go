@@ -35,8 +35,8 @@ func (s *S3) CreateMultipart(ctx context.Context, key string) (string, error) {
 	return id, nil
 }
 
-// PutPart uploads one part, streaming it from r, unsigned, with a trailing
-// CRC32C the server checks (see S3).
+// PutPart uploads one part, streaming it from r, unsigned with its CRC32C for
+// the server to check (see checksummed), or signed with SignPayload.
 func (s *S3) PutPart(ctx context.Context, key, uploadID string, n int, r io.Reader, size int64) (Part, error) {
 	if err := checkKey("key", key); err != nil {
 		return Part{}, err
@@ -108,8 +108,6 @@ func (s *S3) CompleteMultipart(ctx context.Context, key, uploadID string, parts 
 	return s.stat(ctx, key)
 }
 
-// uploadExists reports whether the upload is still pending; an error other
-// than NoSuchUpload counts as "exists", leaving the original error to speak.
 // partChecksums gives the CRC32C the server took for each part of an upload
 // that declared CRC32C when it began, which the completion must repeat; an
 // upload begun without (by an earlier version) has none to give.
@@ -133,6 +131,8 @@ func (s *S3) partChecksums(ctx context.Context, key, uploadID string) (map[int]s
 	}
 }
 
+// uploadExists reports whether the upload is still pending; an error other
+// than NoSuchUpload counts as "exists", leaving the original error to speak.
 func (s *S3) uploadExists(ctx context.Context, key, uploadID string) bool {
 	_, err := s.core.ListObjectParts(ctx, s.bucket, key, uploadID, 0, 1)
 	return minio.ToErrorResponse(err).Code != "NoSuchUpload"
@@ -201,12 +201,12 @@ func checksummed(r io.Reader, size int64) (io.Reader, minio.PutObjectPartOptions
 			return nil, po, err
 		}
 		po.CustomHeader = http.Header{}
-		po.CustomHeader.Set(crc32cTrailer, base64.StdEncoding.EncodeToString(sum.Sum(nil)))
+		po.CustomHeader.Set(crc32cField, base64.StdEncoding.EncodeToString(sum.Sum(nil)))
 		return newSizedReader(rs, size), po, nil
 	}
 	r = newSizedReader(r, size)
 	po.Trailer = http.Header{}
-	set := func() { po.Trailer.Set(crc32cTrailer, base64.StdEncoding.EncodeToString(sum.Sum(nil))) }
+	set := func() { po.Trailer.Set(crc32cField, base64.StdEncoding.EncodeToString(sum.Sum(nil))) }
 	set()
 	return readerFunc(func(p []byte) (int, error) {
 		n, err := r.Read(p)
@@ -218,10 +218,10 @@ func checksummed(r io.Reader, size int64) (io.Reader, minio.PutObjectPartOptions
 	}), po, nil
 }
 
-// crc32cTrailer is the S3 field for a CRC32C (Castagnoli) of the body, and
-// crc32cAlgorithm the name S3 gives the algorithm.
+// crc32cField is the S3 header or trailer for a CRC32C (Castagnoli) of the
+// body, and crc32cAlgorithm the name S3 gives the algorithm.
 const (
-	crc32cTrailer   = "X-Amz-Checksum-Crc32c"
+	crc32cField     = "X-Amz-Checksum-Crc32c"
 	crc32cAlgorithm = "CRC32C"
 )
 
