@@ -119,7 +119,17 @@ func (s *Server) start(ctx context.Context, opts Options, data string) error {
 	if err != nil {
 		return fmt.Errorf("s3server: %w", err)
 	}
-	defer logFile.Close() // the child has its own copy
+	// The child writes through a pipe that a goroutine of os/exec copies into
+	// logFile and opts.Log (a MultiWriter is not a file the child can be
+	// given). logFile stays open until the process is waited for: closed any
+	// earlier, the copying stops at the child's next line, its pipe breaks,
+	// and versitygw (a Go program) dies of SIGPIPE at the line after that.
+	closeLog := true
+	defer func() {
+		if closeLog {
+			logFile.Close()
+		}
+	}()
 
 	// Keys go in the environment rather than on the command line, where
 	// any user could read them with ps. These are the first names
@@ -139,8 +149,10 @@ func (s *Server) start(ctx context.Context, opts Options, data string) error {
 	}
 	s.cmd = cmd
 	s.exited = make(chan struct{})
+	closeLog = false
 	go func() {
-		_ = cmd.Wait()
+		_ = cmd.Wait() // returns once the copying is done
+		logFile.Close()
 		close(s.exited)
 	}()
 	if err := s.waitReady(ctx); err != nil {
