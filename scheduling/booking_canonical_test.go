@@ -1,28 +1,10 @@
 package scheduling
 
 import (
-	"encoding/json"
 	"math/rand/v2"
 	"testing"
 	"time"
-
-	"github.com/gowebpki/jcs"
 )
-
-// generalBookingCanonical is the general way for a booking: encoding/json, then
-// RFC 8785 canonicalization by github.com/gowebpki/jcs.
-func generalBookingCanonical(t testing.TB, b Booking) []byte {
-	t.Helper()
-	raw, err := json.Marshal(b)
-	if err != nil {
-		t.Fatal(err)
-	}
-	canon, err := jcs.Transform(raw)
-	if err != nil {
-		t.Fatal(err)
-	}
-	return canon
-}
 
 // randomBooking fills every member, each optional one both present and absent across
 // calls, with strings that need escaping and instants with and without fractions.
@@ -68,7 +50,7 @@ func TestBookingCanonicalJSONIsTheGeneralWays(t *testing.T) {
 			t.Fatalf("booking %d: %v", i, err)
 		}
 		// [computed] github.com/gowebpki/jcs (RFC 8785) over encoding/json's output.
-		if want := generalBookingCanonical(t, b); string(got) != string(want) {
+		if want := generalCanonical(t, b); string(got) != string(want) {
 			t.Fatalf("booking %d:\n got %s\nwant %s", i, got, want)
 		}
 	}
@@ -77,7 +59,7 @@ func TestBookingCanonicalJSONIsTheGeneralWays(t *testing.T) {
 	b := Booking{ID: "b", InstrumentID: "i", ProjectID: "p", UserID: "u", Kind: KindIndependent, Start: at, End: at.Add(time.Hour),
 		Status: StatusActive, CreatedAt: at, CreatedBy: "u", UpdatedAt: at}
 	got, err := b.AppendCanonicalJSON([]byte("prefix:"))
-	if err != nil || string(got) != "prefix:"+string(generalBookingCanonical(t, b)) {
+	if err != nil || string(got) != "prefix:"+string(generalCanonical(t, b)) {
 		t.Fatalf("appending after a prefix: %s, %v", got, err)
 	}
 	for name, bad := range map[string]func(*Booking){

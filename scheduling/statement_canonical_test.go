@@ -12,9 +12,9 @@ import (
 
 // generalCanonical is the general way: encoding/json, then RFC 8785 canonicalization
 // by github.com/gowebpki/jcs, the library the ledger uses for every other state.
-func generalCanonical(t testing.TB, r StatementRecord) []byte {
+func generalCanonical(t testing.TB, v any) []byte {
 	t.Helper()
-	raw, err := json.Marshal(r)
+	raw, err := json.Marshal(v)
 	if err != nil {
 		t.Fatal(err)
 	}
