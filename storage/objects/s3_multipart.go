@@ -79,6 +79,10 @@ func (s *S3) CompleteMultipart(ctx context.Context, key, uploadID string, parts 
 	if uploadID == "" {
 		return Info{}, beamledger.NotFound("upload")
 	}
+	// Listing the parts first also answers an upload that is gone with
+	// NoSuchUpload (ErrNotFound, as Disk does), before the completion: versitygw
+	// checks the ETags' form before the upload id, and would call a malformed
+	// ETag to an aborted upload InvalidPart.
 	sums, err := s.partChecksums(ctx, key, uploadID)
 	if err != nil {
 		return Info{}, mapS3Error(err, "upload "+uploadID)
@@ -88,12 +92,6 @@ func (s *S3) CompleteMultipart(ctx context.Context, key, uploadID string, parts 
 		complete[i] = minio.CompletePart{PartNumber: p.Number, ETag: p.ETag, ChecksumCRC32C: sums[p.Number]}
 	}
 	up, err := s.core.CompleteMultipartUpload(ctx, s.bucket, key, uploadID, complete, minio.PutObjectOptions{})
-	if minio.ToErrorResponse(err).Code == "InvalidPart" && !s.uploadExists(ctx, key, uploadID) {
-		// versitygw checks the ETags' form before the upload id, so a
-		// malformed ETag to an aborted upload says InvalidPart; the upload
-		// being gone is the truer answer, and the one Disk gives.
-		return Info{}, beamledger.NotFound("upload")
-	}
 	if err != nil {
 		return Info{}, mapS3Error(err, "upload "+uploadID)
 	}
@@ -129,13 +127,6 @@ func (s *S3) partChecksums(ctx context.Context, key, uploadID string) (map[int]s
 		}
 		marker = res.NextPartNumberMarker
 	}
-}
-
-// uploadExists reports whether the upload is still pending; an error other
-// than NoSuchUpload counts as "exists", leaving the original error to speak.
-func (s *S3) uploadExists(ctx context.Context, key, uploadID string) bool {
-	_, err := s.core.ListObjectParts(ctx, s.bucket, key, uploadID, 0, 1)
-	return minio.ToErrorResponse(err).Code != "NoSuchUpload"
 }
 
 // AbortMultipart aborts an upload; one already gone is not an error.
