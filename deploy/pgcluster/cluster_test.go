@@ -10,6 +10,7 @@ import (
 	"os/exec"
 	"os/user"
 	"path/filepath"
+	"slices"
 	"strconv"
 	"strings"
 	"sync"
@@ -203,6 +204,18 @@ func TestThrowawayCluster(t *testing.T) {
 	if os.Geteuid() == 0 {
 		assertOwnedByPostgres(t, c.RealDir)
 	}
+	// The server runs with the allocator settings that spare it refaulting the
+	// memory of every large row (see mallocTunables); its children inherit them.
+	// (glibc, reading them at start, may leave NULs for the colons between them.)
+	if environ, err := os.ReadFile("/proc/" + strconv.Itoa(c.pid) + "/environ"); err != nil {
+		t.Errorf("server environment: %v", err)
+	} else {
+		for _, tunable := range strings.Split(mallocTunables, ":") {
+			if !strings.Contains(string(environ), tunable) {
+				t.Errorf("server environment lacks %s", tunable)
+			}
+		}
+	}
 	if c.SocketDir == "" {
 		t.Error("no Unix socket for a short temp path")
 	}
@@ -219,6 +232,30 @@ func TestThrowawayCluster(t *testing.T) {
 	if conn, err := net.DialTimeout("tcp", net.JoinHostPort("127.0.0.1", strconv.Itoa(c.Port)), time.Second); err == nil {
 		conn.Close()
 		t.Errorf("port %d still accepts connections after Stop", c.Port)
+	}
+}
+
+func TestWithMallocTunables(t *testing.T) {
+	for _, tc := range []struct {
+		env  []string
+		want string // GLIBC_TUNABLES after
+	}{
+		{[]string{"PATH=/bin"}, mallocTunables},
+		{[]string{"GLIBC_TUNABLES="}, mallocTunables},
+		{[]string{"GLIBC_TUNABLES=glibc.malloc.arena_max=2"}, "glibc.malloc.arena_max=2:" + mallocTunables},
+		// An operator's own choice of either threshold stands as given.
+		{[]string{"GLIBC_TUNABLES=glibc.malloc.trim_threshold=1024"}, "glibc.malloc.trim_threshold=1024"},
+		{[]string{"GLIBC_TUNABLES=glibc.malloc.mmap_threshold=1024"}, "glibc.malloc.mmap_threshold=1024"},
+	} {
+		var got []string
+		for _, kv := range withMallocTunables(slices.Clone(tc.env)) {
+			if v, ok := strings.CutPrefix(kv, "GLIBC_TUNABLES="); ok {
+				got = append(got, v)
+			}
+		}
+		if len(got) != 1 || got[0] != tc.want {
+			t.Errorf("withMallocTunables(%q): GLIBC_TUNABLES %q, want [%q]", tc.env, got, tc.want)
+		}
 	}
 }
 

@@ -116,6 +116,7 @@ func (c *Cluster) startServer(ctx context.Context, port int) error {
 	out := newTailBuffer(8 << 10)
 	cmd := c.acct.command(ctx, c.RealDir, c.Binaries.Path("pg_ctl"),
 		"start", "-D", c.RealDir, "-l", logPath, "-w", "-t", "120", "-s")
+	cmd.Env = withMallocTunables(cmd.Env)
 	cmd.Stdout = io.MultiWriter(c.log, out)
 	cmd.Stderr = cmd.Stdout
 	runErr := cmd.Run()
@@ -351,4 +352,35 @@ func (c *Cluster) Crash(ctx context.Context) error {
 // connections (after recovery, when it crashed).
 func (c *Cluster) Restart(ctx context.Context) error {
 	return c.start(ctx, c.Port)
+}
+
+// mallocTunables keep a server process's freed memory for its next allocation
+// instead of handing it back to the kernel at once. A statement's ledger event is
+// a value of a hundred kilobytes or more: PostgreSQL builds each row it inserts
+// in one allocation of that size and frees it after, and with glibc's defaults
+// (memory past 128 KiB at the top of the heap is trimmed, and blocks from 128 KiB
+// are mapped afresh) every such row faulted its pages in again. Measured on the
+// cost-recovery benchmark's 300 events of 127 KB, the COPY took 225–250 ms with
+// the defaults and 85–120 ms with these. The price is that a server process may
+// hold up to 64 MiB it no longer uses, on top of its peak. The server is linked
+// against glibc on every system this package supports; elsewhere the variable is
+// ignored.
+const mallocTunables = "glibc.malloc.trim_threshold=67108864:glibc.malloc.mmap_threshold=4194304"
+
+// withMallocTunables adds mallocTunables to env's GLIBC_TUNABLES, unless the caller
+// already sets either of those two tunables, whose choice stands.
+func withMallocTunables(env []string) []string {
+	for i, kv := range env {
+		v, ok := strings.CutPrefix(kv, "GLIBC_TUNABLES=")
+		switch {
+		case !ok:
+			continue
+		case v == "":
+			env[i] = "GLIBC_TUNABLES=" + mallocTunables
+		case !strings.Contains(v, "glibc.malloc.trim_threshold") && !strings.Contains(v, "glibc.malloc.mmap_threshold"):
+			env[i] = kv + ":" + mallocTunables
+		}
+		return env
+	}
+	return append(env, "GLIBC_TUNABLES="+mallocTunables)
 }
