@@ -5,6 +5,7 @@ import (
 	"context"
 	"encoding/json"
 	"reflect"
+	"strings"
 	"testing"
 	"time"
 
@@ -168,5 +169,67 @@ func TestComputeStatementsForManyProjects(t *testing.T) {
 	lines := len(kept.Record().Lines)
 	if after != before || lines != 1 {
 		t.Errorf("failed batch left %d new ledger events and %d lines on %s (want 0 and 1)", after-before, lines, sts[0].Record().ID)
+	}
+}
+
+// TestStatementReadsEveryUsageAndOwnSplit prices bookings from everything read beside
+// each one: a booking checked in twice is charged for both usages, a booking with its
+// own split posts to that split, and a booking that cannot be priced is named, the
+// first of its project's by start when several cannot.
+func TestStatementReadsEveryUsageAndOwnSplit(t *testing.T) {
+	db, _ := openRaw(t)
+	ctx := context.Background()
+	from := time.Date(2031, 3, 1, 0, 0, 0, 0, time.UTC)
+	to := from.AddDate(0, 1, 0)
+	mgr, pi, in := billingFacility(t, db, from)
+	p := fundedProject(t, db, mgr, pi, "P-1")
+	at := func(h, m int) time.Time { return from.Add(time.Duration(h)*time.Hour + time.Duration(m)*time.Minute) }
+	twice := mustBook(t, db, in.ID, p.ID, pi.ID, at(9, 0), at(11, 0))
+	for _, u := range [][2]time.Time{{at(9, 0), at(10, 0)}, {at(10, 30), at(12, 30)}} {
+		if _, err := db.CheckIn(ctx, twice, u[0], pi.ID, scheduling.SourceUser); err != nil {
+			t.Fatal(err)
+		}
+		if _, err := db.CheckOut(ctx, twice, u[1], pi.ID); err != nil {
+			t.Fatal(err)
+		}
+	}
+	other, err := db.SaveFundingAccount(ctx, scheduling.FundingAccount{ProjectID: p.ID, Code: "G-OWN"}, mgr.ID, t0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ownID := mustBook(t, db, in.ID, p.ID, pi.ID, at(13, 0), at(14, 0))
+	own, err := db.Booking(ctx, ownID)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := db.SetBookingFunding(ctx, own, []scheduling.FundingShare{{AccountID: other.ID, BasisPoints: 10000}}, mgr.ID, t0); err != nil {
+		t.Fatal(err)
+	}
+	st, _, err := db.ComputeStatement(ctx, p.ID, from, to, mgr.ID, to)
+	if err != nil {
+		t.Fatal(err)
+	}
+	lines := st.Record().Lines
+	if len(lines) != 2 {
+		t.Fatalf("%d lines, want 2: %+v", len(lines), lines)
+	}
+	// [constructed] booked 2 h, used 09:00–10:00 and 10:30–12:30 (3 h): the greater, 3 h
+	// at 120/h → 360.00. Without the second usage it would be the booked 2 h, 240.00.
+	if l := lines[0]; l.BookingID != twice || l.Minutes != 180 || l.AmountMinor != 36000 {
+		t.Errorf("booking used twice: %+v", l)
+	}
+	// [constructed] 1 h booked at 120/h → 120.00, all to the booking's own account.
+	if l := lines[1]; l.BookingID != ownID || l.AmountMinor != 12000 || len(l.Allocations) != 1 || l.Allocations[0].AccountID != other.ID {
+		t.Errorf("booking with its own split: %+v", l)
+	}
+
+	// Two bookings on an instrument without a rate schedule: the error names the
+	// earlier, whatever order the read brings them in.
+	bare := mustCreateInstrument(t, db, "TEM-2")
+	late := mustBook(t, db, bare.ID, p.ID, pi.ID, at(40, 0), at(41, 0))
+	early := mustBook(t, db, bare.ID, p.ID, pi.ID, at(30, 0), at(31, 0))
+	_, _, err = db.ComputeStatement(ctx, p.ID, from, to, mgr.ID, to)
+	if err == nil || !strings.Contains(err.Error(), early) || strings.Contains(err.Error(), late) {
+		t.Errorf("pricing error %v, want one naming booking %s only", err, early)
 	}
 }
