@@ -205,6 +205,12 @@ type querier interface {
 	Exec(ctx context.Context, sql string, args ...any) (pgconn.CommandTag, error)
 }
 
+// batcher is what a transaction and a pooled connection can do to send several
+// statements in one round trip.
+type batcher interface {
+	SendBatch(ctx context.Context, b *pgx.Batch) pgx.BatchResults
+}
+
 // bookingContext reads what the rules need for booking nb, leaving out booking
 // excludeID (being moved), and, when a prime-time allowance applies, takes the
 // project's lock for it.
@@ -224,7 +230,7 @@ func (db *DB) bookingContext(ctx context.Context, tx pgx.Tx, nb scheduling.NewBo
 // Conflict naming it, as bookingError words it. It leaves PrimeUsedMinutes at zero.
 // capped reports that the booking's funding split posts to an account with a cap,
 // which checkFundingCaps judges inside a transaction.
-func (db *DB) readBookingContext(ctx context.Context, q querier, nb scheduling.NewBooking, now time.Time, excludeID string) (bc scheduling.BookingContext, taken error, capped bool, err error) {
+func (db *DB) readBookingContext(ctx context.Context, q batcher, nb scheduling.NewBooking, now time.Time, excludeID string) (bc scheduling.BookingContext, taken error, capped bool, err error) {
 	var zone string
 	var facilityRules, instrumentRules []byte
 	// One round trip for the facility, the instrument, membership, the booked user's
@@ -259,9 +265,32 @@ WHERE f.id = 1 AND i.id = $1`
 	var qAt, qUsed, ibStart, ibEnd, sbStart, sbEnd *time.Time
 	var qIdle *int
 	var unfunded []byte
-	err = q.QueryRow(ctx, sql, nb.InstrumentID, nb.UserID, nb.ProjectID, nb.Start, nb.End, now, nb.StaffID, excludeID).Scan(
-		&zone, &facilityRules, &instrumentRules, &bc.Bookable, &bc.InstrumentName, &bc.Member,
-		&qID, &qLevel, &qBy, &qAt, &qReason, &qIdle, &qUsed, &bc.HeldUntil, &ibStart, &ibEnd, &sbStart, &sbEnd, &unfunded)
+	// The read runs on the plan PostgreSQL keeps for the prepared statement. Left to
+	// choose, PostgreSQL plans it afresh for every call as soon as the bookings table
+	// holds a few thousand rows (the kept plan, made without the range, reckons with
+	// thousands of overlapping bookings where there are at most a few), and planning
+	// this join costs several times what running it does. The setting is local to the
+	// transaction: the batch's own implicit one, which ends with it, or the caller's,
+	// where the batch puts the default back after the read.
+	var batch pgx.Batch
+	batch.Queue(`SELECT set_config('plan_cache_mode', 'force_generic_plan', true)`)
+	batch.Queue(sql, nb.InstrumentID, nb.UserID, nb.ProjectID, nb.Start, nb.End, now, nb.StaffID, excludeID)
+	_, inTx := q.(pgx.Tx)
+	if inTx {
+		batch.Queue(`SET LOCAL plan_cache_mode TO DEFAULT`)
+	}
+	br := q.SendBatch(ctx, &batch)
+	if _, err = br.Exec(); err == nil {
+		err = br.QueryRow().Scan(
+			&zone, &facilityRules, &instrumentRules, &bc.Bookable, &bc.InstrumentName, &bc.Member,
+			&qID, &qLevel, &qBy, &qAt, &qReason, &qIdle, &qUsed, &bc.HeldUntil, &ibStart, &ibEnd, &sbStart, &sbEnd, &unfunded)
+	}
+	if inTx && err == nil {
+		_, err = br.Exec()
+	}
+	if cerr := br.Close(); err == nil {
+		err = cerr
+	}
 	if errors.Is(err, pgx.ErrNoRows) {
 		return bc, nil, false, beamledger.NotFound("instrument (or the facility is not set up)")
 	}

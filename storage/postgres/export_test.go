@@ -1,6 +1,12 @@
 package postgres
 
-import "context"
+import (
+	"context"
+
+	"github.com/jackc/pgx/v5"
+
+	"beamledger/scheduling"
+)
 
 // MigrateTo moves the schema up or down to version, for tests of a migration's data
 // handling (beamledger itself only ever migrates up, with Migrate).
@@ -20,4 +26,46 @@ func (db *DB) MigrateTo(ctx context.Context, version int64) error {
 		_, err = p.UpTo(ctx, version)
 	}
 	return err
+}
+
+// BookingContextPlans reads the rules context of nb n times on one pooled connection,
+// in one transaction when inTx, and reports how PostgreSQL ran those reads: how many
+// on its kept generic plan and how many on a plan made for their arguments, and the
+// session's plan_cache_mode after them (inside the transaction when inTx).
+func (db *DB) BookingContextPlans(ctx context.Context, nb scheduling.NewBooking, n int, inTx bool) (generic, custom int64, after string, err error) {
+	conn, err := db.pool.Acquire(ctx)
+	if err != nil {
+		return 0, 0, "", err
+	}
+	defer conn.Release()
+	const counts = `
+SELECT coalesce(sum(generic_plans), 0), coalesce(sum(custom_plans), 0) FROM pg_prepared_statements
+WHERE statement LIKE '%FROM facility f CROSS JOIN instruments i%' AND statement NOT LIKE '%pg_prepared_statements%'`
+	var g0, c0, g1, c1 int64
+	if err := conn.QueryRow(ctx, counts).Scan(&g0, &c0); err != nil {
+		return 0, 0, "", err
+	}
+	read := func(q interface {
+		batcher
+		querier
+	}) error {
+		for range n {
+			if _, _, _, err := db.readBookingContext(ctx, q, nb, nb.Start, ""); err != nil {
+				return err
+			}
+		}
+		return q.QueryRow(ctx, `SHOW plan_cache_mode`).Scan(&after)
+	}
+	if inTx {
+		err = pgx.BeginFunc(ctx, conn, func(tx pgx.Tx) error { return read(tx) })
+	} else {
+		err = read(conn)
+	}
+	if err != nil {
+		return 0, 0, "", err
+	}
+	if err := conn.QueryRow(ctx, counts).Scan(&g1, &c1); err != nil {
+		return 0, 0, "", err
+	}
+	return g1 - g0, c1 - c0, after, nil
 }
