@@ -150,12 +150,12 @@ func runClients(b *testing.B, op func(r *rand.Rand, warm bool) (created bool, er
 // BenchmarkBookingCreate compares, against the same PostgreSQL in one run, (a) the bare
 // pgx insert into the bookings table with its exclusion constraint and (b) a booking
 // create through the whole HTTP stack: JWT, JSON, authorization, rules in the
-// booking's transaction, history. Run with `make bench`; compare creates/s and p99-ms
+// booking's transaction, ledger event. Run with `make bench`; compare creates/s and p99-ms
 // of the two sub-benchmarks.
 //
 // The HTTP path issues two statements per created booking on one pooled connection:
 // the rules context, which also reads the first active booking the range overlaps, and
-// the insert with its history row. A conflict the context read already sees is
+// the insert with its ledger event. A conflict the context read already sees is
 // answered from that one statement; only a booking made in between reaches the
 // insert's exclusion constraint and a third statement naming the range. Verified
 // access tokens are remembered until they expire, and the account check is cached for

@@ -43,7 +43,7 @@ var suites = []suite{
 		Name: "booking", Packages: []string{"./server/"}, Bench: "^BenchmarkBookingCreate$", Benchtime: "3000x", Count: 3,
 		About: "64 clients book random 1–4 h ranges on 8 instruments (about one in five conflicts). Anchor: the bare pgx insert " +
 			"into the bookings table with its exclusion constraints; measured: a booking through the whole HTTP stack " +
-			"(JWT, JSON, authorization, rules, the booking with its history row and ledger event).",
+			"(JWT, JSON, authorization, rules, the booking with its ledger event).",
 		Figures: []figure{
 			{Label: "bookings created per second, HTTP vs raw insert", Of: at("BookingCreate/http", "creates/s"),
 				Per: anchor("BookingCreate/raw_pgx", "creates/s"), Op: "≥", Limit: 0.5},

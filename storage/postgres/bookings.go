@@ -62,7 +62,7 @@ func (db *DB) CreateBooking(ctx context.Context, nb scheduling.NewBooking, now t
 
 // createBookingDirect books without an explicit transaction when nothing needs one:
 // the context is read in one statement, the rules are checked, and the booking with
-// its history row is written in a second, which the exclusion constraints guard as
+// its ledger event is written in a second, which the exclusion constraints guard as
 // always. A read committed transaction would give the rules no stronger view, since
 // it locks nothing it reads. The context read also finds an active booking the range
 // already overlaps, so that a booking which passes the rules but hits a taken range is
@@ -131,7 +131,10 @@ func (db *DB) createBooking(ctx context.Context, tx pgx.Tx, nb scheduling.NewBoo
 	return insertBooking(ctx, tx, nb, now, displaced)
 }
 
-// insertBooking writes the booking and its "created" event in one statement.
+// insertBooking writes the booking and its ledger event in one statement. The
+// booking's history has no row for its creation: the booking row holds who made it and
+// when, and BookingEvents derives the entry from it (the range it was made with is
+// the first move's before, or the range it still has).
 func insertBooking(ctx context.Context, db querier, nb scheduling.NewBooking, now time.Time, displaced []string) (scheduling.Booking, error) {
 	id := nb.ID
 	if id == "" {
@@ -152,11 +155,9 @@ func insertBooking(ctx context.Context, db querier, nb scheduling.NewBooking, no
 WITH b AS (
     INSERT INTO bookings (id, instrument_id, project_id, user_id, kind, during, staff_id, series_id, note, created_at, created_by, updated_at)
     VALUES ($1, $2, nullif($3, '')::uuid, $4, $5, tstzrange($6, $7, '[)'), nullif($8, '')::uuid, nullif($9, '')::uuid, $10, $11, $12, $11)
-    RETURNING id, during),
-l AS (
-    INSERT INTO ledger_events (actor, at, action, entity_type, entity_id, leaf)
-    SELECT $12, $13, $14, $15, id::text, $16 FROM b)
-INSERT INTO booking_events (booking_id, at, actor, action, after) SELECT id, $11, $12, 'created', during FROM b`
+    RETURNING id)
+INSERT INTO ledger_events (actor, at, action, entity_type, entity_id, leaf)
+SELECT $12, $13, $14, $15, id::text, $16 FROM b`
 	if _, err := db.Exec(ctx, q, id, nb.InstrumentID, nb.ProjectID, nb.UserID, string(nb.Kind), nb.Start, nb.End,
 		nb.StaffID, nb.SeriesID, nb.Note, now, nb.Actor, ev.At, ev.Action, ev.EntityType, ev.Leaf); err != nil {
 		return scheduling.Booking{}, err
@@ -568,14 +569,26 @@ func (db *DB) CancelBooking(ctx context.Context, id, actor, reason string, now t
 	return out, mapError(err, "booking")
 }
 
-// BookingEvents implements scheduling.BookingStore.
+// BookingEvents implements scheduling.BookingStore. The first entry is the creation:
+// a history row for bookings made before creation stopped writing one, and otherwise
+// derived from the booking row (created_at, created_by) with the range the booking was
+// made with, which is the before of its first move or, never moved, its range now
+// (only a move changes a booking's range, and every move is in the history).
 func (db *DB) BookingEvents(ctx context.Context, id string) ([]scheduling.BookingEvent, error) {
 	if !accounts.ValidID(id) {
 		return nil, beamledger.NotFound("booking")
 	}
 	const q = `
 SELECT at, actor, action, reason, lower(before), upper(before), lower(after), upper(after)
-FROM booking_events WHERE booking_id = $1 ORDER BY id`
+FROM (SELECT 0::bigint AS id, b.created_at AS at, b.created_by AS actor, 'created' AS action, '' AS reason,
+             NULL::tstzrange AS before,
+             coalesce((SELECT m.before FROM booking_events m WHERE m.booking_id = b.id AND m.action = 'moved' ORDER BY m.id LIMIT 1),
+                      b.during) AS after
+      FROM bookings b
+      WHERE b.id = $1 AND NOT EXISTS (SELECT 1 FROM booking_events c WHERE c.booking_id = b.id AND c.action = 'created')
+      UNION ALL
+      SELECT id, at, actor, action, reason, before, after FROM booking_events WHERE booking_id = $1) e
+ORDER BY id`
 	rows, err := db.pool.Query(ctx, q, id)
 	if err != nil {
 		return nil, mapError(err, "booking")
