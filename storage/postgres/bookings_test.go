@@ -65,7 +65,7 @@ func TestBookingHistoryDerivesCreation(t *testing.T) {
 	}
 	pass := func(scheduling.Booking, scheduling.BookingContext) error { return nil }
 	for i, r := range [][2]time.Time{{at(12), at(14)}, {at(15), at(16)}} {
-		if _, err := db.MoveBooking(ctx, id, r[0], r[1], mgr.ID, "move "+string(rune('1'+i)), t0.Add(time.Duration(i+1)*time.Minute), pass); err != nil {
+		if _, err := db.MoveBooking(ctx, id, r[0], r[1], mgr.ID, "instrument swap", t0.Add(time.Duration(i+1)*time.Minute), pass); err != nil {
 			t.Fatal(err)
 		}
 	}
