@@ -6,6 +6,8 @@ import (
 	"time"
 
 	"beamledger/scheduling"
+
+	"github.com/jackc/pgx/v5"
 )
 
 // TestBookingRulesReadRunsOnKeptPlan checks that the rules read of a booking runs on
@@ -97,5 +99,80 @@ func TestBookingHistoryDerivesCreation(t *testing.T) {
 	}
 	if len(evs) != 1 || evs[0].Action != "created" || evs[0].Actor != "row-writer" {
 		t.Errorf("history of a booking with a creation row: %+v, want that row alone", evs)
+	}
+}
+
+// TestBookingInsertRetriesDeadlock provokes the deadlock that concurrent inserts
+// checked by one exclusion constraint can meet, and checks that both the bare insert
+// (the booking benchmark's anchor) and a booking's creation come through it: PostgreSQL
+// aborts one side to break the cycle, and that side tries again instead of failing.
+//
+// A transaction holds an uncommitted booking A; the insert under test puts in B, which
+// overlaps A, and waits for that transaction; the transaction then inserts C, which
+// overlaps B alone, and waits in turn. The insert under test waited first, so its
+// deadlock check (after the default second) runs first and aborts it; the
+// transaction's own check is set 30 s away. The transaction then rolls back, and the
+// retried insert of B succeeds.
+func TestBookingInsertRetriesDeadlock(t *testing.T) {
+	db, conn := openRaw(t)
+	ctx := context.Background()
+	from := time.Date(2031, 3, 1, 0, 0, 0, 0, time.UTC)
+	mgr, pi, in := billingFacility(t, db, from)
+	p := fundedProject(t, db, mgr, pi, "P-1")
+	paths := []struct {
+		name   string
+		insert func(scheduling.NewBooking) error
+	}{
+		{"bare insert", func(nb scheduling.NewBooking) error { return db.InsertBookingRow(ctx, nb) }},
+		{"booking creation", func(nb scheduling.NewBooking) error {
+			_, err := db.CreateBooking(ctx, nb, t0, func(scheduling.BookingContext) error { return nil })
+			return err
+		}},
+	}
+	for day, path := range paths {
+		at := func(minutes int) time.Time { return from.AddDate(0, 0, day).Add(time.Duration(minutes) * time.Minute) }
+		insert := func(tx pgx.Tx, start, end time.Time) error {
+			_, err := tx.Exec(ctx, `
+INSERT INTO bookings (instrument_id, project_id, user_id, kind, during, created_at, created_by, updated_at)
+VALUES ($1, $2, $3, 'independent', tstzrange($4, $5, '[)'), now(), 'test', now())`, in.ID, p.ID, pi.ID, start, end)
+			return err
+		}
+		tx, err := conn.Begin(ctx)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if _, err := tx.Exec(ctx, `SET LOCAL deadlock_timeout = '30s'`); err != nil {
+			t.Fatal(err)
+		}
+		if err := insert(tx, at(600), at(660)); err != nil { // A: 10:00–11:00
+			t.Fatal(err)
+		}
+		done := make(chan error, 1)
+		go func() {
+			done <- path.insert(scheduling.NewBooking{InstrumentID: in.ID, ProjectID: p.ID, UserID: pi.ID, // B: 10:30–12:00
+				Kind: scheduling.KindIndependent, Start: at(630), End: at(720), Actor: pi.ID})
+		}()
+		for waiting := false; !waiting; {
+			if err := tx.QueryRow(ctx, `SELECT EXISTS (SELECT 1 FROM pg_locks WHERE NOT granted AND pid <> pg_backend_pid())`).Scan(&waiting); err != nil {
+				t.Fatal(err)
+			}
+			time.Sleep(5 * time.Millisecond)
+		}
+		if err := insert(tx, at(690), at(750)); err != nil { // C: 11:30–12:30, waits until B's insert is aborted
+			t.Fatalf("%s: the transaction's insert: %v", path.name, err)
+		}
+		if err := tx.Rollback(ctx); err != nil {
+			t.Fatal(err)
+		}
+		if err := <-done; err != nil {
+			t.Errorf("%s after a deadlock: %v, want it retried and made", path.name, err)
+		}
+		var n int
+		if err := conn.QueryRow(ctx, `SELECT count(*) FROM bookings WHERE during = tstzrange($1, $2, '[)')`, at(630), at(720)).Scan(&n); err != nil {
+			t.Fatal(err)
+		}
+		if n != 1 {
+			t.Errorf("%s: %d bookings of the retried range, want 1", path.name, n)
+		}
 	}
 }
