@@ -152,14 +152,23 @@ VALUES ($1, $2, $3, 'independent', tstzrange($4, $5, '[)'), now(), 'test', now()
 			done <- path.insert(scheduling.NewBooking{InstrumentID: in.ID, ProjectID: p.ID, UserID: pi.ID, // B: 10:30–12:00
 				Kind: scheduling.KindIndependent, Start: at(630), End: at(720), Actor: pi.ID})
 		}()
+		// Wait until B's insert waits for this transaction (other tests' databases share
+		// the cluster, so any other wait proves nothing).
 		for waiting := false; !waiting; {
-			if err := tx.QueryRow(ctx, `SELECT EXISTS (SELECT 1 FROM pg_locks WHERE NOT granted AND pid <> pg_backend_pid())`).Scan(&waiting); err != nil {
+			if err := tx.QueryRow(ctx, `SELECT EXISTS (SELECT 1 FROM pg_locks WHERE NOT granted AND pg_backend_pid() = ANY (pg_blocking_pids(pid)))`).Scan(&waiting); err != nil {
 				t.Fatal(err)
 			}
 			time.Sleep(5 * time.Millisecond)
 		}
+		began := time.Now()
 		if err := insert(tx, at(690), at(750)); err != nil { // C: 11:30–12:30, waits until B's insert is aborted
 			t.Fatalf("%s: the transaction's insert: %v", path.name, err)
+		}
+		// C can go in only once B's transaction has ended, and B cannot commit while A
+		// stands: only the deadlock check (a second after B began waiting) ends it.
+		// Without that wait the test would prove nothing.
+		if waited := time.Since(began); waited < 500*time.Millisecond {
+			t.Fatalf("%s: the transaction's insert waited %v; the deadlock was not met", path.name, waited)
 		}
 		if err := tx.Rollback(ctx); err != nil {
 			t.Fatal(err)
