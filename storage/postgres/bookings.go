@@ -72,6 +72,11 @@ func (db *DB) CreateBooking(ctx context.Context, nb scheduling.NewBooking, now t
 // exclusion constraint. Service bookings (which displace others) and bookings under a
 // prime-time allowance (which take a lock) report done=false and go through
 // createBooking in a transaction.
+//
+// A context read here is kept (see keepContext), and the next booking by the same
+// booker on the same instrument and project whose rules pass on it is made in one
+// statement instead of two (bookKept). A kept context is only ever used to let a
+// booking through: one it refuses is judged again on a fresh read.
 func (db *DB) createBookingDirect(ctx context.Context, nb scheduling.NewBooking, now time.Time,
 	check func(scheduling.BookingContext) error) (b scheduling.Booking, err error, done bool) {
 	if nb.Kind == scheduling.KindService {
@@ -84,18 +89,24 @@ func (db *DB) createBookingDirect(ctx context.Context, nb scheduling.NewBooking,
 		return b, err, true
 	}
 	defer conn.Release()
-	bc, taken, capped, err := db.readBookingContext(ctx, conn, nb, now, "")
+	if kept, ok := db.keptContext(nb); ok && check(kept.bc) == nil {
+		if b, err, done := db.bookKept(ctx, conn, nb, now, kept, check); done {
+			return b, err, true
+		}
+	}
+	bc, read, err := db.readBookingContext(ctx, conn, nb, now, "")
 	if err != nil {
 		return b, err, true
 	}
-	if capped || (nb.ProjectID != "" && bc.Rules.PrimeAllowanceMinutesPerWeek > 0) {
+	if read.capped || (nb.ProjectID != "" && bc.Rules.PrimeAllowanceMinutesPerWeek > 0) {
 		return b, nil, false
 	}
+	db.keepContext(nb, bc, read)
 	if err := check(bc); err != nil {
 		return b, err, true
 	}
-	if taken != nil {
-		return b, taken, true
+	if read.taken != nil {
+		return b, read.taken, true
 	}
 	for attempt := 0; ; attempt++ {
 		b, err = insertBooking(ctx, conn, nb, now, nil)
@@ -136,18 +147,7 @@ func (db *DB) createBooking(ctx context.Context, tx pgx.Tx, nb scheduling.NewBoo
 // when, and BookingEvents derives the entry from it (the range it was made with is
 // the first move's before, or the range it still has).
 func insertBooking(ctx context.Context, db querier, nb scheduling.NewBooking, now time.Time, displaced []string) (scheduling.Booking, error) {
-	id := nb.ID
-	if id == "" {
-		id = uuid.NewString()
-	}
-	b := scheduling.Booking{
-		ID: id, InstrumentID: nb.InstrumentID, ProjectID: nb.ProjectID, UserID: nb.UserID, Kind: nb.Kind,
-		Start: nb.Start.UTC(), End: nb.End.UTC(), StaffID: nb.StaffID, SeriesID: nb.SeriesID, Status: scheduling.StatusActive,
-		Note: nb.Note, Displaced: displaced, CreatedAt: now, CreatedBy: nb.Actor, UpdatedAt: now,
-	}
-	// The ledger event travels in the same statement, so that a booking made on the
-	// fast path (no explicit transaction) is in the ledger exactly when it exists.
-	ev, err := provenance.NewLedgerEvent(nb.Actor, provenance.ActionCreate, provenance.EntityBooking, id, now, b)
+	b, ev, err := newBookingRecord(nb, now, displaced)
 	if err != nil {
 		return scheduling.Booking{}, err
 	}
@@ -158,11 +158,28 @@ WITH b AS (
     RETURNING id)
 INSERT INTO ledger_events (actor, at, action, entity_type, entity_id, leaf)
 SELECT $12, $13, $14, $15, id::text, $16 FROM b`
-	if _, err := db.Exec(ctx, q, id, nb.InstrumentID, nb.ProjectID, nb.UserID, string(nb.Kind), nb.Start, nb.End,
+	if _, err := db.Exec(ctx, q, b.ID, nb.InstrumentID, nb.ProjectID, nb.UserID, string(nb.Kind), nb.Start, nb.End,
 		nb.StaffID, nb.SeriesID, nb.Note, now, nb.Actor, ev.At, ev.Action, ev.EntityType, ev.Leaf); err != nil {
 		return scheduling.Booking{}, err
 	}
 	return b, nil
+}
+
+// newBookingRecord is the booking nb makes at now and its ledger event. The event
+// travels in the booking's own statement, so that a booking made without an explicit
+// transaction is in the ledger exactly when it exists.
+func newBookingRecord(nb scheduling.NewBooking, now time.Time, displaced []string) (scheduling.Booking, provenance.LedgerEvent, error) {
+	id := nb.ID
+	if id == "" {
+		id = uuid.NewString()
+	}
+	b := scheduling.Booking{
+		ID: id, InstrumentID: nb.InstrumentID, ProjectID: nb.ProjectID, UserID: nb.UserID, Kind: nb.Kind,
+		Start: nb.Start.UTC(), End: nb.End.UTC(), StaffID: nb.StaffID, SeriesID: nb.SeriesID, Status: scheduling.StatusActive,
+		Note: nb.Note, Displaced: displaced, CreatedAt: now, CreatedBy: nb.Actor, UpdatedAt: now,
+	}
+	ev, err := provenance.NewLedgerEvent(nb.Actor, provenance.ActionCreate, provenance.EntityBooking, id, now, b)
+	return b, ev, err
 }
 
 // displace cancels the active bookings a service booking overlaps, recording which
@@ -216,7 +233,8 @@ type batcher interface {
 // excludeID (being moved), and, when a prime-time allowance applies, takes the
 // project's lock for it.
 func (db *DB) bookingContext(ctx context.Context, tx pgx.Tx, nb scheduling.NewBooking, now time.Time, excludeID string) (bc scheduling.BookingContext, capped bool, err error) {
-	bc, _, capped, err = db.readBookingContext(ctx, tx, nb, now, excludeID)
+	bc, read, err := db.readBookingContext(ctx, tx, nb, now, excludeID)
+	capped = read.capped
 	if err != nil || nb.ProjectID == "" || bc.Rules.PrimeAllowanceMinutesPerWeek == 0 {
 		return bc, capped, err
 	}
@@ -224,14 +242,27 @@ func (db *DB) bookingContext(ctx context.Context, tx pgx.Tx, nb scheduling.NewBo
 	return bc, capped, err
 }
 
+// contextRead is what readBookingContext finds beside the rules context.
+type contextRead struct {
+	// taken is the Conflict naming the first active booking the range overlaps, if any.
+	taken error
+	// capped reports that the booking's funding split posts to an account with a cap,
+	// which checkFundingCaps judges inside a transaction.
+	capped bool
+	// generation is the booking_rules_generation the context was read at.
+	generation int64
+	// bounded reports that an account of the project's funding split has validity
+	// dates or a cap, so that what the context says about funding depends on the range.
+	bounded bool
+}
+
 // readBookingContext reads, in one statement, the facility's zone and rules, the
 // instrument's override, flag and name, membership, the booked user's current
 // qualification, and the first active booking other than excludeID that the range
-// overlaps on the instrument or, failing that, for the staff member: taken is then the
-// Conflict naming it, as bookingError words it. It leaves PrimeUsedMinutes at zero.
-// capped reports that the booking's funding split posts to an account with a cap,
-// which checkFundingCaps judges inside a transaction.
-func (db *DB) readBookingContext(ctx context.Context, q batcher, nb scheduling.NewBooking, now time.Time, excludeID string) (bc scheduling.BookingContext, taken error, capped bool, err error) {
+// overlaps on the instrument or, failing that, for the staff member (read.taken is
+// then the Conflict naming it, as bookingError words it), with the generation of the
+// rules it was read at. It leaves PrimeUsedMinutes at zero.
+func (db *DB) readBookingContext(ctx context.Context, q batcher, nb scheduling.NewBooking, now time.Time, excludeID string) (bc scheduling.BookingContext, read contextRead, err error) {
 	var zone string
 	var facilityRules, instrumentRules []byte
 	// One round trip for the facility, the instrument, membership, the booked user's
@@ -252,7 +283,11 @@ SELECT f.time_zone, f.booking_rules, i.rules_override, i.bookable, i.name,
               SELECT account_id, basis_points, position FROM project_funding WHERE project_id = nullif($3, '')::uuid
                 AND NOT EXISTS (SELECT 1 FROM booking_funding WHERE booking_id = nullif($8, '')::uuid)) s
         JOIN funding_accounts a ON a.id = s.account_id
-        WHERE a.valid_from > $4 OR a.valid_until < $5 OR a.cap_minor > 0)
+        WHERE a.valid_from > $4 OR a.valid_until < $5 OR a.cap_minor > 0),
+       coalesce((SELECT g.n FROM booking_rules_generation g WHERE g.id = 1), 0),
+       EXISTS (SELECT 1 FROM project_funding pf JOIN funding_accounts a ON a.id = pf.account_id
+               WHERE pf.project_id = nullif($3, '')::uuid
+                 AND (a.valid_from IS NOT NULL OR a.valid_until IS NOT NULL OR a.cap_minor > 0))
 FROM facility f CROSS JOIN instruments i
 LEFT JOIN qualifications q ON q.user_id = $2 AND q.instrument_id = i.id AND q.revoked_at IS NULL
 LEFT JOIN LATERAL (SELECT lower(b.during), upper(b.during) FROM bookings b
@@ -284,7 +319,8 @@ WHERE f.id = 1 AND i.id = $1`
 	if _, err = br.Exec(); err == nil {
 		err = br.QueryRow().Scan(
 			&zone, &facilityRules, &instrumentRules, &bc.Bookable, &bc.InstrumentName, &bc.Member,
-			&qID, &qLevel, &qBy, &qAt, &qReason, &qIdle, &qUsed, &bc.HeldUntil, &ibStart, &ibEnd, &sbStart, &sbEnd, &unfunded)
+			&qID, &qLevel, &qBy, &qAt, &qReason, &qIdle, &qUsed, &bc.HeldUntil, &ibStart, &ibEnd, &sbStart, &sbEnd, &unfunded,
+			&read.generation, &read.bounded)
 	}
 	if inTx && err == nil {
 		_, err = br.Exec()
@@ -293,20 +329,20 @@ WHERE f.id = 1 AND i.id = $1`
 		err = cerr
 	}
 	if errors.Is(err, pgx.ErrNoRows) {
-		return bc, nil, false, beamledger.NotFound("instrument (or the facility is not set up)")
+		return bc, read, beamledger.NotFound("instrument (or the facility is not set up)")
 	}
 	if err != nil {
-		return bc, nil, false, err
+		return bc, read, err
 	}
 	if bc.Location, err = db.location(zone); err != nil {
-		return bc, nil, false, fmt.Errorf("facility time zone %q: %w", zone, err)
+		return bc, read, fmt.Errorf("facility time zone %q: %w", zone, err)
 	}
 	var fo, io scheduling.RulesOverride
 	if err := json.Unmarshal(facilityRules, &fo); err != nil {
-		return bc, nil, false, fmt.Errorf("facility booking rules: %w", err)
+		return bc, read, fmt.Errorf("facility booking rules: %w", err)
 	}
 	if err := json.Unmarshal(instrumentRules, &io); err != nil {
-		return bc, nil, false, fmt.Errorf("instrument booking rules: %w", err)
+		return bc, read, fmt.Errorf("instrument booking rules: %w", err)
 	}
 	bc.Rules = scheduling.DefaultRules().With(fo).With(io)
 	if len(unfunded) > 0 {
@@ -319,10 +355,10 @@ WHERE f.id = 1 AND i.id = $1`
 			Unfit       bool   `json:"unfit"`
 		}
 		if err := json.Unmarshal(unfunded, &rows); err != nil {
-			return bc, nil, false, fmt.Errorf("funding split: %w", err)
+			return bc, read, fmt.Errorf("funding split: %w", err)
 		}
 		for _, r := range rows {
-			capped = capped || r.CapMinor > 0
+			read.capped = read.capped || r.CapMinor > 0
 			if !r.Unfit {
 				continue
 			}
@@ -338,11 +374,11 @@ WHERE f.id = 1 AND i.id = $1`
 	}
 	switch {
 	case ibStart != nil && ibEnd != nil:
-		taken = overlapConflict(instrumentTaken, scheduling.Interval{Start: *ibStart, End: *ibEnd})
+		read.taken = overlapConflict(instrumentTaken, scheduling.Interval{Start: *ibStart, End: *ibEnd})
 	case sbStart != nil && sbEnd != nil:
-		taken = overlapConflict(staffTaken, scheduling.Interval{Start: *sbStart, End: *sbEnd})
+		read.taken = overlapConflict(staffTaken, scheduling.Interval{Start: *sbStart, End: *sbEnd})
 	}
-	return bc, taken, capped, nil
+	return bc, read, nil
 }
 
 // location returns the named zone, loaded once per process: time.LoadLocation reads

@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/jackc/pgx/v5/pgxpool"
@@ -19,6 +20,10 @@ type DB struct {
 	offerWindow time.Duration
 	// zones holds the time zones loaded so far, by name (see location).
 	zones sync.Map
+	// kept holds rules contexts kept for booking again, keptCount how many (see
+	// keepContext).
+	kept      sync.Map
+	keptCount atomic.Int64
 }
 
 var (

@@ -50,7 +50,7 @@ WHERE statement LIKE '%FROM facility f CROSS JOIN instruments i%' AND statement 
 		querier
 	}) error {
 		for range n {
-			if _, _, _, err := db.readBookingContext(ctx, q, nb, nb.Start, ""); err != nil {
+			if _, _, err := db.readBookingContext(ctx, q, nb, nb.Start, ""); err != nil {
 				return err
 			}
 		}
@@ -68,4 +68,11 @@ WHERE statement LIKE '%FROM facility f CROSS JOIN instruments i%' AND statement 
 		return 0, 0, "", err
 	}
 	return g1 - g0, c1 - c0, after, nil
+}
+
+// KeptGeneration reports whether a rules context is kept for nb's booker, instrument
+// and project, and the generation it was read at.
+func (db *DB) KeptGeneration(nb scheduling.NewBooking) (int64, bool) {
+	k, ok := db.keptContext(nb)
+	return k.generation, ok
 }

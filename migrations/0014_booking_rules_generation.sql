@@ -1,0 +1,65 @@
+-- +goose Up
+-- A number that moves on whenever anything a booking's rules are judged from changes:
+-- the facility's zone and rules, an instrument's override and flag, project
+-- membership, qualifications, funding splits and funding accounts. A process keeps the
+-- rules context it last read for a booker, instrument and project together with this
+-- number, and books from it only in a statement that finds the number unchanged, so a
+-- change committed before the booking's statement is never booked past. The triggers
+-- move it for every statement that writes those tables, whichever code path writes
+-- them; a change that does not matter to the rules only costs a fresh read.
+--
+-- The number changes in the writing transaction, so it becomes visible exactly when
+-- the change does. Writers to these tables take turns on its row until they commit;
+-- such writes are a few a day against thousands of bookings.
+CREATE TABLE booking_rules_generation (
+    id  int PRIMARY KEY CHECK (id = 1),
+    n   bigint NOT NULL
+);
+INSERT INTO booking_rules_generation (id, n) VALUES (1, 1);
+
+-- +goose StatementBegin
+CREATE FUNCTION booking_rules_changed() RETURNS trigger LANGUAGE plpgsql AS $$
+BEGIN
+    UPDATE booking_rules_generation SET n = n + 1 WHERE id = 1;
+    RETURN NULL;
+END;
+$$;
+-- +goose StatementEnd
+
+-- The one row stays: without it no booking could be judged from a kept context.
+-- +goose StatementBegin
+CREATE FUNCTION booking_rules_generation_kept() RETURNS trigger LANGUAGE plpgsql AS $$
+BEGIN
+    RAISE EXCEPTION 'booking_rules_generation keeps its one row: % refused', TG_OP
+        USING ERRCODE = 'restrict_violation';
+END;
+$$;
+-- +goose StatementEnd
+CREATE TRIGGER booking_rules_generation_no_delete BEFORE DELETE ON booking_rules_generation
+    FOR EACH ROW EXECUTE FUNCTION booking_rules_generation_kept();
+CREATE TRIGGER booking_rules_generation_no_truncate BEFORE TRUNCATE ON booking_rules_generation
+    FOR EACH STATEMENT EXECUTE FUNCTION booking_rules_generation_kept();
+
+CREATE TRIGGER facility_rules_changed AFTER INSERT OR UPDATE OR DELETE OR TRUNCATE ON facility
+    FOR EACH STATEMENT EXECUTE FUNCTION booking_rules_changed();
+CREATE TRIGGER instruments_rules_changed AFTER INSERT OR UPDATE OR DELETE OR TRUNCATE ON instruments
+    FOR EACH STATEMENT EXECUTE FUNCTION booking_rules_changed();
+CREATE TRIGGER project_members_rules_changed AFTER INSERT OR UPDATE OR DELETE OR TRUNCATE ON project_members
+    FOR EACH STATEMENT EXECUTE FUNCTION booking_rules_changed();
+CREATE TRIGGER qualifications_rules_changed AFTER INSERT OR UPDATE OR DELETE OR TRUNCATE ON qualifications
+    FOR EACH STATEMENT EXECUTE FUNCTION booking_rules_changed();
+CREATE TRIGGER project_funding_rules_changed AFTER INSERT OR UPDATE OR DELETE OR TRUNCATE ON project_funding
+    FOR EACH STATEMENT EXECUTE FUNCTION booking_rules_changed();
+CREATE TRIGGER funding_accounts_rules_changed AFTER INSERT OR UPDATE OR DELETE OR TRUNCATE ON funding_accounts
+    FOR EACH STATEMENT EXECUTE FUNCTION booking_rules_changed();
+
+-- +goose Down
+DROP TRIGGER funding_accounts_rules_changed ON funding_accounts;
+DROP TRIGGER project_funding_rules_changed ON project_funding;
+DROP TRIGGER qualifications_rules_changed ON qualifications;
+DROP TRIGGER project_members_rules_changed ON project_members;
+DROP TRIGGER instruments_rules_changed ON instruments;
+DROP TRIGGER facility_rules_changed ON facility;
+DROP FUNCTION booking_rules_changed();
+DROP TABLE booking_rules_generation;
+DROP FUNCTION booking_rules_generation_kept();
