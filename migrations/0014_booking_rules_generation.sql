@@ -6,7 +6,12 @@
 -- number, and books from it only in a statement that finds the number unchanged, so a
 -- change committed before the booking's statement is never booked past. The triggers
 -- move it for every statement that writes those tables, whichever code path writes
--- them; a change that does not matter to the rules only costs a fresh read.
+-- them; a change that does not matter to the rules only costs a fresh read. Updates
+-- move it only when they touch a column the rules are read from. A qualification's
+-- last use is not one of them: it only ever moves forward (check-in takes the later
+-- of the two), which only keeps an idle-expiring qualification alive longer, and a
+-- kept context that refuses a booking is never the last word (it is judged again on a
+-- fresh read); leaving it out keeps the kept contexts through a day of check-ins.
 --
 -- The number changes in the writing transaction, so it becomes visible exactly when
 -- the change does. Writers to these tables take turns on its row until they commit;
@@ -40,13 +45,17 @@ CREATE TRIGGER booking_rules_generation_no_delete BEFORE DELETE ON booking_rules
 CREATE TRIGGER booking_rules_generation_no_truncate BEFORE TRUNCATE ON booking_rules_generation
     FOR EACH STATEMENT EXECUTE FUNCTION booking_rules_generation_kept();
 
-CREATE TRIGGER facility_rules_changed AFTER INSERT OR UPDATE OR DELETE OR TRUNCATE ON facility
+CREATE TRIGGER facility_rules_changed
+    AFTER INSERT OR UPDATE OF time_zone, booking_rules OR DELETE OR TRUNCATE ON facility
     FOR EACH STATEMENT EXECUTE FUNCTION booking_rules_changed();
-CREATE TRIGGER instruments_rules_changed AFTER INSERT OR UPDATE OR DELETE OR TRUNCATE ON instruments
+CREATE TRIGGER instruments_rules_changed
+    AFTER INSERT OR UPDATE OF rules_override, bookable, name OR DELETE OR TRUNCATE ON instruments
     FOR EACH STATEMENT EXECUTE FUNCTION booking_rules_changed();
 CREATE TRIGGER project_members_rules_changed AFTER INSERT OR UPDATE OR DELETE OR TRUNCATE ON project_members
     FOR EACH STATEMENT EXECUTE FUNCTION booking_rules_changed();
-CREATE TRIGGER qualifications_rules_changed AFTER INSERT OR UPDATE OR DELETE OR TRUNCATE ON qualifications
+CREATE TRIGGER qualifications_rules_changed
+    AFTER INSERT OR UPDATE OF user_id, instrument_id, level, granted_by, granted_at, reason, expires_after_idle_days, revoked_at
+       OR DELETE OR TRUNCATE ON qualifications
     FOR EACH STATEMENT EXECUTE FUNCTION booking_rules_changed();
 CREATE TRIGGER project_funding_rules_changed AFTER INSERT OR UPDATE OR DELETE OR TRUNCATE ON project_funding
     FOR EACH STATEMENT EXECUTE FUNCTION booking_rules_changed();

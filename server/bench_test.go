@@ -153,11 +153,15 @@ func runClients(b *testing.B, op func(r *rand.Rand, warm bool) (created bool, er
 // booking's transaction, ledger event. Run with `make bench`; compare creates/s and p99-ms
 // of the two sub-benchmarks.
 //
-// The HTTP path issues two statements per created booking on one pooled connection:
-// the rules context, which also reads the first active booking the range overlaps, and
-// the insert with its ledger event. A conflict the context read already sees is
-// answered from that one statement; only a booking made in between reaches the
-// insert's exclusion constraint and a third statement naming the range. Verified
+// The HTTP path reads the rules context of a booker, instrument and project once per
+// process and keeps it; each later booking whose rules pass on it is one statement on
+// one pooled connection, which writes the booking and its ledger event only if the
+// rules' generation is unchanged and no active booking or waitlist offer overlaps the
+// range, and otherwise says which (a conflict is answered from that statement; only a
+// booking made concurrently reaches the exclusion constraint and a second statement
+// naming the range). The benchmark's one booker books 8 instruments for one project,
+// so nearly every attempt takes that path; in a facility, a booker's later bookings
+// take it until a rule, qualification, membership or funding account changes. Verified
 // access tokens are remembered until they expire, and the account check is cached for
 // a second per process with one read in flight per user; the anchor issues one
 // statement per attempt. Clients, server and database share the machine's cores, so

@@ -269,11 +269,44 @@ VALUES ($1, $2, $3, 'independent', tstzrange($4, $5, '[)'), 'offered', $6, $7, $
 	}
 }
 
-// TestBookingRulesGenerationRow checks that the generation's one row cannot be
+// TestBookingRulesGenerationRow checks which writes move the generation on (those to
+// columns the rules are read from; not a qualification's last use, which check-in
+// moves forward, nor the facility's other settings), that its one row cannot be
 // deleted, and that the migration adding it goes down and up again cleanly.
 func TestBookingRulesGenerationRow(t *testing.T) {
 	db, raw := openRaw(t)
 	ctx := context.Background()
+	from := time.Date(2031, 3, 3, 0, 0, 0, 0, time.UTC)
+	mgr, pi, in := billingFacility(t, db, from)
+	if _, err := db.GrantQualification(ctx, scheduling.NewQualification{UserID: pi.ID, InstrumentID: in.ID,
+		Level: scheduling.LevelIndependent, Reason: "trained", GrantedBy: mgr.ID}, t0); err != nil {
+		t.Fatal(err)
+	}
+	for _, w := range []struct {
+		sql   string
+		moves bool
+	}{
+		{`UPDATE qualifications SET last_used_at = now()`, false},
+		{`UPDATE facility SET optics_settings = '{}'`, false},
+		{`UPDATE instruments SET billing_override = '{}'`, false},
+		{`UPDATE qualifications SET expires_after_idle_days = 30`, true},
+		{`UPDATE facility SET booking_rules = '{}'`, true},
+		{`UPDATE instruments SET name = 'TEM one'`, true},
+	} {
+		var before, after int64
+		if err := raw.QueryRow(ctx, `SELECT n FROM booking_rules_generation`).Scan(&before); err != nil {
+			t.Fatal(err)
+		}
+		if _, err := raw.Exec(ctx, w.sql); err != nil {
+			t.Fatalf("%s: %v", w.sql, err)
+		}
+		if err := raw.QueryRow(ctx, `SELECT n FROM booking_rules_generation`).Scan(&after); err != nil {
+			t.Fatal(err)
+		}
+		if moved := after != before; moved != w.moves {
+			t.Errorf("%s: generation moved %v, want %v", w.sql, moved, w.moves)
+		}
+	}
 	for _, q := range []string{`DELETE FROM booking_rules_generation`, `TRUNCATE booking_rules_generation`} {
 		if _, err := raw.Exec(ctx, q); err == nil || !strings.Contains(err.Error(), "keeps its one row") {
 			t.Errorf("%s: %v, want it refused", q, err)
@@ -288,5 +321,11 @@ func TestBookingRulesGenerationRow(t *testing.T) {
 	var n int64
 	if err := raw.QueryRow(ctx, `SELECT n FROM booking_rules_generation WHERE id = 1`).Scan(&n); err != nil || n != 1 {
 		t.Errorf("generation after the migration ran again: %d (%v), want 1", n, err)
+	}
+	if _, err := raw.Exec(ctx, `UPDATE qualifications SET revoked_at = now(), revoked_by = $1, revoke_reason = 'test'`, mgr.ID); err != nil {
+		t.Fatal(err)
+	}
+	if err := raw.QueryRow(ctx, `SELECT n FROM booking_rules_generation WHERE id = 1`).Scan(&n); err != nil || n != 2 {
+		t.Errorf("generation after a revocation once the migration ran again: %d (%v), want 2", n, err)
 	}
 }
