@@ -15,7 +15,8 @@ import (
 // bookings table is large enough that PostgreSQL, left to choose, plans it afresh for
 // every call (a few thousand analysed rows do it; without the setting every read here
 // came out as a fresh plan). Within a transaction the session's own setting is back in
-// force after the read.
+// force after the read. The same holds for the statement that books from a kept
+// context.
 func TestBookingRulesReadRunsOnKeptPlan(t *testing.T) {
 	db, conn := openRaw(t)
 	ctx := context.Background()
@@ -45,6 +46,15 @@ FROM generate_series(1, 4000) k`, in.ID, p.ID, pi.ID, from.AddDate(-2, 0, 0)); e
 		if after != "auto" {
 			t.Errorf("in a transaction %v: plan_cache_mode %q after the reads, want the session's auto", inTx, after)
 		}
+	}
+	// The one statement that books from a kept context reads overlaps too, and would be
+	// planned afresh for every call as well.
+	generic, custom, err := db.KeptBookingPlans(ctx, nb, 12)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if generic != 12 || custom != 0 {
+		t.Errorf("booking from a kept context: %d statements on the kept plan and %d planned afresh, want 12 and 0", generic, custom)
 	}
 }
 

@@ -2,6 +2,8 @@ package postgres
 
 import (
 	"context"
+	"fmt"
+	"time"
 
 	"github.com/jackc/pgx/v5"
 
@@ -75,4 +77,32 @@ WHERE statement LIKE '%FROM facility f CROSS JOIN instruments i%' AND statement 
 func (db *DB) KeptGeneration(nb scheduling.NewBooking) (int64, bool) {
 	k, ok := db.keptContext(nb)
 	return k.generation, ok
+}
+
+// KeptBookingPlans makes n bookings like nb, an hour each two hours apart, through the
+// one-statement path of a kept context (insertBookingIfCurrent) on one pooled
+// connection, and reports how PostgreSQL ran that statement: how many times on its kept
+// generic plan and how many on a plan made for the call's arguments.
+func (db *DB) KeptBookingPlans(ctx context.Context, nb scheduling.NewBooking, n int) (generic, custom int64, err error) {
+	conn, err := db.pool.Acquire(ctx)
+	if err != nil {
+		return 0, 0, err
+	}
+	defer conn.Release()
+	var gen int64
+	if err := conn.QueryRow(ctx, `SELECT n FROM booking_rules_generation`).Scan(&gen); err != nil {
+		return 0, 0, err
+	}
+	for i := range n {
+		b := nb
+		b.Start = nb.Start.Add(time.Duration(2*i) * time.Hour)
+		b.End = b.Start.Add(time.Hour)
+		if _, out, err := insertBookingIfCurrent(ctx, conn, b, b.Start, gen); err != nil || out != (keptOutcome{}) {
+			return 0, 0, fmt.Errorf("booking %d: %v (%+v)", i, err, out)
+		}
+	}
+	err = conn.QueryRow(ctx, `
+SELECT coalesce(sum(generic_plans), 0), coalesce(sum(custom_plans), 0) FROM pg_prepared_statements
+WHERE statement LIKE '%FROM booking_rules_generation WHERE id = 1),%' AND statement NOT LIKE '%pg_prepared_statements%'`).Scan(&generic, &custom)
+	return generic, custom, err
 }
