@@ -274,14 +274,9 @@ VALUES ($1, $2, $3, 'independent', tstzrange($4, $5, '[)'), 'offered', $6, $7, $
 // moves forward, nor the facility's other settings), that its one row cannot be
 // deleted, and that the migration adding it goes down and up again cleanly.
 func TestBookingRulesGenerationRow(t *testing.T) {
-	db, raw := openRaw(t)
+	w := newKeptWorld(t)
+	db, raw, mgr := w.db, w.raw, w.mgr
 	ctx := context.Background()
-	from := time.Date(2031, 3, 3, 0, 0, 0, 0, time.UTC)
-	mgr, pi, in := billingFacility(t, db, from)
-	if _, err := db.GrantQualification(ctx, scheduling.NewQualification{UserID: pi.ID, InstrumentID: in.ID,
-		Level: scheduling.LevelIndependent, Reason: "trained", GrantedBy: mgr.ID}, t0); err != nil {
-		t.Fatal(err)
-	}
 	for _, w := range []struct {
 		sql   string
 		moves bool
