@@ -72,7 +72,9 @@ func (db *DB) bookKept(ctx context.Context, conn *pgxpool.Conn, nb scheduling.Ne
 			// Name the range hit while the connection is still ours.
 			return b, bookingError(ctx, conn, err, nb.InstrumentID, nb.StaffID, nb.Start, nb.End, ""), true
 		case found.stale:
-			db.kept.Delete(keptKey(nb))
+			if _, ok := db.kept.LoadAndDelete(keptKey(nb)); ok {
+				db.keptCount.Add(-1)
+			}
 			return b, nil, false
 		case found.heldUntil != nil:
 			bc := kept.bc
