@@ -72,7 +72,7 @@ func (w *keptWorld) warm(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	if _, ok := w.db.KeptGeneration(w.booking(1)); !ok {
+	if !w.db.KeepsContext(w.booking(1)) {
 		t.Fatal("no context kept after two bookings")
 	}
 }
@@ -164,7 +164,7 @@ func TestKeptBookingContextFollowsChanges(t *testing.T) {
 		}
 	}
 	// A split with an account valid for a while depends on the range: nothing is kept.
-	if _, ok := w.db.KeptGeneration(w.booking(1)); ok {
+	if w.db.KeepsContext(w.booking(1)) {
 		t.Error("a context was kept for a funding split whose account has validity dates")
 	}
 }

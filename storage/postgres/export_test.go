@@ -72,11 +72,11 @@ WHERE statement LIKE '%FROM facility f CROSS JOIN instruments i%' AND statement 
 	return g1 - g0, c1 - c0, after, nil
 }
 
-// KeptGeneration reports whether a rules context is kept for nb's booker, instrument
-// and project, and the generation it was read at.
-func (db *DB) KeptGeneration(nb scheduling.NewBooking) (int64, bool) {
-	k, ok := db.keptContext(nb)
-	return k.generation, ok
+// KeepsContext reports whether a rules context is kept for nb's booker, instrument
+// and project.
+func (db *DB) KeepsContext(nb scheduling.NewBooking) bool {
+	_, ok := db.keptContext(nb)
+	return ok
 }
 
 // KeptBookingPlans makes n bookings like nb, an hour each two hours apart, through the
