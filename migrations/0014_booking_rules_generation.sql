@@ -1,7 +1,7 @@
 -- +goose Up
 -- A number that moves on whenever anything a booking's rules are judged from changes:
--- the facility's zone and rules, an instrument's override and flag, project
--- membership, qualifications, funding splits and funding accounts. A process keeps the
+-- the facility's zone and rules, an instrument's rules, bookable flag and name,
+-- project membership, qualifications, funding splits and funding accounts. A process keeps the
 -- rules context it last read for a booker, instrument and project together with this
 -- number, and books from it only in a statement that finds the number unchanged, so a
 -- change committed before the booking's statement is never booked past. The triggers
