@@ -347,3 +347,77 @@ func TestBookingOverlapFoundBeforeInsert(t *testing.T) {
 		t.Fatalf("over a cancelled booking: %d %s", r.StatusCode, r.Body)
 	}
 }
+
+// TestBookingFollowsRuleChangesAtOnce books through the API, changes what the rules
+// are judged from through the API (a revoked qualification, an instrument closed for
+// booking, a researcher taken off the project), and books again at once: each next
+// booking is judged on the change, though the server keeps the rules context of the
+// bookings before it, and each undoing lets bookings through again.
+func TestBookingFollowsRuleChangesAtOnce(t *testing.T) {
+	w := newWorld(t)
+	researcher, staff, manager := w.tokens[accounts.RoleResearcher], w.tokens[accounts.RoleStaff], w.tokens[accounts.RoleManager]
+	me := w.users[accounts.RoleResearcher].ID
+	start := w.nextTuesday(8, 0)
+	book := func(want int, rule string) {
+		t.Helper()
+		body := w.bookingBody(start, start.Add(30*time.Minute), scheduling.KindIndependent)
+		start = start.Add(45 * time.Minute)
+		r := w.do(http.MethodPost, "/api/v1/bookings", researcher, body, nil)
+		if r.StatusCode != want || (rule != "" && !contains(r.Body, `"rule":"`+rule+`"`)) {
+			t.Fatalf("booking: %d %s, want %d %s", r.StatusCode, r.Body, want, rule)
+		}
+	}
+	grant := func() string {
+		t.Helper()
+		var q scheduling.Qualification
+		if r := w.do(http.MethodPost, "/api/v1/instruments/"+w.instr.ID+"/qualifications", staff,
+			map[string]any{"user_id": me, "level": "independent", "reason": "trained"}, &q); r.StatusCode != 201 {
+			t.Fatalf("grant: %d %s", r.StatusCode, r.Body)
+		}
+		return q.ID
+	}
+	q := grant()
+	book(201, "")
+	book(201, "")
+	if r := w.do(http.MethodPost, "/api/v1/qualifications/"+q+"/revoke", staff, map[string]string{"reason": "lapsed"}, nil); r.StatusCode != 200 {
+		t.Fatalf("revoke: %d %s", r.StatusCode, r.Body)
+	}
+	book(422, "qualification")
+	grant()
+	book(201, "")
+
+	setBookable := func(open bool) {
+		t.Helper()
+		if r := w.do(http.MethodPut, "/api/v1/instruments/"+w.instr.ID+"/bookable", manager, map[string]bool{"bookable": open}, nil); r.StatusCode != 200 {
+			t.Fatalf("bookable %v: %d %s", open, r.StatusCode, r.Body)
+		}
+	}
+	setBookable(false)
+	book(422, "bookable")
+	setBookable(true)
+	book(201, "")
+
+	// Another group's project, which the researcher joins and then leaves.
+	shared := w.createProject("SHARED-1", w.other.ID)
+	member := "/api/v1/projects/" + shared.ID + "/members/" + me
+	if r := w.do(http.MethodPut, member, manager, nil, nil); r.StatusCode != 200 {
+		t.Fatalf("join: %d %s", r.StatusCode, r.Body)
+	}
+	bookShared := func() response {
+		body := w.bookingBody(start, start.Add(30*time.Minute), scheduling.KindIndependent)
+		body["project_id"] = shared.ID
+		start = start.Add(45 * time.Minute)
+		return w.do(http.MethodPost, "/api/v1/bookings", researcher, body, nil)
+	}
+	for range 2 {
+		if r := bookShared(); r.StatusCode != 201 {
+			t.Fatalf("booking for the joined project: %d %s", r.StatusCode, r.Body)
+		}
+	}
+	if r := w.do(http.MethodDelete, member, manager, nil, nil); r.StatusCode != 200 {
+		t.Fatalf("leave: %d %s", r.StatusCode, r.Body)
+	}
+	if r := bookShared(); r.StatusCode != 404 {
+		t.Fatalf("booking for the project left: %d %s, want 404", r.StatusCode, r.Body)
+	}
+}
