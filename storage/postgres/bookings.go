@@ -108,13 +108,12 @@ func (db *DB) createBookingDirect(ctx context.Context, nb scheduling.NewBooking,
 	if read.taken != nil {
 		return b, read.taken, true
 	}
-	for attempt := 0; ; attempt++ {
+	err = retry(ctx, func() (err error) {
 		b, err = insertBooking(ctx, conn, nb, now, nil)
-		if !retryable(err) || !retryPause(ctx, attempt) {
-			// Name the range hit while the connection is still ours.
-			return b, bookingError(ctx, conn, err, nb.InstrumentID, nb.StaffID, nb.Start, nb.End, ""), true
-		}
-	}
+		return err
+	})
+	// Name the range hit while the connection is still ours.
+	return b, bookingError(ctx, conn, err, nb.InstrumentID, nb.StaffID, nb.Start, nb.End, ""), true
 }
 
 // createBooking does CreateBooking's work inside tx (series use it per instance).

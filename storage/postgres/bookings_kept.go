@@ -61,33 +61,31 @@ func (db *DB) keptContext(nb scheduling.NewBooking) (keptContext, bool) {
 // context read answers it.
 func (db *DB) bookKept(ctx context.Context, conn *pgxpool.Conn, nb scheduling.NewBooking, now time.Time, kept keptContext,
 	check func(scheduling.BookingContext) error) (b scheduling.Booking, err error, done bool) {
-	for attempt := 0; ; attempt++ {
-		var found keptOutcome
+	var found keptOutcome
+	err = retry(ctx, func() (err error) {
 		b, found, err = insertBookingIfCurrent(ctx, conn, nb, now, kept.generation)
-		if retryable(err) && retryPause(ctx, attempt) {
-			continue
+		return err
+	})
+	switch {
+	case err != nil:
+		// Name the range hit while the connection is still ours.
+		return b, bookingError(ctx, conn, err, nb.InstrumentID, nb.StaffID, nb.Start, nb.End, ""), true
+	case found.stale:
+		if _, ok := db.kept.LoadAndDelete(keptKey(nb)); ok {
+			db.keptCount.Add(-1)
 		}
-		switch {
-		case err != nil:
-			// Name the range hit while the connection is still ours.
-			return b, bookingError(ctx, conn, err, nb.InstrumentID, nb.StaffID, nb.Start, nb.End, ""), true
-		case found.stale:
-			if _, ok := db.kept.LoadAndDelete(keptKey(nb)); ok {
-				db.keptCount.Add(-1)
-			}
-			return b, nil, false
-		case found.heldUntil != nil:
-			bc := kept.bc
-			bc.HeldUntil = found.heldUntil
-			if err := check(bc); err != nil {
-				return scheduling.Booking{}, err, true
-			}
-			return b, nil, false // check let a hold through: let the fresh read decide
-		case found.taken != nil:
-			return scheduling.Booking{}, found.taken, true
+		return b, nil, false
+	case found.heldUntil != nil:
+		bc := kept.bc
+		bc.HeldUntil = found.heldUntil
+		if err := check(bc); err != nil {
+			return scheduling.Booking{}, err, true
 		}
-		return b, nil, true
+		return b, nil, false // check let a hold through: let the fresh read decide
+	case found.taken != nil:
+		return scheduling.Booking{}, found.taken, true
 	}
+	return b, nil, true
 }
 
 // keptOutcome is why insertBookingIfCurrent wrote nothing: the generation moved on

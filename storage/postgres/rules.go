@@ -76,10 +76,8 @@ func (db *DB) InsertBookingRow(ctx context.Context, b scheduling.NewBooking) err
 	const q = `
 INSERT INTO bookings (instrument_id, project_id, user_id, kind, during, created_at, created_by, updated_at)
 VALUES ($1, $2, $3, $4, tstzrange($5, $6, '[)'), now(), $7, now())`
-	for attempt := 0; ; attempt++ {
+	return mapError(retry(ctx, func() error {
 		_, err := db.pool.Exec(ctx, q, b.InstrumentID, b.ProjectID, b.UserID, string(b.Kind), b.Start, b.End, b.Actor)
-		if !retryable(err) || !retryPause(ctx, attempt) {
-			return mapError(err, "booking")
-		}
-	}
+		return err
+	}), "booking")
 }

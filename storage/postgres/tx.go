@@ -15,14 +15,19 @@ import (
 // exclusion constraint wait on each other's index entries and can deadlock; the retry
 // then sees the committed winner and fails with a real conflict.
 func (db *DB) retryTx(ctx context.Context, fn func(pgx.Tx) error) error {
-	var err error
-	for attempt := 0; attempt < retryAttempts; attempt++ {
-		err = pgx.BeginFunc(ctx, db.pool, fn)
+	return retry(ctx, func() error { return pgx.BeginFunc(ctx, db.pool, fn) })
+}
+
+// retry runs fn, a statement or a transaction, again while PostgreSQL aborts it to
+// break a deadlock or a serialization conflict, up to retryAttempts in all, and
+// returns its last error.
+func retry(ctx context.Context, fn func() error) error {
+	for attempt := 0; ; attempt++ {
+		err := fn()
 		if !retryable(err) || !retryPause(ctx, attempt) {
 			return err
 		}
 	}
-	return err
 }
 
 // retryAttempts is how many times a write aborted by a deadlock or a serialization
