@@ -124,11 +124,9 @@ func TestBookingHistoryDerivesCreation(t *testing.T) {
 // transaction's own check is set 30 s away. The transaction then rolls back, and the
 // retried insert of B succeeds.
 func TestBookingInsertRetriesDeadlock(t *testing.T) {
-	db, conn := openRaw(t)
+	w := newKeptWorld(t)
+	db, conn, from, pi, in, p := w.db, w.raw, w.from, w.pi, w.in, w.p
 	ctx := context.Background()
-	from := time.Date(2031, 3, 1, 0, 0, 0, 0, time.UTC)
-	mgr, pi, in := billingFacility(t, db, from)
-	p := fundedProject(t, db, mgr, pi, "P-1")
 	paths := []struct {
 		name   string
 		insert func(scheduling.NewBooking) error

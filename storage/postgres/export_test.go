@@ -6,6 +6,7 @@ import (
 	"time"
 
 	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgxpool"
 
 	"beamledger/scheduling"
 )
@@ -40,13 +41,6 @@ func (db *DB) BookingContextPlans(ctx context.Context, nb scheduling.NewBooking,
 		return 0, 0, "", err
 	}
 	defer conn.Release()
-	const counts = `
-SELECT coalesce(sum(generic_plans), 0), coalesce(sum(custom_plans), 0) FROM pg_prepared_statements
-WHERE statement LIKE '%FROM facility f CROSS JOIN instruments i%' AND statement NOT LIKE '%pg_prepared_statements%'`
-	var g0, c0, g1, c1 int64
-	if err := conn.QueryRow(ctx, counts).Scan(&g0, &c0); err != nil {
-		return 0, 0, "", err
-	}
 	read := func(q interface {
 		batcher
 		querier
@@ -58,18 +52,33 @@ WHERE statement LIKE '%FROM facility f CROSS JOIN instruments i%' AND statement 
 		}
 		return q.QueryRow(ctx, `SHOW plan_cache_mode`).Scan(&after)
 	}
-	if inTx {
-		err = pgx.BeginFunc(ctx, conn, func(tx pgx.Tx) error { return read(tx) })
-	} else {
-		err = read(conn)
+	generic, custom, err = planCounts(ctx, conn, "%FROM facility f CROSS JOIN instruments i%", func() error {
+		if inTx {
+			return pgx.BeginFunc(ctx, conn, func(tx pgx.Tx) error { return read(tx) })
+		}
+		return read(conn)
+	})
+	return generic, custom, after, err
+}
+
+// planCounts runs fn on conn and reports how many times, meanwhile, the session's
+// prepared statements whose text is like pattern ran on PostgreSQL's kept generic
+// plan and how many times on a plan made for their arguments.
+func planCounts(ctx context.Context, conn *pgxpool.Conn, pattern string, fn func() error) (generic, custom int64, err error) {
+	const counts = `
+SELECT coalesce(sum(generic_plans), 0), coalesce(sum(custom_plans), 0) FROM pg_prepared_statements
+WHERE statement LIKE $1 AND statement NOT LIKE '%pg_prepared_statements%'`
+	var g0, c0, g1, c1 int64
+	if err := conn.QueryRow(ctx, counts, pattern).Scan(&g0, &c0); err != nil {
+		return 0, 0, err
 	}
-	if err != nil {
-		return 0, 0, "", err
+	if err := fn(); err != nil {
+		return 0, 0, err
 	}
-	if err := conn.QueryRow(ctx, counts).Scan(&g1, &c1); err != nil {
-		return 0, 0, "", err
+	if err := conn.QueryRow(ctx, counts, pattern).Scan(&g1, &c1); err != nil {
+		return 0, 0, err
 	}
-	return g1 - g0, c1 - c0, after, nil
+	return g1 - g0, c1 - c0, nil
 }
 
 // KeepsContext reports whether a rules context is kept for nb's booker, instrument
@@ -93,16 +102,15 @@ func (db *DB) KeptBookingPlans(ctx context.Context, nb scheduling.NewBooking, n 
 	if err := conn.QueryRow(ctx, `SELECT n FROM booking_rules_generation`).Scan(&gen); err != nil {
 		return 0, 0, err
 	}
-	for i := range n {
-		b := nb
-		b.Start = nb.Start.Add(time.Duration(2*i) * time.Hour)
-		b.End = b.Start.Add(time.Hour)
-		if _, out, err := insertBookingIfCurrent(ctx, conn, b, b.Start, gen); err != nil || out != (keptOutcome{}) {
-			return 0, 0, fmt.Errorf("booking %d: %v (%+v)", i, err, out)
+	return planCounts(ctx, conn, "%FROM booking_rules_generation WHERE id = 1),%", func() error {
+		for i := range n {
+			b := nb
+			b.Start = nb.Start.Add(time.Duration(2*i) * time.Hour)
+			b.End = b.Start.Add(time.Hour)
+			if _, out, err := insertBookingIfCurrent(ctx, conn, b, b.Start, gen); err != nil || out != (keptOutcome{}) {
+				return fmt.Errorf("booking %d: %v (%+v)", i, err, out)
+			}
 		}
-	}
-	err = conn.QueryRow(ctx, `
-SELECT coalesce(sum(generic_plans), 0), coalesce(sum(custom_plans), 0) FROM pg_prepared_statements
-WHERE statement LIKE '%FROM booking_rules_generation WHERE id = 1),%' AND statement NOT LIKE '%pg_prepared_statements%'`).Scan(&generic, &custom)
-	return generic, custom, err
+		return nil
+	})
 }
