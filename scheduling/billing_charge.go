@@ -107,13 +107,19 @@ type chargePlan struct {
 // when no schedule covers the charged time, "rate_class_in_schedule" when the schedule
 // has no rates for the project's class.
 func ComputeCharges(in ChargeInput, schedules []RateSchedule, p BillingPolicy) ([]ChargeLine, error) {
+	return computeCharges(new(chargeScratch), in, schedules, p)
+}
+
+// computeCharges is ComputeCharges working in sc, which a caller pricing many bookings
+// passes to each in turn.
+func computeCharges(sc *chargeScratch, in ChargeInput, schedules []RateSchedule, p BillingPolicy) ([]ChargeLine, error) {
 	if err := in.validate(); err != nil {
 		return nil, err
 	}
 	var best []ChargeLine
 	bestAmount, bestMinutes := int64(-1), 0
-	for _, plan := range p.plans(in) {
-		lines, err := p.price(in, plan, schedules)
+	for i, plan := range p.plans(sc, in) {
+		lines, err := p.price(&sc.priced[i], in, plan, schedules)
 		if err != nil {
 			return nil, err
 		}
@@ -121,13 +127,31 @@ func ComputeCharges(in ChargeInput, schedules []RateSchedule, p BillingPolicy) (
 			best, bestAmount, bestMinutes = lines, amount, plan.minutes
 		}
 	}
-	return best, nil
+	return slices.Clone(best), nil
 }
 
-// price turns a plan into lines: instrument time, capped for unattended bookings, then
-// staff time for the kinds that add it.
-func (p BillingPolicy) price(in ChargeInput, plan chargePlan, schedules []RateSchedule) ([]ChargeLine, error) {
-	lines, staffRates, err := priceInstrument(in, plan, schedules)
+// chargeScratch is where computeCharges works. Nearly every booking has one or two
+// plans, a usage or two and one rate schedule in force over it, so its spans, plans
+// and lines fit here rather than in allocations of their own, and only the lines
+// charged are copied out: pricing a month of a facility allocated more than it
+// computed. Each booking overwrites what the one before left.
+type chargeScratch struct {
+	booked [1]Interval
+	used   [2]Interval
+	plans  [2]chargePlan
+	priced [2]pricedScratch // one per plan
+}
+
+// pricedScratch is where one plan's lines are priced.
+type pricedScratch struct {
+	lines      [2]ChargeLine
+	staffRates [2]int64
+}
+
+// price turns a plan into lines (in sc while they fit): instrument time, capped for
+// unattended bookings, then staff time for the kinds that add it.
+func (p BillingPolicy) price(sc *pricedScratch, in ChargeInput, plan chargePlan, schedules []RateSchedule) ([]ChargeLine, error) {
+	lines, staffRates, err := priceInstrument(sc.lines[:0], sc.staffRates[:0], in, plan, schedules)
 	if err != nil {
 		return nil, err
 	}
@@ -150,28 +174,34 @@ func (p BillingPolicy) price(in ChargeInput, plan chargePlan, schedules []RateSc
 
 // validate checks what pricing relies on.
 func (in ChargeInput) validate() error {
-	fe := beamledger.FieldErrors{}
+	var fe beamledger.FieldErrors // made at the first problem: valid input allocates nothing
+	add := func(field, reason string) {
+		if fe == nil {
+			fe = beamledger.FieldErrors{}
+		}
+		fe.Add(field, reason)
+	}
 	b := in.Booking
 	if !b.Kind.Valid() {
-		fe.Add("kind", "must be one of independent, assisted, training, unattended, service")
+		add("kind", "must be one of independent, assisted, training, unattended, service")
 	}
 	if !b.Start.Before(b.End) {
-		fe.Add("end", "must be after start")
+		add("end", "must be after start")
 	}
 	if b.Status == StatusCancelled && b.CancelledAt == nil {
-		fe.Add("cancelled_at", "is required for a cancelled booking")
+		add("cancelled_at", "is required for a cancelled booking")
 	}
 	if !in.RateClass.Valid() {
-		fe.Add("rate_class", "must be one of internal, external_academic, commercial")
+		add("rate_class", "must be one of internal, external_academic, commercial")
 	}
 	if in.RebookedMinutes < 0 {
-		fe.Add("rebooked_minutes", "must not be negative")
+		add("rebooked_minutes", "must not be negative")
 	}
 	for i, u := range in.Usages {
 		if u.EndedAt == nil && in.Now.IsZero() {
-			fe.Add("now", "is required while a usage is open: it runs to now")
+			add("now", "is required while a usage is open: it runs to now")
 		} else if span := u.Span(in.Now); span.End.Before(span.Start) {
-			fe.Add(fmt.Sprintf("usages[%d].ended_at", i), "must not be before started_at")
+			add(fmt.Sprintf("usages[%d].ended_at", i), "must not be before started_at")
 		}
 	}
 	return fe.Err()
@@ -179,10 +209,11 @@ func (in ChargeInput) validate() error {
 
 // plans decides what of the booking may be charged: none, one plan, or for the
 // greater-of basis the booked and the used plan, of which ComputeCharges charges the
-// dearer.
-func (p BillingPolicy) plans(in ChargeInput) []chargePlan {
+// dearer. The plans and their spans are kept in sc.
+func (p BillingPolicy) plans(sc *chargeScratch, in ChargeInput) []chargePlan {
 	b := in.Booking
-	booked := []Interval{{Start: b.Start, End: b.End}}
+	sc.booked[0] = Interval{Start: b.Start, End: b.End}
+	booked := sc.booked[:]
 	switch {
 	case b.Kind == KindService:
 		return nil
@@ -198,14 +229,14 @@ func (p BillingPolicy) plans(in ChargeInput) []chargePlan {
 		if p.LateCancellation == LateCancelBookedLessRebooked {
 			d = max(d-time.Duration(in.RebookedMinutes)*time.Minute, 0)
 		}
-		return nonEmpty(chargePlan{ComponentLateCancellation, ChargeRuleLateCancellation, booked, p.billedMinutes(d)})
+		return nonEmpty(sc.plans[:0], chargePlan{ComponentLateCancellation, ChargeRuleLateCancellation, booked, p.billedMinutes(d)})
 	}
-	used := mergeSpans(in.Usages, in.Now)
+	used := mergeSpans(sc.used[:0], in.Usages, in.Now)
 	if in.NoShow && len(used) == 0 {
 		if p.NoShow != NoShowBooked {
 			return nil
 		}
-		return nonEmpty(chargePlan{ComponentNoShow, ChargeRuleNoShow, booked, p.billedMinutes(b.Duration())})
+		return nonEmpty(sc.plans[:0], chargePlan{ComponentNoShow, ChargeRuleNoShow, booked, p.billedMinutes(b.Duration())})
 	}
 	went := func(spans []Interval) chargePlan {
 		plan := chargePlan{ComponentInstrumentTime, ChargeRule(p.Basis), spans, p.billedMinutes(spansLength(spans))}
@@ -216,22 +247,28 @@ func (p BillingPolicy) plans(in ChargeInput) []chargePlan {
 	}
 	switch p.Basis {
 	case BasisBooked:
-		return nonEmpty(went(booked))
+		return nonEmpty(sc.plans[:0], went(booked))
 	case BasisUsed:
-		return nonEmpty(went(used))
+		return nonEmpty(sc.plans[:0], went(used))
 	}
-	return nonEmpty(went(booked), went(used))
+	return nonEmpty(sc.plans[:0], went(booked), went(used))
 }
 
-// nonEmpty keeps the plans that charge some time.
-func nonEmpty(plans ...chargePlan) []chargePlan {
-	return slices.DeleteFunc(plans, func(pl chargePlan) bool { return pl.minutes <= 0 })
+// nonEmpty appends to dst the plans that charge some time.
+func nonEmpty(dst []chargePlan, plans ...chargePlan) []chargePlan {
+	for _, pl := range plans {
+		if pl.minutes > 0 {
+			dst = append(dst, pl)
+		}
+	}
+	return dst
 }
 
 // priceInstrument lays the plan's minutes over its spans, splits them at rate changes
-// and prices each schedule's minutes at the booking kind's instrument rate. staffRates
-// holds, beside each line, the staff rate of the same schedule and class.
-func priceInstrument(in ChargeInput, plan chargePlan, schedules []RateSchedule) (lines []ChargeLine, staffRates []int64, err error) {
+// and prices each schedule's minutes at the booking kind's instrument rate, appending
+// the lines to lines and, beside each, the staff rate of the same schedule and class
+// to staffRates.
+func priceInstrument(lines []ChargeLine, staffRates []int64, in ChargeInput, plan chargePlan, schedules []RateSchedule) ([]ChargeLine, []int64, error) {
 	b := in.Booking
 	// One group per schedule, from its first to its last piece, and the charged time up
 	// to the end of each: nearly always one, so they start on the stack.
@@ -240,7 +277,8 @@ func priceInstrument(in ChargeInput, plan chargePlan, schedules []RateSchedule) 
 	groups, ends := groupsBuf[:0], endsBuf[:0]
 	var run time.Duration
 	var piecesBuf [2]SchedulePiece
-	for _, span := range fitSpans(plan.spans, time.Duration(plan.minutes)*time.Minute) {
+	var fitBuf [2]Interval
+	for _, span := range fitSpans(fitBuf[:0], plan.spans, time.Duration(plan.minutes)*time.Minute) {
 		pieces, err := appendSchedulePieces(piecesBuf[:0], schedules, b.InstrumentID, span.Start, span.End)
 		if err != nil {
 			return nil, nil, err
@@ -254,7 +292,6 @@ func priceInstrument(in ChargeInput, plan chargePlan, schedules []RateSchedule) 
 			groups, ends = append(groups, pc), append(ends, run)
 		}
 	}
-	lines, staffRates = make([]ChargeLine, 0, len(groups)), make([]int64, 0, len(groups))
 	done := 0 // whole minutes charged to earlier groups
 	for i, g := range groups {
 		upTo := int(ends[i] / time.Minute) // the total is whole minutes, so the last group ends on it
@@ -284,12 +321,12 @@ func priceInstrument(in ChargeInput, plan chargePlan, schedules []RateSchedule) 
 	return lines, staffRates, nil
 }
 
-// fitSpans returns spans that hold exactly d of time from the first one's start: the
+// fitSpans appends to dst spans that hold exactly d of time from the first one's start: the
 // last span runs on past its end when d is longer, and spans are cut from the end when
 // it is shorter. Laying charged time this way means more measured time only ever adds
 // time at the end, so a charge cannot fall as work goes on.
-func fitSpans(spans []Interval, d time.Duration) []Interval {
-	out := make([]Interval, 0, len(spans))
+func fitSpans(dst []Interval, spans []Interval, d time.Duration) []Interval {
+	out := dst
 	for i, s := range spans {
 		if d <= 0 {
 			break
@@ -326,10 +363,10 @@ func sumLines(lines []ChargeLine) int64 {
 	return s
 }
 
-// mergeSpans is the union of the usages' non-empty spans (open ones run to now), in
-// time order with overlaps merged, so time worked twice over is charged once.
-func mergeSpans(usages []Usage, now time.Time) []Interval {
-	var spans []Interval
+// mergeSpans appends to dst the union of the usages' non-empty spans (open ones run to
+// now), in time order with overlaps merged, so time worked twice over is charged once.
+func mergeSpans(dst []Interval, usages []Usage, now time.Time) []Interval {
+	spans := dst
 	for _, u := range usages {
 		if s := u.Span(now); s.Start.Before(s.End) {
 			spans = append(spans, s)

@@ -108,6 +108,7 @@ func PriceStatement(src StatementSources) (StatementInput, error) {
 		schedules []RateSchedule
 	}
 	terms := map[string]*instrumentTerms{}
+	sc := new(chargeScratch)
 	if len(src.Bookings) > 0 {
 		in.Charges = make([]BookingCharges, 0, len(src.Bookings))
 	}
@@ -125,7 +126,7 @@ func PriceStatement(src StatementSources) (StatementInput, error) {
 		funding := FundingFor(bb.Funding, src.ProjectFunding)
 		groups := classGroups(funding, src.AccountClasses, src.RateClass)
 		for _, g := range groups {
-			lines, err := ComputeCharges(ChargeInput{Booking: bb.Booking, RateClass: g.class, Usages: bb.Usages,
+			lines, err := computeCharges(sc, ChargeInput{Booking: bb.Booking, RateClass: g.class, Usages: bb.Usages,
 				RebookedMinutes: bb.RebookedMinutes, NoShow: bb.NoShow, DisplacedByService: bb.DisplacedByService, Now: src.Now},
 				t.schedules, t.policy)
 			if err != nil {

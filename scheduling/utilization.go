@@ -74,7 +74,7 @@ func SumUtilization(from, to time.Time, cancellationWindow time.Duration, bookin
 		switch {
 		case b.Status == StatusActive:
 			t.Booked = clip(b.Start, b.End)
-			for _, s := range mergeSpans(b.Usages, now) {
+			for _, s := range mergeSpans(nil, b.Usages, now) {
 				t.Used += clip(s.Start, s.End)
 			}
 			if b.NoShow && len(b.Usages) == 0 {
@@ -210,7 +210,7 @@ func totals[K comparable](m map[K]*UtilizationTotals, k K) *UtilizationTotals {
 // mergeIntervals is the union of intervals, in time order. It sorts ivs in place.
 func mergeIntervals(ivs []Interval) []Interval {
 	slices.SortFunc(ivs, compareInterval)
-	var out []Interval
+	out := ivs[:0] // written no faster than read
 	for _, s := range ivs {
 		if n := len(out); n > 0 && !s.Start.After(out[n-1].End) {
 			if s.End.After(out[n-1].End) {
