@@ -17,6 +17,7 @@ import (
 	"github.com/google/uuid"
 	"github.com/jackc/pgx/v5"
 	"github.com/jackc/pgx/v5/pgtype"
+	"github.com/jackc/pgx/v5/pgxpool"
 
 	"beamledger"
 	"beamledger/accounts"
@@ -42,7 +43,7 @@ func (db *DB) ComputeStatement(ctx context.Context, projectID string, from, to t
 		return st, false, beamledger.NotFound("project")
 	}
 	err = pgx.BeginFunc(ctx, db.pool, func(tx pgx.Tx) error {
-		drafts, err := computeDrafts(ctx, tx, []string{projectID}, from, to, actor, now)
+		drafts, err := computeDrafts(ctx, nil, tx, []string{projectID}, from, to, actor, now)
 		if err != nil {
 			return err
 		}
@@ -81,7 +82,7 @@ func (db *DB) ComputeStatements(ctx context.Context, projectIDs []string, from, 
 		return out, nil
 	}
 	err := pgx.BeginFunc(ctx, db.pool, func(tx pgx.Tx) error {
-		drafts, err := computeDrafts(ctx, tx, unique, from, to, actor, now)
+		drafts, err := computeDrafts(ctx, db.pool, tx, unique, from, to, actor, now)
 		if err != nil {
 			return err
 		}
@@ -113,8 +114,9 @@ type draft struct {
 // [from, to), each replacing the period's earlier draft, with one ledger event per
 // statement (create for a new one, correct for a recomputed one). Projects whose
 // statement was issued are reported, not touched. pgx.ErrNoRows when a project or the
-// facility does not exist.
-func computeDrafts(ctx context.Context, tx pgx.Tx, projectIDs []string, from, to time.Time, actor string, now time.Time) ([]draft, error) {
+// facility does not exist. With a pool, the bookings are read on a connection of its
+// when one is free (see bookingReader).
+func computeDrafts(ctx context.Context, pool *pgxpool.Pool, tx pgx.Tx, projectIDs []string, from, to time.Time, actor string, now time.Time) ([]draft, error) {
 	// The reads below are many rows but simple plans: compiling them (JIT) would cost
 	// more than running them. A month's bookings are hashed against all usage; with
 	// the default 4 MB of working memory that hash spills to disk in batches.
@@ -175,15 +177,28 @@ WHERE project_id = ANY($1::uuid[]) AND period_start = $2 ORDER BY id FOR UPDATE`
 		todo, ids = append(todo, i), append(ids, x.id)
 	}
 	// Pricing, assembling and encoding are pure and per project: they run on as many
-	// goroutines as there are processors, and each statement's ledger event goes into
-	// the COPY as soon as it is encoded, so the database stores events while the
-	// rest are still being priced. A recomputed draft that comes out exactly as stored
-	// (the same canonical state) writes nothing: no event, no row change.
+	// goroutines as there are processors, each project's as soon as its bookings are
+	// read, while the next projects' are still being read. The ledger events go into
+	// the COPY as they are encoded: while the rest are read, when they are read on
+	// another connection. A recomputed draft that comes out exactly as stored (the
+	// same canonical state) writes nothing: no event, no row change.
 	enc := make([]encodedStatement, len(todo))
-	err = parallelInto(ctx, tx, len(todo), func(k int) (bool, error) {
+	bookings := make([][]scheduling.BillableBooking, len(todo)) // pending[k]'s, written before k is ready
+	reader, release, err := bookingReader(ctx, pool, tx, len(pending))
+	if err != nil {
+		return nil, err
+	}
+	defer release()
+	read := func(ctx context.Context, ready func(k int)) error {
+		return billableBookingsEach(ctx, reader, pending, from, to, func(k int, bs []scheduling.BillableBooking) {
+			bookings[k] = bs
+			ready(k)
+		})
+	}
+	err = parallelInto(ctx, tx, len(todo), read, reader != tx, func(k int) (bool, error) {
 		i := todo[k]
 		src := srcs[projectIDs[i]]
-		src.StatementID = ids[k]
+		src.StatementID, src.Bookings = ids[k], bookings[k]
 		sortBillable(src.Bookings)
 		in, err := scheduling.PriceStatement(src)
 		if err != nil {
@@ -207,9 +222,57 @@ WHERE project_id = ANY($1::uuid[]) AND period_start = $2 ORDER BY id FOR UPDATE`
 	return drafts, nil
 }
 
+// bookingReader is where computeDrafts reads the bookings of n projects: tx itself,
+// or, when a pool is given, n is more than one and one of the pool's connections is
+// free, a read-only transaction on that connection that imports the snapshot of tx's
+// next statement, so it sees exactly what tx would (tx has taken its locks by then).
+// On their own connection the bookings are read while tx stores the ledger events of
+// the projects read so far. release ends the reader. The pool is never waited for
+// long: computations that each held a connection and waited for a second could
+// otherwise wait on one another.
+func bookingReader(ctx context.Context, pool *pgxpool.Pool, tx pgx.Tx, n int) (reader pgx.Tx, release func(), err error) {
+	none := func() {}
+	if pool == nil || n < 2 {
+		return tx, none, nil
+	}
+	if st := pool.Stat(); st.IdleConns() == 0 && st.TotalConns() >= st.MaxConns() {
+		return tx, none, nil
+	}
+	actx, cancel := context.WithTimeout(ctx, readerWait)
+	conn, err := pool.Acquire(actx)
+	cancel()
+	if err != nil {
+		if ctx.Err() != nil {
+			return nil, none, ctx.Err()
+		}
+		return tx, none, nil
+	}
+	var snapshot string
+	if err := tx.QueryRow(ctx, `SELECT pg_export_snapshot()`).Scan(&snapshot); err != nil {
+		conn.Release()
+		return nil, none, err
+	}
+	if reader, err = beginOnSnapshot(ctx, conn, snapshot); err != nil {
+		conn.Release()
+		return nil, none, err
+	}
+	if _, err := reader.Exec(ctx, `SET LOCAL jit = off`); err != nil {
+		_ = reader.Rollback(context.WithoutCancel(ctx))
+		conn.Release()
+		return nil, none, err
+	}
+	return reader, func() {
+		_ = reader.Rollback(context.WithoutCancel(ctx))
+		conn.Release()
+	}, nil
+}
+
+// readerWait is how long bookingReader waits for a connection that is being opened.
+const readerWait = 100 * time.Millisecond
+
 // statementSourcesAll gathers what each project's statement for [from, to) is priced
-// from, keyed by project, in a fixed number of queries. StatementID is left for the
-// caller, and so is putting the bookings in order (sortBillable). pgx.ErrNoRows when a
+// from, but its bookings, keyed by project, in a fixed number of queries. StatementID
+// and Bookings (billableBookingsEach) are left for the caller. pgx.ErrNoRows when a
 // project or the facility does not exist.
 func statementSourcesAll(ctx context.Context, tx pgx.Tx, projectIDs []string, from, to, now time.Time) (map[string]scheduling.StatementSources, error) {
 	out := make(map[string]scheduling.StatementSources, len(projectIDs))
@@ -252,10 +315,6 @@ func statementSourcesAll(ctx context.Context, tx pgx.Tx, projectIDs []string, fr
 	if err != nil {
 		return nil, err
 	}
-	bookings, err := billableBookingsAll(ctx, tx, projectIDs, from, to)
-	if err != nil {
-		return nil, err
-	}
 	adjustments, err := adjustmentsAll(ctx, tx, projectIDs, from, to)
 	if err != nil {
 		return nil, err
@@ -269,7 +328,7 @@ func statementSourcesAll(ctx context.Context, tx pgx.Tx, projectIDs []string, fr
 		if f, ok := funding[id]; ok {
 			src.ProjectFunding = f
 		}
-		src.Bookings, src.Adjustments = bookings[id], adjustments[id]
+		src.Adjustments = adjustments[id]
 		out[id] = src
 	}
 	return out, nil
@@ -303,102 +362,130 @@ const rebookedMinutes = `CASE WHEN b.status = 'cancelled' THEN coalesce((
            WHERE c.instrument_id = b.instrument_id AND c.status = 'active' AND c.kind <> 'service' AND c.id <> b.id
              AND c.during && b.during AND c.created_at >= b.cancelled_at), 0) ELSE 0 END`
 
-// billableBookingsAll reads the projects' bookings starting in [from, to), keyed by
-// project in no particular order (sortBillable orders them), each with its usage,
-// no-show mark, displacement, the minutes of a cancelled booking others booked
-// after its cancellation (active bookings of one instrument never overlap, so the sum
-// is their union), and the booking's own split.
-func billableBookingsAll(ctx context.Context, q querier, projectIDs []string, from, to time.Time) (map[string][]scheduling.BillableBooking, error) {
-	// One row per booking and usage (NULL usage for a booking without): a flat join
-	// the planner can hash, with binary timestamps, in no particular order (sorting a
-	// month of rows in the database cost more than sorting each project's in Go).
-	const sql = `
-SELECT b.project_id, b.id, b.instrument_id, b.user_id, b.kind, lower(b.during), upper(b.during), b.status, b.cancelled_at,
-       b.displaced_by IS NOT NULL, n.booking_id IS NOT NULL, ` + rebookedMinutes + `,
-       u.started_at, u.ended_at
-FROM bookings b
-LEFT JOIN no_shows n ON n.booking_id = b.id
-LEFT JOIN usages u ON u.booking_id = b.id
-WHERE b.project_id = ANY($1::uuid[]) AND b.kind <> 'service' AND lower(b.during) >= $2 AND lower(b.during) < $3`
-	rows, err := q.Query(ctx, sql, projectIDs, from, to)
-	if err != nil {
-		return nil, err
-	}
-	// Bookings are read into fixed blocks (a month is tens of thousands, and growing
-	// per-project slices by doubling copied and cleared them over and over), then
-	// copied once into a slice per project of the right size.
-	type ref struct{ block, i int }
-	var blocks [][]scheduling.BillableBooking
-	count := map[string]int{} // bookings per project
-	at := map[[16]byte]ref{}  // booking → its place in blocks
-	ids := names{}            // instruments, users and projects
-	var (
-		bb                            scheduling.BillableBooking
-		project, id, instrument, user pgtype.UUID
-		kind, status                  string
-		rebooked                      int64
-		started, ended                pgtype.Timestamptz
-		arena                         usageArena
-	)
-	b := &bb.Booking
-	_, err = pgx.ForEachRow(rows, []any{&project, &id, &instrument, &user, &kind, &b.Start, &b.End, &status, &b.CancelledAt,
-		&bb.DisplacedByService, &bb.NoShow, &rebooked, &started, &ended}, func() error {
-		r, seen := at[id.Bytes]
-		if !seen {
-			b.ID, b.ProjectID, b.InstrumentID, b.UserID = uuid.UUID(id.Bytes).String(), ids.of(project), ids.of(instrument), ids.of(user)
-			b.Kind, b.Status, bb.RebookedMinutes = scheduling.BookingKind(kind), scheduling.BookingStatus(status), int(rebooked)
-			b.Start, b.End = b.Start.UTC(), b.End.UTC()
-			bb.Usages, bb.Funding = nil, nil
-			if n := len(blocks); n == 0 || len(blocks[n-1]) == cap(blocks[n-1]) {
-				blocks = append(blocks, make([]scheduling.BillableBooking, 0, arenaBlock))
-			}
-			r = ref{len(blocks) - 1, len(blocks[len(blocks)-1])}
-			at[id.Bytes] = r
-			blocks[r.block] = append(blocks[r.block], bb)
-			count[b.ProjectID]++
-		}
-		if started.Valid {
-			last := &blocks[r.block][r.i]
-			arena.add(&last.Usages, last.Booking.ID, started.Time, ended)
-		}
+// billableBookingsEach reads the bookings starting in [from, to) of each project, one
+// query per project sent together in one batch, and hands each project's to each(k,
+// bookings) as soon as its rows are in, in the order of projectIDs: every project
+// once, with nil for a project without bookings. Each booking comes with its usage,
+// no-show mark, displacement, the minutes of a cancelled booking others booked after
+// its cancellation (active bookings of one instrument never overlap, so the sum is
+// their union), and its own split; a project's in no particular order (sortBillable
+// puts them in the order its statement lists them).
+//
+// One query per project rather than one for the month: each walks its project's
+// bookings in order through bookings_project_idx and finds their usage in the usages
+// index that holds the usage's times, where one query for the month joins its bookings
+// with every usage ever recorded; and a project is whole as soon as its query ends, so
+// its statement can be priced while the next ones are read.
+func billableBookingsEach(ctx context.Context, q pgx.Tx, projectIDs []string, from, to time.Time, each func(k int, bookings []scheduling.BillableBooking)) error {
+	if len(projectIDs) == 0 {
 		return nil
-	})
-	if err != nil {
-		return nil, err
 	}
-	// A booking's own split, for the few that have one.
+	// First the few bookings that have a split of their own, and the no-shows, each
+	// for the whole month in one query (looked up per booking, the no-shows were a
+	// scan of their table for each booking while it was small).
 	const splits = `
 SELECT f.booking_id, f.account_id::text, f.basis_points
 FROM booking_funding f JOIN bookings b ON b.id = f.booking_id
 WHERE b.project_id = ANY($1::uuid[]) AND b.kind <> 'service' AND lower(b.during) >= $2 AND lower(b.during) < $3
 ORDER BY f.booking_id, f.position`
-	if rows, err = q.Query(ctx, splits, projectIDs, from, to); err != nil {
-		return nil, err
+	rows, err := q.Query(ctx, splits, projectIDs, from, to)
+	if err != nil {
+		return err
 	}
+	own := map[[16]byte][]scheduling.FundingShare{}
 	var bookingID pgtype.UUID
 	var share scheduling.FundingShare
 	if _, err := pgx.ForEachRow(rows, []any{&bookingID, &share.AccountID, &share.BasisPoints}, func() error {
-		if r, ok := at[bookingID.Bytes]; ok {
-			f := &blocks[r.block][r.i].Funding
-			*f = append(*f, share)
-		}
+		own[bookingID.Bytes] = append(own[bookingID.Bytes], share)
 		return nil
 	}); err != nil {
-		return nil, err
+		return err
 	}
-	out := make(map[string][]scheduling.BillableBooking, len(count))
-	for p, n := range count {
-		out[p] = make([]scheduling.BillableBooking, 0, n)
+	const noShows = `
+SELECT n.booking_id FROM no_shows n JOIN bookings b ON b.id = n.booking_id
+WHERE b.project_id = ANY($1::uuid[]) AND b.kind <> 'service' AND lower(b.during) >= $2 AND lower(b.during) < $3`
+	if rows, err = q.Query(ctx, noShows, projectIDs, from, to); err != nil {
+		return err
 	}
-	for _, block := range blocks {
-		for _, bb := range block {
-			out[bb.Booking.ProjectID] = append(out[bb.Booking.ProjectID], bb)
+	noShow := map[[16]byte]bool{}
+	if _, err := pgx.ForEachRow(rows, []any{&bookingID}, func() error {
+		noShow[bookingID.Bytes] = true
+		return nil
+	}); err != nil {
+		return err
+	}
+
+	// One row per booking and usage (NULL usage for a booking without), in no
+	// particular order: asking for them in order cost the database more than sorting
+	// each project's costs the workers. A booking's usages are asked for in order of
+	// their number, which only usages_booking_ordinal_key gives: without that, a
+	// plan made before vacuum has marked the table's pages all-visible looked them up
+	// through usages_no_overlap, twice as slow.
+	const sql = `
+SELECT b.id, b.instrument_id, b.kind, lower(b.during), upper(b.during), b.status, b.cancelled_at,
+       b.displaced_by IS NOT NULL, ` + rebookedMinutes + `, u.started_at, u.ended_at
+FROM bookings b
+LEFT JOIN LATERAL (SELECT u.started_at, u.ended_at FROM usages u WHERE u.booking_id = b.id ORDER BY u.ordinal) u ON true
+WHERE b.project_id = $1 AND b.kind <> 'service' AND lower(b.during) >= $2 AND lower(b.during) < $3`
+	batch := &pgx.Batch{}
+	for _, id := range projectIDs {
+		batch.Queue(sql, id, from, to)
+	}
+	br := q.SendBatch(ctx, batch)
+	defer br.Close()
+	var (
+		bb             scheduling.BillableBooking
+		id, instrument pgtype.UUID
+		kind, status   string
+		rebooked       int64
+		started, ended pgtype.Timestamptz
+		arena          usageArena
+		ids            = names{}            // instruments
+		hint           int                  // the most bookings a project had so far
+		at             = map[[16]byte]int{} // booking → its place in the project's
+	)
+	b := &bb.Booking
+	dest := []any{&id, &instrument, &kind, &b.Start, &b.End, &status, &b.CancelledAt,
+		&bb.DisplacedByService, &rebooked, &started, &ended}
+	for k, project := range projectIDs {
+		rows, err := br.Query()
+		if err != nil {
+			return err
 		}
+		var bookings []scheduling.BillableBooking // sized to the largest project before, which most fit in
+		if hint > 0 {
+			bookings = make([]scheduling.BillableBooking, 0, hint)
+		}
+		clear(at)
+		if _, err := pgx.ForEachRow(rows, dest, func() error {
+			i, seen := at[id.Bytes]
+			if !seen {
+				i = len(bookings)
+				at[id.Bytes] = i
+				b.ID, b.ProjectID, b.InstrumentID = uuid.UUID(id.Bytes).String(), project, ids.of(instrument)
+				b.Kind, b.Status, bb.RebookedMinutes = scheduling.BookingKind(kind), scheduling.BookingStatus(status), int(rebooked)
+				b.Start, b.End = b.Start.UTC(), b.End.UTC()
+				bb.Usages, bb.Funding, bb.NoShow = nil, own[id.Bytes], noShow[id.Bytes]
+				bookings = append(bookings, bb)
+			}
+			if started.Valid {
+				cur := &bookings[i]
+				arena.add(&cur.Usages, cur.Booking.ID, started.Time, ended)
+			}
+			return nil
+		}); err != nil {
+			return err
+		}
+		if len(bookings) == 0 {
+			bookings = nil
+		}
+		hint = max(hint, len(bookings))
+		each(k, bookings)
 	}
-	return out, nil
+	return br.Close()
 }
 
-// sortBillable puts one project's bookings as billableBookingsAll reads them in
+// sortBillable puts one project's bookings as billableBookingsEach reads them in
 // booking order (start, then id), each one's usage in order of start. Each statement
 // sorts its own, in parallel with the others.
 func sortBillable(bs []scheduling.BillableBooking) {
@@ -500,20 +587,26 @@ func encodeStatement(st scheduling.Statement, created bool, actor string, now ti
 	return e, nil
 }
 
-// parallelInto runs f(0) … f(n-1) on as many goroutines as there are processors and
-// appends to the ledger, in tx with one COPY, event(k) of every k as soon as f(k)
-// succeeds asking for it. When any f fails it returns the error of the lowest index that failed (so
-// that the error reported does not depend on scheduling), whatever the COPY did; the
+// parallelInto runs f(0) … f(n-1) on as many goroutines as there are processors,
+// each f(k) as soon as produce has called ready(k), and appends to the ledger, in tx
+// with one COPY, event(k) of every k whose f(k) succeeded asking for it, as each
+// finishes. produce must make every k ready once. It runs on the calling goroutine
+// before the COPY, so that it may use tx, or, when concurrent, on a goroutine of its
+// own during the COPY (it is cancelled if the COPY fails). When any f fails, the
+// error of the lowest index that failed is returned (so that the error reported does
+// not depend on scheduling), whatever the COPY did; else produce's error, if any. The
 // caller's transaction is then to be rolled back. Otherwise every f succeeded and
 // every event is stored (statementEventSeqs finds their seqs).
-func parallelInto(ctx context.Context, tx pgx.Tx, n int, f func(k int) (bool, error), event func(k int) provenance.LedgerEvent) error {
+func parallelInto(ctx context.Context, tx pgx.Tx, n int, produce func(ctx context.Context, ready func(k int)) error, concurrent bool,
+	f func(k int) (bool, error), event func(k int) provenance.LedgerEvent) error {
 	errs := make([]error, n)
-	done := make(chan int, n) // buffered for all: workers never wait on the COPY
-	var next, sent atomic.Int64
+	work := make(chan int, n) // buffered for all: produce never waits on the workers
+	done := make(chan int, n) // nor the workers on the COPY
+	var sent atomic.Int64
 	var wg sync.WaitGroup
 	for range min(runtime.GOMAXPROCS(0), n) {
 		wg.Go(func() {
-			for k := int(next.Add(1)) - 1; k < n; k = int(next.Add(1)) - 1 {
+			for k := range work {
 				var send bool
 				if send, errs[k] = f(k); errs[k] == nil && send {
 					sent.Add(1)
@@ -523,15 +616,44 @@ func parallelInto(ctx context.Context, tx pgx.Tx, n int, f func(k int) (bool, er
 		})
 	}
 	go func() { wg.Wait(); close(done) }()
+	pctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	var produceErr error
+	produced := make(chan struct{})
+	run := func() {
+		defer close(produced)
+		readied := 0
+		produceErr = produce(pctx, func(k int) { readied++; work <- k })
+		close(work)
+		if produceErr == nil && readied != n {
+			produceErr = errors.New("statements: not every statement's sources were read")
+		}
+	}
+	if !concurrent {
+		if run(); produceErr != nil {
+			for range done { // let the workers finish
+			}
+			return produceErr
+		}
+	} else {
+		go run()
+	}
 	src := &eventStream{done: done, event: event}
 	_, copyErr := tx.CopyFrom(ctx, pgx.Identifier{"ledger_events"}, []string{"actor", "at", "action", "entity_type", "entity_id", "leaf"}, src)
+	if copyErr != nil {
+		cancel()
+	}
 	for range done { // the COPY may have stopped early: let the workers finish
 	}
+	<-produced
 	if err := firstError(errs); err != nil {
 		return err
 	}
 	if copyErr != nil {
 		return copyErr
+	}
+	if produceErr != nil {
+		return produceErr
 	}
 	if int64(src.rows) != sent.Load() {
 		return errors.New("statements: not every ledger event was written")

@@ -114,3 +114,29 @@ func (db *DB) KeptBookingPlans(ctx context.Context, nb scheduling.NewBooking, n 
 		return nil
 	})
 }
+
+// StatementBookingsRead does what a month's statements do up to their bookings: it
+// begins the computing transaction, takes its locks, finds where the bookings are read
+// (bookingReader, with n projects to read) and, after between has run, reads
+// projectID's bookings of [from, to) there. It reports their ids and whether they were
+// read on a connection of their own.
+func (db *DB) StatementBookingsRead(ctx context.Context, projectID string, from, to time.Time, n int, between func()) (ids []string, elsewhere bool, err error) {
+	err = pgx.BeginFunc(ctx, db.pool, func(tx pgx.Tx) error {
+		if _, err := tx.Exec(ctx, `SELECT 1 FROM statements WHERE project_id = $1 AND period_start = $2 FOR UPDATE`, projectID, from); err != nil {
+			return err
+		}
+		reader, release, err := bookingReader(ctx, db.pool, tx, n)
+		if err != nil {
+			return err
+		}
+		defer release()
+		elsewhere = reader != tx
+		between()
+		return billableBookingsEach(ctx, reader, []string{projectID}, from, to, func(_ int, bs []scheduling.BillableBooking) {
+			for _, b := range bs {
+				ids = append(ids, b.Booking.ID)
+			}
+		})
+	})
+	return ids, elsewhere, err
+}

@@ -29,6 +29,23 @@ const auditConns = 3
 // written into SET TRANSACTION SNAPSHOT (which takes no parameters).
 var snapshotID = regexp.MustCompile(`^[0-9A-Fa-f-]+$`)
 
+// beginOnSnapshot begins on conn a read-only REPEATABLE READ transaction that sees the
+// exported snapshot.
+func beginOnSnapshot(ctx context.Context, conn *pgxpool.Conn, snapshot string) (pgx.Tx, error) {
+	if !snapshotID.MatchString(snapshot) {
+		return nil, fmt.Errorf("unexpected snapshot name %q", snapshot)
+	}
+	tx, err := conn.BeginTx(ctx, pgx.TxOptions{IsoLevel: pgx.RepeatableRead, AccessMode: pgx.ReadOnly})
+	if err != nil {
+		return nil, err
+	}
+	if _, err := tx.Exec(ctx, `SET TRANSACTION SNAPSHOT '`+snapshot+`'`); err != nil {
+		_ = tx.Rollback(context.WithoutCancel(ctx))
+		return nil, err
+	}
+	return tx, nil
+}
+
 // AuditLedger recomputes the ledger's whole tree from its event rows and checks every
 // stored hash, tree head and checkpoint (each signature with the one of keys it
 // names: several keys check a ledger across a key rotation), as
@@ -193,14 +210,16 @@ func snapshotStream[T any](ctx context.Context, pool *pgxpool.Pool, snapshot, qu
 		go func() {
 			defer close(batches)
 			errc <- func() error {
-				tx, err := pool.BeginTx(ctx, pgx.TxOptions{IsoLevel: pgx.RepeatableRead, AccessMode: pgx.ReadOnly})
+				conn, err := pool.Acquire(ctx)
+				if err != nil {
+					return err
+				}
+				defer conn.Release()
+				tx, err := beginOnSnapshot(ctx, conn, snapshot)
 				if err != nil {
 					return err
 				}
 				defer tx.Rollback(context.WithoutCancel(ctx))
-				if _, err := tx.Exec(ctx, `SET TRANSACTION SNAPSHOT '`+snapshot+`'`); err != nil {
-					return err
-				}
 				rows, err := tx.Query(ctx, query)
 				if err != nil {
 					return err
