@@ -118,9 +118,8 @@ type draft struct {
 // when one is free (see bookingReader).
 func computeDrafts(ctx context.Context, pool *pgxpool.Pool, tx pgx.Tx, projectIDs []string, from, to time.Time, actor string, now time.Time) ([]draft, error) {
 	// The reads below are many rows but simple plans: compiling them (JIT) would cost
-	// more than running them. A month's bookings are hashed against all usage; with
-	// the default 4 MB of working memory that hash spills to disk in batches.
-	if _, err := tx.Exec(ctx, `SET LOCAL jit = off; SET LOCAL work_mem = '64MB'`); err != nil {
+	// more than running them.
+	if _, err := tx.Exec(ctx, `SET LOCAL jit = off`); err != nil {
 		return nil, err
 	}
 	// Computations of one period take turns, whichever process runs them: two that
